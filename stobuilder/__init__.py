@@ -1,0 +1,3 @@
+"""stobuilder: Slater-type-orbital minimal basis sets, expanded in Gaussians, for open codes."""
+
+__version__ = "0.1.0"
