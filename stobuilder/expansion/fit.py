@@ -22,7 +22,7 @@ from scipy.optimize import minimize
 
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
-from .integrals import gaussian_overlap, sto_gaussian_overlap
+from .integrals import gaussian_overlap, radial_integrals, sto_gaussian_overlap
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2",)
@@ -107,8 +107,7 @@ def _solve(g: np.ndarray, s: np.ndarray) -> np.ndarray | None:
     diag = np.diag(chol)
     if diag.min() ** 2 < _MIN_RCOND * diag.max() ** 2:
         return None
-    y = np.linalg.solve(chol, s)  # small dense triangular solve
-    return np.linalg.solve(chol.T, y)
+    return np.linalg.solve(g, s)
 
 
 def objective(log_alpha: np.ndarray, nls: tuple[tuple[int, int], ...]) -> tuple[float, np.ndarray]:
@@ -117,13 +116,16 @@ def objective(log_alpha: np.ndarray, nls: tuple[tuple[int, int], ...]) -> tuple[
     d(sᵀG⁻¹s)/dx_k = 2 c_k ds_k/dx_k − 2 c_k Σ_j c_j dG_kj/dx_k, with x = ln α and
     dG_kj/dx_k = G_kj (l + 3/2) (½ − α_k/(α_k + α_j)).
     """
+    if not np.all(np.abs(log_alpha) < 25.0):  # a wild line-search step: e^±25 bohr⁻² is no fit
+        return 1e3, np.zeros_like(log_alpha)
     alpha = np.exp(log_alpha)
     total = 0.0
     grad = np.zeros_like(alpha)
     frac = alpha[:, None] / np.add.outer(alpha, alpha)
+    ints = radial_integrals(max(n + l for n, l in nls) + 4, alpha)
     for n, l in nls:
         g = gaussian_overlap(l, alpha)
-        s, ds = sto_gaussian_overlap(n, l, alpha)
+        s, ds = sto_gaussian_overlap(n, l, alpha, integrals=ints)
         c = _solve(g, s)
         if c is None:
             return 1e3, np.zeros_like(alpha)  # singular G: reject the step
@@ -143,7 +145,7 @@ def _coefficients(alpha: np.ndarray, n: int, l: int) -> tuple[np.ndarray, float]
 
 
 def _local_fit(x0: np.ndarray, nls) -> tuple[float, np.ndarray]:
-    res = minimize(objective, x0, args=(nls,), jac=True, method="BFGS", options={"gtol": 1e-11, "maxiter": 2000})
+    res = minimize(objective, x0, args=(nls,), jac=True, method="BFGS", options={"gtol": 1e-8, "maxiter": 2000})
     x = np.sort(res.x)[::-1]
     return float(objective(x, nls)[0]), x
 

@@ -17,7 +17,7 @@ fits whose exponents must agree with published tables to 1e-5 and whose gradient
     I_1 = ½ √(π/α) erfcx(ζ / (2√α))                        (exact, SciPy's scaled erfc)
     I_(ν+1) / I_ν = ν / (ζ + 2α I_(ν+2)/I_(ν+1))             (integration by parts)
 
-The integration-by-parts relation is 0 = ν I_ν − 2α I_(ν+2) − ζ I_(ν+1). For α ≥ 0.6 ζ² it is
+The integration-by-parts relation is 0 = ν I_ν − 2α I_(ν+2) − ζ I_(ν+1). For α ≥ 0.3 ζ² it is
 used upwards from I_1 and I_2 = (1 − ζ I_1)/(2α) (the subtracted term is the smaller one there).
 For smaller α the ratio relation, a continued fraction with positive terms only, is evaluated
 downwards from the tail approximation r ≈ (−ζ + √(ζ² + 8αν)) / (4α) (its fixed point), so there
@@ -32,7 +32,7 @@ import math
 import numpy as np
 from scipy.special import erfcx, gammaln
 
-_SWITCH = 0.6  # α/ζ² below which the continued fraction is used, above it the upward recurrence
+_SWITCH = 0.3  # α/ζ² below which the continued fraction is used, above it the upward recurrence
 
 
 def _integrals_one(nu_max: int, a: float, zeta: float) -> list[float]:
@@ -94,7 +94,9 @@ def gaussian_overlap(l: int, alpha: np.ndarray) -> np.ndarray:
     return (2.0 * np.sqrt(np.outer(a, a)) / np.add.outer(a, a)) ** (l + 1.5)
 
 
-def sto_gaussian_overlap(n: int, l: int, alpha: np.ndarray, zeta: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
+def sto_gaussian_overlap(
+    n: int, l: int, alpha: np.ndarray, zeta: float = 1.0, integrals: np.ndarray | None = None
+) -> tuple[np.ndarray, np.ndarray]:
     """Overlaps s_k = ⟨φ_nl | g_k⟩ of a normalised STO with normalised Gaussians, and ds_k/d ln α_k.
 
     Parameters
@@ -105,10 +107,13 @@ def sto_gaussian_overlap(n: int, l: int, alpha: np.ndarray, zeta: float = 1.0) -
         Exponents α_k (bohr⁻²) of the Gaussians N_k r^l e^(−α_k r²) Y_lm.
     zeta : float
         Slater exponent in bohr⁻¹.
+    integrals : array, optional
+        ``radial_integrals(m, alpha, zeta)`` with m ≥ n + l + 4, to share one evaluation
+        between several subshells.
     """
     a = np.asarray(alpha, dtype=float)
     nu = n + l + 2
-    ints = radial_integrals(nu + 2, a, zeta)
+    ints = radial_integrals(nu + 2, a, zeta) if integrals is None else integrals
     pref = sto_norm(n, zeta) * np.exp(gaussian_log_norm(l, a))
     s = pref * ints[nu - 1]
     # d ln N_k / d ln α = (l + 3/2)/2 ; dI_ν/dα = −I_(ν+2)
