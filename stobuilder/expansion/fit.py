@@ -22,7 +22,7 @@ from scipy.optimize import minimize
 
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
-from .integrals import gaussian_overlap, radial_integrals, sto_gaussian_overlap
+from .integrals import gaussian_overlap, radial_integrals, radial_integrals_mp, sto_gaussian_overlap
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2",)
@@ -46,6 +46,8 @@ class Fit:
         that the contraction has norm exactly 1 (the least-squares optimum itself has norm
         √(1 − ε)); the sign makes the contraction overlap the STO positively.
     error : label → ε of the least-squares optimum (dimensionless, ∫ of the squared residual).
+    constrained : True when no interior minimum exists and the fit is the best one with every
+        neighbouring exponent ratio ≥ MIN_RATIO (only [6s, 6p] with N = 3 in the library).
     """
 
     subshells: tuple[str, ...]
@@ -54,6 +56,7 @@ class Fit:
     exponents: tuple[float, ...]
     coefficients: dict[str, tuple[float, ...]]
     error: dict[str, float]
+    constrained: bool = False
 
     @property
     def total_error(self) -> float:
@@ -136,12 +139,14 @@ def objective(log_alpha: np.ndarray, nls: tuple[tuple[int, int], ...]) -> tuple[
 
 
 def _coefficients(alpha: np.ndarray, n: int, l: int) -> tuple[np.ndarray, float]:
+    """Least-squares coefficients (double precision) and ε (extended precision: 1 − sᵀc cancels)."""
     g = gaussian_overlap(l, alpha)
     s, _ = sto_gaussian_overlap(n, l, alpha)
     c = _solve(g, s)
     if c is None:
         raise InputError(f"fit of {subshell_label(n, l)} with {len(alpha)} Gaussians is numerically singular")
-    return c, 1.0 - float(s @ c)
+    eps, _ = _gradient_mp(np.log(alpha), ((n, l),))
+    return c, eps
 
 
 def _local_fit(x0: np.ndarray, nls) -> tuple[float, np.ndarray]:
@@ -150,29 +155,77 @@ def _local_fit(x0: np.ndarray, nls) -> tuple[float, np.ndarray]:
     return float(objective(x, nls)[0]), x
 
 
+_MP_DIGITS = 34  # precision of the polishing gradient (ε ~ 1e-9 must be resolved to ~1e-20)
+
+
+def _gradient_mp(log_alpha: np.ndarray, nls) -> tuple[float, np.ndarray]:
+    """Σ ε and its ln α gradient evaluated in mpmath precision (same formulas as ``objective``)."""
+    import mpmath as mp
+
+    with mp.workdps(_MP_DIGITS):
+        alpha = [mp.exp(mp.mpf(float(x))) for x in log_alpha]
+        size = len(alpha)
+        nu_max = max(n + l for n, l in nls) + 4
+        ints = [radial_integrals_mp(nu_max, a) for a in alpha]
+        total = mp.mpf(0)
+        grad = [mp.mpf(0)] * size
+        for n, l in nls:
+            p = l + mp.mpf(3) / 2
+            nsto = mp.mpf(2) ** (n + mp.mpf(1) / 2) / mp.sqrt(mp.factorial(2 * n))
+            pref = [nsto * mp.sqrt(2 * (2 * a) ** p / mp.gamma(p)) for a in alpha]
+            nu = n + l + 2
+            s = [pref[k] * ints[k][nu - 1] for k in range(size)]
+            ds = [p / 2 * s[k] - alpha[k] * pref[k] * ints[k][nu + 1] for k in range(size)]
+            g = mp.matrix(size, size)
+            for i in range(size):
+                for j in range(size):
+                    g[i, j] = (2 * mp.sqrt(alpha[i] * alpha[j]) / (alpha[i] + alpha[j])) ** p
+            c = mp.lu_solve(g, mp.matrix(s))
+            total += 1 - mp.fsum(s[k] * c[k] for k in range(size))
+            for k in range(size):
+                dgc = mp.fsum(g[k, j] * p * (mp.mpf(1) / 2 - alpha[k] / (alpha[k] + alpha[j])) * c[j] for j in range(size))
+                grad[k] -= 2 * c[k] * ds[k] - 2 * c[k] * dgc
+        return float(total), np.array([float(v) for v in grad])
+
+
+def _hessian(x: np.ndarray, nls, h: float = 1e-4) -> np.ndarray:
+    """Central finite differences of the extended-precision gradient."""
+    hess = np.empty((x.size, x.size))
+    for k in range(x.size):
+        e = np.zeros_like(x)
+        e[k] = h
+        hess[k] = (_gradient_mp(x + e, nls)[1] - _gradient_mp(x - e, nls)[1]) / (2 * h)
+    return 0.5 * (hess + hess.T)
+
+
 def _polish(x: np.ndarray, nls) -> np.ndarray:
-    """Newton steps with a finite-difference Hessian of the analytic gradient."""
-    h = 1e-5
+    """Safeguarded Newton steps on ln α with gradient and Hessian in extended precision.
+
+    In double precision ε = 1 − sᵀG⁻¹s and its gradient carry absolute errors ~1e-15, which in
+    the flattest direction of a 6-Gaussian fit moves the exponents by ~1e-5 (we found this
+    against Stewart's 1970 STO-6G 3d exponents); the mpmath evaluation removes that floor.
+    A step is taken only while it lowers the gradient norm; steps are capped at 0.1 in ln α.
+    """
+    _, grad = _gradient_mp(x, nls)
+    norm = float(np.linalg.norm(grad))
     for _ in range(6):
-        f0, g0 = objective(x, nls)
-        hess = np.empty((x.size, x.size))
-        for k in range(x.size):
-            e = np.zeros_like(x)
-            e[k] = h
-            hess[k] = (objective(x + e, nls)[1] - objective(x - e, nls)[1]) / (2 * h)
-        hess = 0.5 * (hess + hess.T)
-        try:
-            w = np.linalg.eigvalsh(hess)
-            if w.min() <= 0:
-                break
-            step = -np.linalg.solve(hess, g0)
-        except np.linalg.LinAlgError:
+        if norm == 0.0:
             break
+        hess = _hessian(x, nls)
+        w, v = np.linalg.eigh(hess)
+        if w.min() <= 0:
+            break
+        step = -(v @ ((v.T @ grad) / w))
+        biggest = float(np.max(np.abs(step)))
+        if biggest > 0.1:
+            step *= 0.1 / biggest
         trial = x + step
-        if objective(trial, nls)[0] > f0 + 1e-15:
+        _, trial_grad = _gradient_mp(trial, nls)
+        trial_norm = float(np.linalg.norm(trial_grad))
+        if not trial_norm < norm:
             break
-        x = trial
-        if np.max(np.abs(step)) < 1e-11:
+        x, grad, norm = trial, trial_grad, trial_norm
+        if biggest < 1e-10:
             break
     return np.sort(x)[::-1]
 
@@ -193,22 +246,60 @@ def _starts(n_gauss: int, nls, previous: np.ndarray | None) -> list[np.ndarray]:
     # the STO's extent ~ n/ζ sets the centre: α ~ 1/⟨r⟩²
     n_mean = sum(n for n, _ in nls) / len(nls)
     base = -2.0 * math.log(n_mean) - 1.0
-    if previous is None or n_gauss <= 2:
-        for log_ratio in (0.7, 1.2, 1.8):
-            for shift in (-1.0, 0.0, 1.0):
-                starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
+    for log_ratio in (0.7, 1.2, 1.8):
+        for shift in (-1.0, 0.0, 1.0):
+            starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
     return starts
 
 
+# Smallest ratio of neighbouring exponents accepted (common practice, no source): closer
+# exponents make G nearly singular and describe no more than one r^(l+2) Gaussian.
+MIN_RATIO = 1.1
+
+
+def _constrained_fit(x0: np.ndarray, nls) -> tuple[float, np.ndarray]:
+    """Minimise ε over ln α with every neighbouring ratio ≥ MIN_RATIO (L-BFGS-B on the gaps)."""
+    x0 = np.sort(x0)[::-1]
+    gaps = np.maximum(-np.diff(x0), math.log(MIN_RATIO))
+    z0 = np.concatenate([[x0[0]], gaps])
+
+    def to_x(z):
+        return z[0] - np.concatenate([[0.0], np.cumsum(z[1:])])
+
+    def fun(z):
+        f, g = objective(to_x(z), nls)
+        gz = np.empty_like(z)
+        gz[0] = g.sum()
+        gz[1:] = -np.cumsum(g[::-1])[::-1][1:]
+        return f, gz
+
+    bounds = [(None, None)] + [(math.log(MIN_RATIO), None)] * (len(z0) - 1)
+    res = minimize(fun, z0, jac=True, method="L-BFGS-B", bounds=bounds, options={"ftol": 1e-16, "gtol": 1e-12, "maxiter": 5000})
+    x = to_x(res.x)
+    return float(objective(x, nls)[0]), x
+
+
 @lru_cache(maxsize=None)
-def _fit_log_alpha(nls: tuple[tuple[int, int], ...], n_gauss: int) -> tuple[float, ...]:
-    previous = None if n_gauss == 1 else np.array(_fit_log_alpha(nls, n_gauss - 1))
+def _fit_log_alpha(nls: tuple[tuple[int, int], ...], n_gauss: int) -> tuple[tuple[float, ...], bool]:
+    """Best ln α (descending) over the deterministic starts, and whether MIN_RATIO was binding."""
+    previous = None if n_gauss == 1 else np.array(_fit_log_alpha(nls, n_gauss - 1)[0])
+    starts = _starts(n_gauss, nls, previous)
     best_f, best_x = math.inf, None
-    for x0 in _starts(n_gauss, nls, previous):
+    for x0 in starts:
         f, x = _local_fit(x0, nls)
+        # Two exponents running together mimic an r^(l+2) Gaussian: ε can keep falling towards
+        # that limit (seen for 6s6p with N = 3); such solutions are discarded here.
+        if n_gauss > 1 and np.min(-np.diff(x)) < math.log(MIN_RATIO):
+            continue
         if f < best_f - 1e-15:
             best_f, best_x = f, x
-    return tuple(_polish(best_x, nls))
+    if best_x is not None:
+        return tuple(best_x), False
+    for x0 in starts:
+        f, x = _constrained_fit(x0, nls)
+        if f < best_f - 1e-15:
+            best_f, best_x = f, x
+    return tuple(best_x), True
 
 
 def fit_sto(subshells: str | Iterable[str], gaussians: int, norm: str = "l2") -> Fit:
@@ -229,15 +320,16 @@ def fit_sto(subshells: str | Iterable[str], gaussians: int, norm: str = "l2") ->
     Fit with exponents in bohr⁻² at ζ = 1 (use ``Fit.scaled(zeta)``).
 
     Deterministic: multi-start from even-tempered sets and continuation from the N − 1 fit,
-    BFGS on ln α followed by Newton polishing.
+    BFGS on ln α (double precision), then Newton polishing in extended precision.
     """
     _check_inputs(gaussians, norm)
     labels = normalise_subshells(subshells)
     nls = tuple(parse_subshell_label(x) for x in labels)
-    alpha = np.exp(np.array(_fit_log_alpha(nls, int(gaussians))))
+    log_alpha, constrained = _fit_log_alpha(nls, int(gaussians))
+    alpha = np.exp(np.array(log_alpha) if constrained else _polish(np.array(log_alpha), nls))
     coefficients, error = {}, {}
     for label, (n, l) in zip(labels, nls):
         c, eps = _coefficients(alpha, n, l)
         coefficients[label] = tuple(float(v) for v in c / math.sqrt(1.0 - eps))
         error[label] = float(eps)
-    return Fit(labels, int(gaussians), norm, tuple(float(a) for a in alpha), coefficients, error)
+    return Fit(labels, int(gaussians), norm, tuple(float(a) for a in alpha), coefficients, error, constrained)

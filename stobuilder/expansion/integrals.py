@@ -58,6 +58,34 @@ def _integrals_one(nu_max: int, a: float, zeta: float) -> list[float]:
     return out
 
 
+def radial_integrals_mp(nu_max: int, a, zeta=1):
+    """I_1 … I_nu_max at one α in mpmath precision (the current mp.dps), same recurrences.
+
+    Used to polish fits: ε and its gradient need more than double precision when ε ≲ 1e-6.
+    """
+    import mpmath as mp
+
+    a, zeta = mp.mpf(a), mp.mpf(zeta)
+    x = zeta / (2 * mp.sqrt(a))
+    i1 = mp.sqrt(mp.pi / a) / 2 * mp.erfc(x) * mp.exp(x * x)
+    out = [i1]
+    if a >= _SWITCH * zeta * zeta:
+        out.append((1 - zeta * i1) / (2 * a))
+        for nu in range(1, nu_max - 1):
+            out.append((nu * out[nu - 1] - zeta * out[nu]) / (2 * a))
+        return out[:nu_max]
+    top = nu_max + int((40 + 250.0 * math.sqrt(float(a)) / float(zeta)) * mp.mp.dps / 10.0)
+    ratio = (-zeta + mp.sqrt(zeta * zeta + 8 * a * top)) / (4 * a)
+    ratios = [mp.mpf(0)] * nu_max
+    for nu in range(top - 1, 0, -1):
+        ratio = nu / (zeta + 2 * a * ratio)
+        if nu < nu_max:
+            ratios[nu] = ratio
+    for nu in range(1, nu_max):
+        out.append(out[-1] * ratios[nu])
+    return out
+
+
 def radial_integrals(nu_max: int, alpha: np.ndarray, zeta: float = 1.0) -> np.ndarray:
     """I_ν(α, ζ) for ν = 1 … nu_max at every α.
 

@@ -15,7 +15,7 @@ from importlib import resources
 from typing import Iterable
 
 from .. import __version__
-from .fit import NORMS, Fit, _check_inputs, fit_sto, normalise_subshells
+from .fit import MIN_RATIO, NORMS, Fit, _check_inputs, fit_sto, normalise_subshells
 
 LIBRARY_MAX_GAUSSIANS = 6
 REGENERATE_COMMAND = "python -m stobuilder.expansion.regenerate"
@@ -45,7 +45,8 @@ def family_key(labels: Iterable[str]) -> str:
 
 
 def fit_to_entry(fit: Fit) -> dict:
-    return {
+    extra = {"constrained_min_ratio": MIN_RATIO} if fit.constrained else {}
+    return {**extra,
         "exponents": list(fit.exponents),
         "coefficients": {label: list(fit.coefficients[label]) for label in fit.subshells},
         "error": {label: fit.error[label] for label in fit.subshells},
@@ -60,6 +61,7 @@ def entry_to_fit(labels: tuple[str, ...], gaussians: int, norm: str, entry: dict
         exponents=tuple(float(a) for a in entry["exponents"]),
         coefficients={label: tuple(float(c) for c in entry["coefficients"][label]) for label in labels},
         error={label: float(entry["error"][label]) for label in labels},
+        constrained="constrained_min_ratio" in entry,
     )
 
 
