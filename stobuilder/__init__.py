@@ -1,3 +1,39 @@
-"""stobuilder: Slater-type-orbital minimal basis sets, expanded in Gaussians, for open codes."""
+"""stobuilder: Slater-type-orbital minimal basis sets, expanded in Gaussians, for open codes.
+
+The public API; every name here is a plain function or a frozen dataclass.
+"""
 
 __version__ = "0.1.0"
+
+from .basis import Basis, ElementBasis, Shell  # noqa: E402
+from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
+from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
+from .errors import InputError  # noqa: E402
+from .expansion import Fit, fit_sto  # noqa: E402
+from .formats import formats, write_basis  # noqa: E402
+from .pipeline import build_structures  # noqa: E402
+from .screening import ShellExponent, rules  # noqa: E402
+from .structures import Structure, read_structures  # noqa: E402
+
+__all__ = [
+    "Basis",
+    "Configuration",
+    "ElementBasis",
+    "Fit",
+    "InputError",
+    "Shell",
+    "ShellExponent",
+    "Structure",
+    "build_basis",
+    "build_structures",
+    "element_basis",
+    "exponents",
+    "fit_sto",
+    "formats",
+    "ground_state",
+    "parse_configuration",
+    "read_structures",
+    "rules",
+    "write_basis",
+    "zeff",
+]

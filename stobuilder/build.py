@@ -1,0 +1,148 @@
+"""From elements to a Basis: configuration → rule → shell families → scaled Gaussian expansions.
+
+Shell families: all basis subshells with the same principal quantum number n share one set of
+Gaussian exponents and are fitted jointly at ζ = 1 (1s; 2s2p; 3s3p, or 3s3p3d once 3d is
+occupied; 4s4p(4d)(4f); ...). Each subshell's exponents are the family's ζ = 1 exponents times its
+own ζ², so a transition metal's 3d uses the d part of the joint 3s3p3d expansion with its own ζ:
+the construction of the published STO-3G (Hehre, Stewart & Pople 1969; Pietro & Hehre, J. Comput.
+Chem. 4, 241, 1983).
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Iterable, Mapping
+from itertools import groupby
+
+from .basis import Basis, ElementBasis, Shell
+from .elements import Configuration, looks_like_configuration, normalise_symbol, resolve
+from .errors import InputError
+from .expansion import lookup
+from .screening import ShellExponent, shell_exponents
+
+ZetaOverrides = Mapping[str, float]
+
+
+def apply_zeta_overrides(
+    stos: tuple[ShellExponent, ...], overrides: ZetaOverrides | None, where: str
+) -> tuple[ShellExponent, ...]:
+    """Replace the ζ of the subshells named in ``overrides`` (label → ζ in bohr⁻¹)."""
+    if not overrides:
+        return stos
+    labels = {s.label for s in stos}
+    out = []
+    for label, value in overrides.items():
+        if label not in labels:
+            raise InputError(f"{where}: no basis subshell {label!r} to override (it has {', '.join(sorted(labels))})")
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
+            raise InputError(f"{where}: zeta for {label} must be a positive number, got {value!r}")
+    for s in stos:
+        if s.label in overrides:
+            zeta = float(overrides[s.label])
+            out.append(ShellExponent(s.label, s.n, s.l, zeta * s.n_eff, s.n_eff, zeta))
+        else:
+            out.append(s)
+    return tuple(out)
+
+
+def sto_exponents(
+    element: str,
+    rule: str = "slater",
+    charge: int = 0,
+    configuration: str | Configuration | None = None,
+    zeta: ZetaOverrides | None = None,
+) -> tuple[Configuration, tuple[ShellExponent, ...]]:
+    """The configuration and the STO exponents of every basis subshell of one element."""
+    conf = resolve(element, charge, configuration)
+    stos = apply_zeta_overrides(shell_exponents(conf, rule), zeta, conf.symbol)
+    return conf, stos
+
+
+def exponents(element, rule="slater", charge=0, configuration=None) -> dict[str, float]:
+    """ζ (bohr⁻¹) of every basis subshell of ``element``, e.g. {"1s": 6.7, "2s": 1.95, "2p": 1.95} for N."""
+    return {s.label: s.zeta for s in sto_exponents(element, rule, charge, configuration)[1]}
+
+
+def zeff(element, rule="slater", charge=0, configuration=None) -> dict[str, float]:
+    """Effective nuclear charge Z − S of every basis subshell of ``element``."""
+    return {s.label: s.zeff for s in sto_exponents(element, rule, charge, configuration)[1]}
+
+
+def shell_families(stos: Iterable[ShellExponent]) -> list[tuple[ShellExponent, ...]]:
+    """Group STOs by principal quantum number: the subshells that share Gaussian exponents."""
+    ordered = sorted(stos, key=lambda s: (s.n, s.l))
+    return [tuple(group) for _, group in groupby(ordered, key=lambda s: s.n)]
+
+
+def expand(stos: tuple[ShellExponent, ...], gaussians: int, norm: str = "l2") -> tuple[Shell, ...]:
+    """Contracted Gaussian shells for the STOs: joint ζ = 1 fits per family, scaled by ζ²."""
+    shells = []
+    for family in shell_families(stos):
+        fit = lookup([s.label for s in family], gaussians, norm)
+        for s in family:
+            scale = s.zeta**2
+            shells.append(
+                Shell(
+                    l=s.l,
+                    exponents=tuple(a * scale for a in fit.exponents),
+                    coefficients=tuple(fit.coefficients[s.label]),
+                    label=s.label,
+                    zeta=s.zeta,
+                )
+            )
+    return tuple(shells)
+
+
+def element_basis(
+    element: str | Configuration,
+    rule: str = "slater",
+    gaussians: int = 3,
+    charge: int = 0,
+    configuration: str | Configuration | None = None,
+    zeta: ZetaOverrides | None = None,
+    norm: str = "l2",
+) -> ElementBasis:
+    """The STO-NG basis of one element (or ion, or explicit configuration)."""
+    if isinstance(element, Configuration):
+        configuration, element = element, element.symbol
+    conf, stos = sto_exponents(element, rule, charge, configuration, zeta)
+    return ElementBasis(conf.symbol, expand(stos, gaussians, norm), conf.label, stos)
+
+
+def build_basis(
+    elements: Iterable[str | Configuration],
+    rule: str = "slater",
+    gaussians: int = 3,
+    charge: int | Mapping[str, int] | None = None,
+    zeta: Mapping[str, ZetaOverrides] | None = None,
+    norm: str = "l2",
+) -> Basis:
+    """Build the STO-NG basis for a set of elements.
+
+    Parameters
+    ----------
+    elements : symbols ("Fe"), configuration strings ("Fe: [Ar] 3d7 4s1", "[Ar] 3d7 4s1") or
+        Configuration objects; repeats are ignored.
+    rule : screening rule name (see ``stobuilder.screening.rules()``).
+    gaussians : N, the number of primitive Gaussians per STO.
+    charge : None (neutral atoms), an int applied to every element, or {symbol: charge}.
+    zeta : {symbol: {label: ζ}} overriding the rule's ζ (bohr⁻¹) for the subshells named.
+    norm : fitting norm of the expansion ("l2", Hehre, Stewart & Pople 1969).
+    """
+    built: dict[str, ElementBasis] = {}
+    zeta = dict(zeta or {})
+    for item in elements:
+        if isinstance(item, Configuration):
+            conf = item
+        else:
+            conf = resolve(item) if looks_like_configuration(item) else None
+        symbol = conf.symbol if conf is not None else normalise_symbol(item)
+        if symbol in built:
+            continue
+        q = charge.get(symbol, 0) if isinstance(charge, Mapping) else int(charge or 0)
+        built[symbol] = element_basis(symbol, rule, gaussians, q, conf, zeta.pop(symbol, None), norm)
+    if zeta:
+        raise InputError(f"zeta overrides name elements not in the basis: {', '.join(sorted(zeta))}")
+    if not built:
+        raise InputError("no elements to build a basis for")
+    return Basis(tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm)

@@ -1,0 +1,237 @@
+"""SCF checks of a basis with PySCF: the structure itself, or its free atoms.
+
+RHF for closed shells, ROHF for open shells, UHF on request; PySCF's SCF drivers (Sun et al.,
+J. Chem. Phys. 153, 024109, 2020). Where the rule is ``molecular`` and N is 3 or 6, the same
+calculation is repeated with PySCF's stored STO-3G/STO-6G and the difference reported.
+A calculation that does not converge is reported as not converged, with its last energy.
+"""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+
+from .basis import Basis
+from .elements import ground_state, parse_configuration
+from .errors import InputError
+from .structures import Structure
+
+MAX_BASIS_FUNCTIONS = 400  # beyond this a structure is checked on its free atoms
+STORED_SETS = {3: "sto-3g", 6: "sto-6g"}
+METHODS = ("auto", "rhf", "rohf", "uhf")
+
+
+@dataclass(frozen=True)
+class ScfResult:
+    """One SCF calculation: energy in hartree, wall time in seconds."""
+
+    label: str
+    method: str
+    energy_hartree: float
+    converged: bool
+    iterations: int
+    wall_seconds: float
+    reference_basis: str | None = None
+    reference_energy_hartree: float | None = None
+    reference_converged: bool | None = None
+
+    @property
+    def delta_hartree(self) -> float | None:
+        if self.reference_energy_hartree is None:
+            return None
+        return self.energy_hartree - self.reference_energy_hartree
+
+    def to_json(self) -> dict:
+        return {
+            "label": self.label,
+            "method": self.method,
+            "energy_hartree": self.energy_hartree,
+            "converged": self.converged,
+            "iterations": self.iterations,
+            "wall_seconds": round(self.wall_seconds, 4),
+            "reference_basis": self.reference_basis,
+            "reference_energy_hartree": self.reference_energy_hartree,
+            "reference_converged": self.reference_converged,
+            "delta_hartree": self.delta_hartree,
+        }
+
+
+@dataclass(frozen=True)
+class Check:
+    """The check of one structure frame: either the structure itself or its free atoms."""
+
+    target: str  # "structure" or "free atoms"
+    reason: str  # why free atoms were checked instead, "" otherwise
+    results: tuple[ScfResult, ...] = field(default=())
+
+    @property
+    def converged(self) -> bool:
+        return all(r.converged for r in self.results)
+
+    def to_json(self) -> dict:
+        if self.target == "structure":
+            (r,) = self.results
+            out = {"target": self.target, **r.to_json()}
+            out.pop("label")
+            return out
+        return {
+            "target": self.target,
+            "reason": self.reason,
+            "method": "/".join(sorted({r.method for r in self.results})),
+            "energy_hartree": None,
+            "converged": self.converged,
+            "iterations": max(r.iterations for r in self.results),
+            "reference_energy_hartree": None,
+            "atoms": [r.to_json() for r in self.results],
+        }
+
+
+def pick_method(method: str, spin: int) -> str:
+    if method not in METHODS:
+        raise InputError(f"unknown SCF method {method!r}; choose one of {', '.join(METHODS)}")
+    if method == "auto":
+        return "RHF" if spin == 0 else "ROHF"
+    if method == "rhf" and spin != 0:
+        raise InputError(f"RHF needs a closed shell; spin is {spin}")
+    return method.upper()
+
+
+def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom"):
+    """A built PySCF Mole (spherical functions) for ``atoms`` = [(symbol, (x, y, z)), ...]."""
+    from pyscf import gto
+
+    mol = gto.Mole()
+    mol.atom = [[s, tuple(p)] for s, p in atoms]
+    mol.unit = unit
+    mol.basis = basis
+    mol.charge = charge
+    mol.spin = spin
+    mol.cart = False
+    mol.verbose = 0
+    mol.build()
+    return mol
+
+
+def _solve(mol, method: str, max_cycle: int, dm0=None):
+    """One SCF run: (energy, converged, iterations, density). A failed first run is retried with
+    PySCF's second-order solver from where it stopped."""
+    from pyscf import scf
+
+    driver = {"RHF": scf.RHF, "ROHF": scf.ROHF, "UHF": scf.UHF}[method]
+    mf = driver(mol)
+    mf.max_cycle = max_cycle
+    mf.verbose = 0
+    energy = mf.kernel(dm0)
+    iterations = int(getattr(mf, "cycles", 0))
+    if not mf.converged:
+        mf2 = driver(mol).newton()
+        mf2.verbose = 0
+        mf2.max_cycle = max_cycle
+        energy2 = mf2.kernel(mf.make_rdm1())
+        iterations += int(getattr(mf2, "cycles", 0))
+        if mf2.converged:
+            mf, energy = mf2, energy2
+    return float(energy), bool(mf.converged), iterations, mf.make_rdm1()
+
+
+def run_scf(mol, method: str, label: str = "", max_cycle: int = 100) -> ScfResult:
+    """Run one SCF calculation (method "RHF", "ROHF" or "UHF") from PySCF's default guess.
+    ``converged`` reports what PySCF reports."""
+    start = time.perf_counter()
+    energy, converged, iterations, _ = _solve(mol, method, max_cycle)
+    return ScfResult(label, method, energy, converged, iterations, time.perf_counter() - start)
+
+
+def stored_reference(basis: Basis, symbols) -> str | None:
+    """PySCF's stored STO-nG name if the rule is ``molecular``, N is 3 or 6 and it covers every symbol."""
+    from pyscf.gto import basis as pyscf_basis
+
+    name = STORED_SETS.get(basis.gaussians)
+    if basis.rule != "molecular" or name is None or basis.norm != "l2":
+        return None
+    for symbol in set(symbols):
+        try:
+            if not pyscf_basis.load(name, symbol):
+                return None
+        except Exception:
+            return None
+    return name
+
+
+STATE_TOLERANCE = 1e-4  # hartree: beyond this two nearly equal bases have landed in different states
+
+
+def compare_with_stored(mol, atoms, basis: Basis, symbols, charge, spin, method, label, max_cycle=100) -> ScfResult:
+    """SCF with our basis and, where ``stored_reference`` names one, with PySCF's stored STO-nG.
+
+    Open-shell atoms have many SCF solutions; where the two energies differ by more than
+    STATE_TOLERANCE, each calculation is repeated from the other's converged density (projected
+    onto its basis) and the lower converged energy of each is kept, so that both describe the
+    same state and ΔE measures the basis, not the state.
+    """
+    from pyscf.scf.addons import project_dm_nr2nr
+
+    start = time.perf_counter()
+    e1, ok1, it1, dm1 = _solve(mol, method, max_cycle)
+    ref_name = stored_reference(basis, symbols)
+    if ref_name is None:
+        return ScfResult(label, method, e1, ok1, it1, time.perf_counter() - start)
+    mol_ref = make_mole(atoms, ref_name, charge, spin)
+    e2, ok2, _, dm2 = _solve(mol_ref, method, max_cycle)
+    if abs(e1 - e2) > STATE_TOLERANCE:
+        e1b, ok1b, it1b, _ = _solve(mol, method, max_cycle, project_dm_nr2nr(mol_ref, dm2, mol))
+        e2b, ok2b, _, _ = _solve(mol_ref, method, max_cycle, project_dm_nr2nr(mol, dm1, mol_ref))
+        if ok1b and (not ok1 or e1b < e1):
+            e1, ok1, it1 = e1b, ok1b, it1b
+        if ok2b and (not ok2 or e2b < e2):
+            e2, ok2 = e2b, ok2b
+    return ScfResult(label, method, e1, ok1, it1, time.perf_counter() - start, ref_name, e2, ok2)
+
+
+def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: bool = True) -> ScfResult:
+    """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for,
+    high-spin (Hund) multiplicity."""
+    element = basis[symbol]
+    conf = parse_configuration(element.configuration, symbol) if element.configuration else ground_state(symbol)
+    spin = conf.unpaired
+    m = pick_method(method, spin)
+    atoms = [(symbol, (0.0, 0.0, 0.0))]
+    mol = make_mole(atoms, {symbol: element.to_pyscf()}, conf.charge, spin)
+    label = f"{symbol} {conf.label}"
+    if not reference:
+        return run_scf(mol, m, label)
+    return compare_with_stored(mol, atoms, basis, [symbol], conf.charge, spin, m, label)
+
+
+def check_structure(
+    structure: Structure,
+    basis: Basis,
+    method: str = "auto",
+    max_basis_functions: int = MAX_BASIS_FUNCTIONS,
+    reference: bool = True,
+) -> Check:
+    """Check ``basis`` on ``structure``: SCF of the structure itself, or of its free atoms when the
+    structure is periodic or has more than ``max_basis_functions`` basis functions."""
+    pyscf_basis = {s: basis[s].to_pyscf() for s in structure.elements}
+    atoms = list(zip(structure.symbols, structure.positions))
+    reason = ""
+    if structure.periodic:
+        reason = "periodic structure: checked on the free atoms of each element"
+    else:
+        m = pick_method(method, structure.spin)
+        mol = make_mole(atoms, pyscf_basis, structure.charge, structure.spin)
+        if mol.nao > max_basis_functions:
+            reason = (
+                f"{mol.nao} basis functions exceed the quick-check limit of {max_basis_functions}: "
+                "checked on the free atoms of each element"
+            )
+        else:
+            if reference:
+                result = compare_with_stored(
+                    mol, atoms, basis, structure.symbols, structure.charge, structure.spin, m, structure.formula
+                )
+            else:
+                result = run_scf(mol, m, structure.formula)
+            return Check("structure", "", (result,))
+    results = tuple(check_free_atom(basis, s, method, reference) for s in structure.elements)
+    return Check("free atoms", reason, results)

@@ -1,0 +1,189 @@
+"""The command line: argparse subcommands over the Python API, nothing else.
+
+A bad input prints one line ``stobuilder: error: ...`` to stderr and exits with status 2.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+from . import __version__
+from .errors import InputError
+
+EXIT_BAD_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors (no usage dump) and exit status 2."""
+
+    def error(self, message):
+        raise InputError(f"{self.prog}: {message}")
+
+
+def _whole_number(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    return value
+
+
+def _add_rule(p, default="slater"):
+    from .screening import rules
+
+    p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
+
+
+def _parser() -> argparse.ArgumentParser:
+    from .checks import METHODS
+    from .formats import formats
+
+    parser = _Parser(prog="stobuilder", description="Slater-type-orbital minimal bases expanded in Gaussians.")
+    parser.add_argument("--version", action="version", version=f"stobuilder {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, parser_class=_Parser)
+
+    b = sub.add_parser("build", help="basis files (and SCF checks) for structure files")
+    b.add_argument("structures", nargs="+", metavar="STRUCTURE", help="structure files ASE reads")
+    _add_rule(b)
+    b.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
+    b.add_argument(
+        "--code", action="append", metavar="CODE", help=f"output format, repeatable: {', '.join(formats())} (default nwchem)"
+    )
+    b.add_argument("--out", default="basis", metavar="DIR", help="output folder (default ./basis)")
+    b.add_argument("--force", action="store_true", help="overwrite existing output files")
+    b.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis")
+    b.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
+    b.add_argument("--charge", type=int, help="total charge (overrides the file)")
+    b.add_argument("--spin", type=int, help="2S, the number of unpaired electrons (overrides the file)")
+    b.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
+
+    z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
+    z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
+    _add_rule(z)
+    z.add_argument("--charge", type=int, default=0, help="ion charge (default 0)")
+    z.add_argument("--json", action="store_true", help="print JSON")
+    return parser
+
+
+# ---------------------------------------------------------------------------- build
+
+
+def _cmd_build(args) -> int:
+    from .pipeline import build_structures
+
+    reports = build_structures(
+        args.structures,
+        rule=args.rule,
+        gaussians=args.gaussians,
+        codes=args.code or ["nwchem"],
+        out_dir=args.out,
+        check=args.check,
+        force=args.force,
+        charge=args.charge,
+        spin=args.spin,
+        method=args.method,
+        sp_shells=args.sp_shells,
+    )
+    if args.json:
+        print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
+    else:
+        for r in reports:
+            print(_build_table(r))
+    return 0
+
+
+def _fmt_energy(e):
+    return "n/a" if e is None else f"{e:.8f}"
+
+
+def _build_table(report) -> str:
+    first = report.frames[0]
+    lines = [
+        f"{report.path}: {first.formula}, charge {first.charge}, spin {first.spin}, "
+        f"{len(first.symbols)} atoms{', periodic' if first.periodic else ''}"
+        + (f", {len(report.frames)} frames" if len(report.frames) > 1 else "")
+    ]
+    lines.append(f"  basis {report.basis.name}")
+    lines.append(f"  {'element':<8}{'configuration':<24}STOs: subshell zeta/bohr^-1")
+    for e in report.basis.elements:
+        stos = "  ".join(f"{s.label} {s.zeta:.4f}" for s in e.stos)
+        lines.append(f"  {e.symbol:<8}{e.configuration:<24}{stos}")
+    for code, path in report.files.items():
+        lines.append(f"  wrote {path} ({code})")
+    for check in report.checks:
+        if check.target != "structure":
+            lines.append(f"  check on free atoms: {check.reason}")
+        for r in check.results:
+            state = "converged" if r.converged else "NOT CONVERGED"
+            lines.append(
+                f"  {r.method:<5}{r.label:<20}E = {_fmt_energy(r.energy_hartree)} hartree  {state}, "
+                f"{r.iterations} iterations, {r.wall_seconds:.2f} s"
+            )
+            if r.reference_basis:
+                lines.append(
+                    f"       PySCF {r.reference_basis:<13}E = {_fmt_energy(r.reference_energy_hartree)} hartree  "
+                    f"dE = {r.delta_hartree:+.2e} hartree"
+                )
+    for note in report.notes:
+        lines.append(f"  note: {note}")
+    return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------- zeta
+
+
+def _cmd_zeta(args) -> int:
+    from .build import sto_exponents
+
+    entries = []
+    for item in args.elements:
+        conf, stos = sto_exponents(item, rule=args.rule, charge=args.charge)
+        entries.append((conf, stos))
+    if args.json:
+        doc = {
+            "rule": args.rule,
+            "elements": [
+                {
+                    "symbol": conf.symbol,
+                    "charge": conf.charge,
+                    "configuration": conf.label,
+                    "shells": [{"label": s.label, "zeff": s.zeff, "n_eff": s.n_eff, "zeta": s.zeta} for s in stos],
+                }
+                for conf, stos in entries
+            ],
+        }
+        print(json.dumps(doc, indent=2))
+        return 0
+    for conf, stos in entries:
+        charge = f", charge {conf.charge:+d}" if conf.charge else ""
+        print(f"{conf.symbol} {conf.label}{charge}  (rule {args.rule})")
+        print(f"  {'subshell':<10}{'Zeff':>10}{'n*':>6}{'zeta/bohr^-1':>14}")
+        for s in stos:
+            print(f"  {s.label:<10}{s.zeff:>10.4f}{s.n_eff:>6.1f}{s.zeta:>14.4f}")
+    return 0
+
+
+COMMANDS = {"build": _cmd_build, "zeta": _cmd_zeta}
+
+
+def main(argv=None) -> int:
+    try:
+        args = _parser().parse_args(argv)
+        return COMMANDS[args.command](args)
+    except InputError as exc:
+        print(f"stobuilder: error: {exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except OSError as exc:
+        where = f"{exc.filename}: " if exc.filename else ""
+        print(f"stobuilder: error: {where}{exc.strerror or exc}", file=sys.stderr)
+        return EXIT_BAD_INPUT
+    except KeyboardInterrupt:
+        print("stobuilder: interrupted", file=sys.stderr)
+        return 130
+
+
+if __name__ == "__main__":
+    sys.exit(main())

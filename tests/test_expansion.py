@@ -1,0 +1,457 @@
+"""STO-nG least-squares expansions (stobuilder.expansion) against published tables and exact results.
+
+References used below:
+  [HSP69]  W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)   (STO-3G, STO-nG)
+  [S70]    R. F. Stewart, J. Chem. Phys. 52, 431 (1970)                              (STO-nG, n ≤ 6)
+  [P80/83] W. J. Pietro et al., J. Am. Chem. Soc. 102, 2225 (1980); J. Comput. Chem. 4, 241 (1983)
+  [GR]     Gradshteyn & Ryzhik, Table of Integrals, 7th ed. (2007), 3.462.1
+  [SO]     A. Szabo, N. S. Ostlund, Modern Quantum Chemistry (1982/1989), ch. 3
+  PySCF's transcriptions pyscf/gto/basis/sto-3g.dat and sto-6g.dat, read with PySCF's own NWChem parser.
+
+Conventions checked against PySCF's files: their coefficients refer to normalised primitives and
+give a contraction of norm 1 (within 1e-7, the rounding of the printed digits), not the
+least-squares optimum (norm √(1 − ε)); our stored coefficients follow the same convention.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import warnings
+
+import numpy as np
+import pytest
+import pyscf
+from pyscf.gto.basis import parse_nwchem
+from scipy.integrate import quad
+from scipy.optimize import brentq
+from scipy.special import gamma, hyperu
+
+from stobuilder.errors import InputError
+from stobuilder.expansion import Fit, fit_sto, library_families, lookup
+from stobuilder.expansion.integrals import gaussian_overlap, radial_integrals, sto_gaussian_overlap
+
+BASIS_DIR = os.path.join(os.path.dirname(pyscf.__file__), "gto", "basis")
+EXP_TOL = 1e-5  # relative, exponents at ζ = 1 vs ours (task specification)
+COEF_TOL = 1e-5  # absolute, coefficients vs ours (task specification: same scale as the exponents)
+EPS_TOL = 1e-7  # relative slack on "our ε ≤ stored ε" (task specification)
+
+
+# ---------------------------------------------------------------- PySCF's tables, block by block
+
+
+def element_symbols(fname):
+    out = []
+    for line in open(os.path.join(BASIS_DIR, fname)):
+        parts = line.split()
+        if len(parts) == 2 and parts[1] in ("S", "SP", "P", "D", "F") and parts[0] not in out:
+            out.append(parts[0])
+    return out
+
+
+def blocks(fname, symbol):
+    """Shells of one element grouped by identical exponents: an SP line gives s and p, a D sharing them joins."""
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        shells = parse_nwchem.load(os.path.join(BASIS_DIR, fname), symbol)
+    out = []
+    for shell in shells:
+        l, ex, co = shell[0], tuple(p[0] for p in shell[1:]), tuple(p[1] for p in shell[1:])
+        for b in out:
+            if b["ex"] == ex and l not in b["c"]:
+                b["c"][l] = co
+                break
+        else:
+            out.append({"ex": ex, "c": {l: co}})
+    return out
+
+
+def label_of(fam, l):
+    return next(x for x in fam if "spdf".index(x[1]) == l)
+
+
+def classify(block, n_gauss):
+    """The library family whose coefficients match best (median deviation: robust to one typo)."""
+    best = None
+    ls = sorted(block["c"])
+    for fam in library_families():
+        if not set(ls) <= {"spdf".index(x[1]) for x in fam}:
+            continue
+        fit = lookup(list(fam), n_gauss)
+        dev = np.median([abs(a - b) for l in ls for a, b in zip(fit.coefficients[label_of(fam, l)], block["c"][l])])
+        if best is None or dev < best[0]:
+            best = (dev, fam, fit)
+    return best[1], best[2]
+
+
+def eps_of(ex, n, l, c=None):
+    """ε of a contraction of normalised primitives; c = None gives the least-squares optimum."""
+    ex = np.asarray(ex)
+    g = gaussian_overlap(l, ex)
+    s, _ = sto_gaussian_overlap(n, l, ex)
+    if c is None:
+        return 1.0 - s @ np.linalg.solve(g, s)
+    c = np.asarray(c)
+    return 1.0 - 2.0 * c @ s + c @ g @ c
+
+
+def analyse(fname, n_gauss):
+    """One record per block: family, ζ², exponent deviations, coefficient deviations, ε stored vs ours."""
+    records = []
+    for symbol in element_symbols(fname):
+        for b in blocks(fname, symbol):
+            fam, fit = classify(b, n_gauss)
+            ratio = np.array(b["ex"]) / np.array(fit.exponents)
+            zeta2 = float(np.median(ratio))
+            exp_dev = ratio / zeta2 - 1.0
+            coef_dev = {
+                label_of(fam, l): np.array(b["c"][l]) - np.array(fit.coefficients[label_of(fam, l)]) for l in b["c"]
+            }
+            scaled = np.array(b["ex"]) / zeta2
+            eps_stored = sum(
+                eps_of(scaled, int(label_of(fam, l)[0]), l, b["c"][l]) for l in b["c"]
+            )
+            eps_ours = sum(fit.error[label_of(fam, l)] for l in b["c"])
+            ls = "".join("spdf"[l] for l in sorted(b["c"]))
+            items = {f"exp{k}" for k in range(n_gauss) if abs(exp_dev[k]) > EXP_TOL}
+            items |= {f"c{lab}{k}" for lab, d in coef_dev.items() for k in range(n_gauss) if abs(d[k]) > COEF_TOL}
+            records.append(
+                dict(symbol=symbol, fam=",".join(fam), ls=ls, block=b, fit=fit, zeta2=zeta2, exp_dev=exp_dev,
+                     coef_dev=coef_dev, eps_stored=eps_stored, eps_ours=eps_ours, items=items)
+            )
+    return records
+
+
+@pytest.fixture(scope="module")
+def sto3g():
+    return analyse("sto-3g.dat", 3)
+
+
+@pytest.fixture(scope="module")
+def sto6g():
+    return analyse("sto-6g.dat", 6)
+
+
+# Every block of sto-3g.dat that deviates from our fits by more than the tolerances, with the
+# defect established by refitting (see the dedicated tests below for the evidence).
+Y_CD = ("Y", "Zr", "Nb", "Mo", "Tc", "Ru", "Rh", "Pd", "Ag", "Cd")
+IN_I = ("In", "Sn", "Sb", "Te", "I")
+KNOWN_STO3G = {
+    # Y: exponents belong to other fits than the coefficients (test_sto3g_yttrium_mixed_fits)
+    ("Y", "3s,3p,3d", "sp"): {"exp0", "exp1"},
+    ("Y", "4s,4p,4d", "sp"): {"exp0", "exp1", "c4s1", "c4s2"},
+    ("Y", "3s,3p,3d", "d"): {"exp0", "exp2"},
+    ("Y", "4s,4p,4d", "d"): {"exp0", "exp2"},
+    # Zr: 5SP and valence-D exponent sets swapped (test_sto3g_zirconium_swapped_exponents)
+    ("Zr", "5s,5p", "sp"): {"exp0", "exp2"},
+    ("Zr", "4s,4p,4d", "d"): {"exp0", "exp2"},
+    # Y–Cd 4SP: 4s coefficient 1.1557874500 for 1.1155787450 (test_sto3g_4s_coefficient_transposed);
+    # c4s1 is the slightly unconverged published fit (test_sto3g_4s4p4d_published_fit_not_converged)
+    **{(s, "4s,4p,4d", "sp"): {"c4s1", "c4s2"} for s in Y_CD if s != "Y"},
+    **{(s, "4s,4p,4d", "spd"): {"c4s1"} for s in IN_I},
+}
+SC_ZN = ("Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn")
+GA_KR = ("Ga", "Ge", "As", "Se", "Br", "Kr")
+ALL6 = {f"exp{k}" for k in range(6)}
+SP6 = {f"c3{x}{k}" for x in "sp" for k in range(6)}
+KNOWN_STO6G = {
+    # 3SP coefficients of the [3s,3p] fit paired with exponents of the [3s,3p,3d] fit (test_sto6g_mixed_3sp)
+    **{(s, "3s,3p", "sp"): ALL6 for s in SC_ZN},
+    **{(s, "3s,3p,3d", "spd"): SP6 for s in GA_KR},
+}
+
+
+def test_pyscf_contractions_are_normalised(sto3g):
+    """PySCF's STO-3G coefficients give norm-1 contractions (as ours do), not the L2 optimum (norm² = 1 − ε).
+
+    Measured: |norm² − 1| ≤ 0.01 ε for every consistent STO-3G block, where the least-squares
+    optimum would be off by exactly ε. (STO-6G cannot discriminate: its 4sp coefficients are
+    printed with 7 decimals, whose rounding alone moves norm² by ~2e-6 ≈ 2ε.)
+    """
+    for r in sto3g:
+        if r["items"]:
+            continue
+        scaled = np.array(r["block"]["ex"]) / r["zeta2"]
+        for l, c in r["block"]["c"].items():
+            c = np.array(c)
+            eps = r["fit"].error[label_of(r["fam"].split(","), l)]
+            assert abs(c @ gaussian_overlap(l, scaled) @ c - 1.0) < 0.01 * eps, (r["symbol"], r["fam"], l)
+    fit = fit_sto("1s", 3)
+    c = np.array(fit.coefficients["1s"])
+    assert abs(c @ gaussian_overlap(0, np.array(fit.exponents)) @ c - 1.0) < 1e-12
+
+
+@pytest.mark.parametrize("which", ["sto3g", "sto6g"])
+def test_reproduces_published_expansions(which, request):
+    """Every block of PySCF's STO-3G / STO-6G is our fit scaled by one ζ², except the listed defects."""
+    records = request.getfixturevalue(which)
+    known = KNOWN_STO3G if which == "sto3g" else KNOWN_STO6G
+    found = {(r["symbol"], r["fam"], r["ls"]): r["items"] for r in records if r["items"]}
+    assert found == known
+    families = {r["fam"] for r in records}
+    # every shell family in the files is covered (check by coefficients, see classify)
+    expected_families = {"1s", "2s,2p", "3s,3p", "3s,3p,3d", "4s,4p"}
+    if which == "sto3g":
+        expected_families |= {"4s,4p,4d", "5s,5p"}
+    assert families == expected_families
+    for r in records:
+        if r["items"]:
+            continue
+        assert np.max(np.abs(r["exp_dev"])) <= EXP_TOL
+        assert all(np.max(np.abs(d)) <= COEF_TOL for d in r["coef_dev"].values())
+
+
+@pytest.mark.parametrize("which", ["sto3g", "sto6g"])
+def test_our_error_never_larger_than_published(which, request):
+    for r in request.getfixturevalue(which):
+        assert r["eps_ours"] <= r["eps_stored"] * (1 + EPS_TOL), (r["symbol"], r["fam"], r["ls"])
+
+
+def test_sto6g_matches_stewart_closely(sto6g):
+    """Stewart's 1970 STO-6G [S70] is reproduced to < 2e-7 in exponents (extended-precision polish),
+    except boron, whose 1s and 2sp exponents scatter by up to 4.3e-6 (measured) around ζ² times
+    our fit: within the tolerance, but 100× worse than every other element, as if B were derived
+    from a less precise ζ = 1 table (the B 1s ζ from the median primitive is 4.679999582, not 4.68)."""
+    for r in sto6g:
+        if r["items"]:
+            continue
+        dev = float(np.max(np.abs(r["exp_dev"])))
+        if r["symbol"] == "B":
+            assert 1e-6 < dev < EXP_TOL
+        else:
+            assert dev < 2e-7, (r["symbol"], r["fam"])
+
+
+def test_sto3g_2sp_published_fit_not_converged(sto3g):
+    """[HSP69] 2sp (all of Li–I): first exponent 8.2e-6 off the exact optimum, ε higher by 6.6e-13.
+
+    Not a transcription error: the same digits appear for every element, and the published
+    exponents with least-squares coefficients give ε = 1.00251370704e-3 against our
+    1.00251370638e-3 (mpmath check while developing; double precision resolves it too).
+    """
+    li = next(r for r in sto3g if r["symbol"] == "Li" and r["fam"] == "2s,2p")
+    assert li["exp_dev"][0] == pytest.approx(8.24e-6, abs=0.01e-6)  # measured, this comparison
+    ex = np.array(li["block"]["ex"]) / 0.64  # ζ(Li 2sp) = 0.80 [HSP69]
+    ours = lookup(["2s", "2p"], 3)
+    stored_eps = eps_of(ex, 2, 0) + eps_of(ex, 2, 1)
+    assert stored_eps - ours.total_error == pytest.approx(6.6e-13, abs=0.3e-13)
+
+
+def test_sto3g_4s4p4d_published_fit_not_converged(sto3g):
+    """In–I [4s,4p,4d] (Pietro et al.): 4s c₂ = 0.0576109534 vs our 0.0576256; consistent with the published exponents.
+
+    The least-squares coefficients at the published exponents reproduce the published 4s
+    coefficients to 1e-9, and our ε is lower: the published fit sits slightly off the optimum.
+    """
+    r = next(r for r in sto3g if r["symbol"] == "In" and r["fam"] == "4s,4p,4d")
+    scaled = np.array(r["block"]["ex"]) / 4.65**2  # ζ(In 4sp) = 4.65 [P80/83]
+    g = gaussian_overlap(0, scaled)
+    s, _ = sto_gaussian_overlap(4, 0, scaled)
+    c = np.linalg.solve(g, s)
+    c /= math.sqrt(c @ g @ c)
+    assert np.max(np.abs(c - np.array(r["block"]["c"][0]))) < 1e-8
+    assert r["coef_dev"]["4s"][1] == pytest.approx(-1.4647e-5, abs=0.001e-5)  # measured
+    total_stored = sum(eps_of(scaled, 4, l) for l in range(3))
+    assert total_stored > lookup(["4s", "4p", "4d"], 3).total_error
+
+
+def test_sto3g_4s_coefficient_transposed(sto3g):
+    """Y–Cd 4SP: third 4s coefficient 1.1557874500 is 1.1155787450 (In–I) with digits shifted.
+
+    Evidence: with 1.15578745 the contraction norm² is 1.0796 (measured), not 1; with
+    1.115578745 it is 1 to 1e-6, and our fit gives 1.1155706.
+    """
+    for r in sto3g:
+        if r["fam"] == "4s,4p,4d" and r["ls"] in ("sp", "spd") and r["symbol"] != "Y":
+            c = np.array(r["block"]["c"][0])
+            scaled = np.array(r["block"]["ex"]) / r["zeta2"]
+            norm = c @ gaussian_overlap(0, scaled) @ c
+            if r["symbol"] in Y_CD:
+                assert c[2] == 1.15578745  # PySCF sto-3g.dat as stored
+                assert norm == pytest.approx(1.0796, abs=1e-4)  # measured
+                c[2] = 1.115578745
+                assert abs(c @ gaussian_overlap(0, scaled) @ c - 1) < 1e-6
+            else:
+                assert c[2] == 1.115578745 and abs(norm - 1) < 1e-6
+
+
+def _proportional_to(ex, fam, n_gauss=3):
+    r = np.array(ex) / np.array(lookup(fam, n_gauss).exponents)
+    return float(np.sqrt(np.median(r))), float(r.max() / r.min() - 1)
+
+
+def test_sto3g_yttrium_mixed_fits(sto3g):
+    """Y: each block's exponents are those of another fit than its coefficients (found by refitting)."""
+    y = {(r["fam"], r["ls"]): r["block"]["ex"] for r in sto3g if r["symbol"] == "Y"}
+    cases = {
+        ("3s,3p,3d", "sp"): (["3s", "3p"], 7.97),  # exponents of [3s,3p], coefficients of [3s,3p,3d]
+        ("4s,4p,4d", "sp"): (["4s", "4p"], 3.29),
+        ("3s,3p,3d", "d"): (["3d"], 3.29),  # the single-3d fit
+        ("4s,4p,4d", "d"): (["4d"], 3.46),  # the single-4d fit
+    }
+    for key, (fam, zeta) in cases.items():
+        z, spread = _proportional_to(y[key], fam)
+        assert spread < 1e-5 and z == pytest.approx(zeta, abs=5e-5)
+
+
+def test_sto3g_zirconium_swapped_exponents(sto3g):
+    """Zr: the 5SP block carries the [4s,4p,4d] exponents (ζ 1.95), the valence D the [5s,5p] ones (ζ 1.90)."""
+    zr = {(r["fam"], r["ls"]): r["block"]["ex"] for r in sto3g if r["symbol"] == "Zr"}
+    z, spread = _proportional_to(zr[("5s,5p", "sp")], ["4s", "4p", "4d"])
+    assert spread < 1e-5 and z == pytest.approx(1.95, abs=5e-5)
+    z, spread = _proportional_to(zr[("4s,4p,4d", "d")], ["5s", "5p"])
+    assert spread < 1e-5 and z == pytest.approx(1.90, abs=5e-5)
+
+
+def test_sto3g_sr_ag_5sp_identical_is_not_a_defect(sto3g):
+    """Sr and Ag 5SP have identical exponents because both use ζ(5sp) = 1.80 [P80/83]; the blocks fit."""
+    r = {r["symbol"]: r for r in sto3g if r["fam"] == "5s,5p"}
+    assert r["Sr"]["block"]["ex"] == r["Ag"]["block"]["ex"]
+    for s in ("Sr", "Ag"):
+        assert not r[s]["items"] and math.sqrt(r[s]["zeta2"]) == pytest.approx(1.80, abs=1e-5)
+
+
+def test_sto6g_mixed_3sp(sto6g):
+    """STO-6G Sc–Kr: 3SP coefficients are the [3s,3p] fit's, the exponents the [3s,3p,3d] fit's.
+
+    For Ga–Kr the 3D block shares those exponents with [3s,3p,3d] d coefficients, so the sp
+    coefficients are the inconsistent side; the stored 3SP contraction has a larger ε than the
+    consistent [3s,3p,3d] one.
+    """
+    sp, spd = lookup(["3s", "3p"], 6), lookup(["3s", "3p", "3d"], 6)
+    for r in sto6g:
+        if (r["symbol"], r["fam"], r["ls"]) not in KNOWN_STO6G:
+            continue
+        z, spread = _proportional_to(r["block"]["ex"], ["3s", "3p", "3d"], 6)
+        assert spread < 1e-7
+        for l, lab in ((0, "3s"), (1, "3p")):
+            assert np.max(np.abs(np.array(r["block"]["c"][l]) - np.array(sp.coefficients[lab]))) < 1e-7
+        scaled = np.array(r["block"]["ex"]) / z**2
+        stored = sum(eps_of(scaled, 3, l, r["block"]["c"][l]) for l in (0, 1))
+        assert stored > spd.error["3s"] + spd.error["3p"]
+
+
+def test_max_deviation_figures(sto3g, sto6g):
+    """The headline figures of the comparison (measured here; recorded in the report)."""
+    dev3 = max(float(np.max(np.abs(r["exp_dev"]))) for r in sto3g if not r["items"])
+    dev6 = max(float(np.max(np.abs(r["exp_dev"]))) for r in sto6g if not r["items"])
+    assert dev3 < EXP_TOL and dev6 < EXP_TOL
+    print(f"max relative exponent deviation: STO-3G {dev3:.2e}, STO-6G {dev6:.2e}")
+
+
+# ---------------------------------------------------------------- exact results
+
+
+def test_published_coefficients_sto3g():
+    """STO-3G coefficients as printed in [HSP69] (also in PySCF's sto-3g.dat)."""
+    f1, f2 = lookup("1s", 3), lookup(["2s", "2p"], 3)
+    assert np.allclose(f1.coefficients["1s"], [0.15432897, 0.53532814, 0.44463454], atol=1e-8)  # [HSP69]
+    assert np.allclose(f2.coefficients["2s"], [-0.09996723, 0.39951283, 0.70011547], atol=2e-6)  # [HSP69]
+    assert np.allclose(f2.coefficients["2p"], [0.15591627, 0.60768372, 0.39195739], atol=2e-6)  # [HSP69]
+    assert np.allclose(f1.exponents, [2.227660584, 0.405771156, 0.109817510], rtol=1e-8)  # [HSP69] 1s at ζ = 1
+
+
+def test_sto1g_exact():
+    """N = 1: the least-squares fit maximises the overlap, d ln s/dα = 0 ⇔ 3 I₃ = 4α I₅ (own derivation).
+
+    The root is α = 0.270950 ([SO] ch. 3 list this STO-1G exponent; value from memory). The
+    value 8/(9π) ≈ 0.2829 from the task brief is a different optimum: the variational energy of
+    H with one Gaussian, E(α) = 3α/2 − 2√(2α/π), minimal at α = 8/(9π) ([SO] ch. 3, own check
+    below) — it is not the least-squares fit.
+    """
+    def i(nu, a):
+        return quad(lambda r: r ** (nu - 1) * math.exp(-a * r * r - r), 0, np.inf, epsabs=0, epsrel=1e-13)[0]
+
+    root = brentq(lambda a: 3 * i(3, a) - 4 * a * i(5, a), 0.1, 1.0, xtol=1e-14)
+    fit = fit_sto("1s", 1)
+    assert fit.exponents[0] == pytest.approx(root, rel=1e-9)
+    assert fit.exponents[0] == pytest.approx(0.270950, abs=1e-6)  # [SO], value from memory
+    assert fit.coefficients["1s"][0] == pytest.approx(1.0, abs=1e-15)
+    # s = N_sto N_g I_3 with N_sto = 2, N_g = (2^(7/2) α^(3/2) / Γ(3/2))^(1/2)
+    s = 2.0 * math.sqrt(2 * (2 * root) ** 1.5 / gamma(1.5)) * i(3, root)
+    assert fit.error["1s"] == pytest.approx(1 - s * s, rel=1e-9)
+    energy_opt = brentq(lambda a: 1.5 - math.sqrt(2 / (math.pi * a)), 0.05, 1.0, xtol=1e-15)
+    assert energy_opt == pytest.approx(8 / (9 * math.pi), rel=1e-12)
+    assert abs(fit.exponents[0] - 8 / (9 * math.pi)) > 0.01
+
+
+# ---------------------------------------------------------------- integrals, gradients, behaviour
+
+
+@pytest.mark.parametrize("alpha", [1e-3, 0.02, 0.15, 0.29, 0.31, 2.0, 50.0, 3000.0])
+def test_radial_integrals_vs_quadrature(alpha):
+    """I_ν = ∫ r^(ν−1) e^(−αr² − r) dr against scipy quad (breakpoints at the Gaussian width)."""
+    ints = radial_integrals(14, np.array([alpha]))[:, 0]
+    w = 1 / math.sqrt(alpha)
+    for nu in (1, 2, 3, 5, 8, 11, 14):
+        f = lambda r: r ** (nu - 1) * math.exp(-alpha * r * r - r)  # noqa: E731
+        ref = sum(quad(f, a, b, epsabs=0, epsrel=1e-13, limit=200)[0] for a, b in ((0, w), (w, 10 * w), (10 * w, np.inf)))
+        assert ints[nu - 1] == pytest.approx(ref, rel=1e-11)
+
+
+def test_closed_form_hyperu_agrees_but_is_coarse():
+    """[GR] 3.462.1 form Γ(ν)(4α)^(−ν/2) U(ν/2, ½, 1/(4α)) agrees with our recurrences to ~1e-7;
+    SciPy's hyperu is only ~3e-8 accurate for some arguments (measured), hence not used in fits."""
+    worst = 0.0
+    for alpha in (0.01, 0.02, 0.035, 0.3, 3.0):
+        ints = radial_integrals(9, np.array([alpha]))[:, 0]
+        for nu in (3, 5, 7, 9):
+            u = gamma(nu) * (4 * alpha) ** (-nu / 2) * hyperu(nu / 2, 0.5, 1 / (4 * alpha))
+            worst = max(worst, abs(u / ints[nu - 1] - 1))
+    assert 1e-9 < worst < 1e-6
+
+
+def test_gradient_matches_finite_differences():
+    from stobuilder.expansion.fit import objective
+
+    nls = ((3, 0), (3, 1), (3, 2))
+    x = np.log(np.array([3.1, 0.9, 0.3, 0.1]))
+    _, g = objective(x, nls)
+    h = 1e-6
+    for k in range(x.size):
+        e = np.zeros_like(x)
+        e[k] = h
+        fd = (objective(x + e, nls)[0] - objective(x - e, nls)[0]) / (2 * h)
+        assert g[k] == pytest.approx(fd, rel=1e-6, abs=1e-12)
+
+
+def test_error_decreases_strictly_with_n():
+    for fam in library_families():
+        errors = [lookup(list(fam), n).total_error for n in range(1, 7)]
+        assert all(b < a for a, b in zip(errors, errors[1:])), fam
+
+
+def test_library_equals_fresh_fit():
+    for fam, n in ((["2s", "2p"], 3), (["3s", "3p", "3d"], 6), (["4f"], 4)):
+        a, b = lookup(fam, n), fit_sto(fam, n)
+        assert a == b
+
+
+def test_lookup_fits_missing_entries_on_demand():
+    fit = lookup("2p", 7)  # the library stops at N = 6
+    assert isinstance(fit, Fit) and fit.gaussians == 7 and len(fit.exponents) == 7
+    assert fit.error["2p"] < lookup("2p", 6).error["2p"]
+    assert lookup("2p", 7) is fit  # memoised
+
+
+def test_order_normalised_and_scaled():
+    f = fit_sto(["2p", "2s"], 2)
+    assert f.subshells == ("2s", "2p")
+    assert list(f.exponents) == sorted(f.exponents, reverse=True)
+    assert f.scaled(2.0) == tuple(a * 4.0 for a in f.exponents)
+
+
+@pytest.mark.parametrize(
+    "args",
+    [("1s", 0), ("1s", 13), ("1s", 2.5), ("1x", 3), ("2d", 3), ("7s", 3), ("5g", 3), (["2s", "2s"], 3), ([], 3), ("1s", 3, "l1")],
+)
+def test_bad_input_raises(args):
+    with pytest.raises(InputError):
+        fit_sto(*args)
+    with pytest.raises(InputError):
+        lookup(*args)
+
+
+def test_scaled_rejects_bad_zeta():
+    with pytest.raises(InputError):
+        lookup("1s", 3).scaled(0.0)
