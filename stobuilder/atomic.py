@@ -14,7 +14,9 @@ analytic gradients dE/dζ = Σ_σ Σ D^σ ∘ ∂F^σ − W ∘ ∂S (the Hellma
 converged determinant, W = Σ_σ D^σ F^σ D^σ; Pulay, Mol. Phys. 17, 197, 1969), where
 ∂χ_n/∂ζ = (n + ½)/ζ χ_n − √((2n+2)(2n+1))/(2ζ) χ_{n+1} is again an STO. The exact optimum obeys
 the virial theorem −V/T = 2 (scaling argument: Löwdin, J. Mol. Spectrosc. 3, 46, 1959).
-Empty basis subshells (Li 2p) do not affect the energy; they take the ζ of the s of the same n.
+The optimisation is over the occupied subshells only, in a basis of those subshells (the single-ζ
+functions of Clementi & Raimondi 1963); an empty basis subshell such as Na 3p would otherwise act as
+a second p function for 2p. The ``optimized`` rule gives empty subshells the ζ of the s of their n.
 Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963).
 """
 
@@ -403,36 +405,28 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
                   zeta=None) -> AtomResult:
     """Variationally optimal single-ζ exponents: minimum of the SCF energy over every occupied ζ.
 
-    Starts from ``rule`` (with ``zeta`` overrides), BFGS in ln ζ with analytic gradients, then
+    Only occupied subshells enter (basis and result). Starts from ``rule`` (with ``zeta`` overrides),
+    BFGS in ln ζ with analytic gradients, then
     Newton steps on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree; the returned result
     satisfies the virial theorem −V/T = 2 to about 1e-9. Energies in hartree, ζ in bohr⁻¹.
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    exps = list(apply_zeta_overrides(shell_exponents(conf, rule), zeta))
-    occupied = [i for i, e in enumerate(exps) if conf.occupation(e.n, e.l)]
-    state = {"dm": None}
-    cache = {}
+    exps = [e for e in apply_zeta_overrides(shell_exponents(conf, rule), zeta) if conf.occupation(e.n, e.l)]
 
     def build(x):
-        new = list(exps)
-        for i, xi in zip(occupied, x):
-            e = exps[i]
-            z = math.exp(xi)
-            new[i] = ShellExponent(e.label, e.n, e.l, z * e.n_eff, e.n_eff, z)
-        for i, e in enumerate(new):  # empty subshells follow the s of their n
-            if i not in occupied:
-                partner = next((f for f in new if f.n == e.n and f.l == 0), None)
-                if partner is not None:
-                    new[i] = ShellExponent(e.label, e.n, e.l, partner.zeta * e.n_eff, e.n_eff, partner.zeta)
-        return tuple(new)
+        return tuple(ShellExponent(e.label, e.n, e.l, math.exp(xi) * e.n_eff, e.n_eff, math.exp(xi))
+                     for e, xi in zip(exps, x))
+
+    state = {"dm": None}
+    cache = {}
 
     def evaluate(x):
         key = tuple(float(v) for v in x)
         if key not in cache:
             solved = _solve(conf, build(x), m, dm0=state["dm"], gradient=True, optimized=True)
             state["dm"] = solved.dm
-            g = np.array([solved.result.gradient[exps[i].label] * math.exp(xi) for i, xi in zip(occupied, x)])
+            g = np.array([solved.result.gradient[e.label] * math.exp(xi) for e, xi in zip(exps, x)])
             cache.clear()
             cache[key] = (solved.result, g)
         return cache[key]
@@ -441,7 +435,7 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
         r, g = evaluate(x)
         return r.energy, g
 
-    x = np.array([math.log(exps[i].zeta) for i in occupied])
+    x = np.array([math.log(e.zeta) for e in exps])
     opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500})
     x = opt.x
     for _ in range(8):  # Newton polish on the analytic gradient (central-difference Hessian)
@@ -462,5 +456,167 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
     return evaluate(x)[0]
 
 
-__all__ = ["AtomResult", "OrbitalEnergy", "apply_zeta_overrides", "atom_energy", "describe_state", "optimize_zeta",
-           "pick_method"]
+# ---------------------------------------------------------------- the same STOs as Gaussians
+def gaussian_energy(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, gaussians: int) -> AtomResult:
+    """SCF energy (hartree) of the same determinant with every STO replaced by its N-Gaussian expansion.
+
+    Each subshell is fitted on its own (stobuilder.expansion.lookup, exponents at ζ = 1 scaled by ζ²);
+    the integrals are PySCF's (libcint); occupations, method and block structure as in the exact SCF.
+    """
+    from pyscf import gto
+
+    from .expansion import lookup
+
+    m = pick_method(conf, method)
+    labels, basis = _shells(exps)
+    by_label = {e.label: e for e in exps}
+    shells = []
+    for label in labels:  # (l, n) order, as PySCF sorts shells by l
+        e = by_label[label]
+        fit = lookup(label, int(gaussians))
+        shells.append([e.l] + [[a, c] for a, c in zip(fit.scaled(e.zeta), fit.coefficients[label])])
+    mol = gto.M(atom=[["X", (0.0, 0.0, 0.0)]], basis={"X": shells}, cart=False, verbose=0)
+    ints = _Integrals(basis, mol.intor("int1e_ovlp"), mol.intor("int1e_kin"),
+                      -conf.z * mol.intor("int1e_rinv"), mol.intor("int2e"))
+    plan = _plan(conf, [(s.n, s.l) for s in basis.shells])
+    mf, classify = _run_scf(ints, plan, m)
+    da, db = _spin_densities(mf, m)
+    kinetic = float(np.sum((da + db) * ints.t))
+    energy = float(mf.e_tot)
+    return AtomResult(
+        element=conf.symbol, configuration=conf.label, state=describe_state(conf, m), method=m,
+        zeta={e.label: float(e.zeta) for e in exps}, energy=energy, kinetic=kinetic, potential=energy - kinetic,
+        virial_ratio=(kinetic - energy) / kinetic, orbital_energies=_orbitals(mf, m, basis, classify),
+        converged=bool(mf.converged), iterations=int(getattr(mf, "cycles", -1)),
+    )
+
+
+def atom_report(element: str, rule: str = "slater", configuration=None, charge: int = 0, zeta=None,
+                optimize: bool = False, gaussians=(), method: str = "auto") -> dict:
+    """The exact-STO atom and its N-Gaussian imitations, as a JSON-ready dict.
+
+    Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
+    virial_ratio, gaussian [{gaussians, energy_hartree}], orbital_energies
+    [{label, spin, energy_hartree, occupation}]. With ``optimize`` the ζ of the occupied subshells are
+    optimised first (from ``rule`` and ``zeta``) and only those subshells form the basis.
+    """
+    conf = _conf(element, charge, configuration)
+    m = pick_method(conf, method)
+    counts = [gaussians] if isinstance(gaussians, int) else list(gaussians or ())
+    for n in counts:
+        if isinstance(n, bool) or not isinstance(n, int) or n < 1:
+            raise InputError(f"number of Gaussians {n!r} must be a positive integer")
+    if optimize:
+        result = optimize_zeta(conf.symbol, configuration=conf, method=m, rule=rule, zeta=zeta)
+        base = {e.label: e for e in shell_exponents(conf, rule)}
+        exps = tuple(ShellExponent(k, base[k].n, base[k].l, v * base[k].n_eff, base[k].n_eff, v)
+                     for k, v in result.zeta.items())
+    else:
+        exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
+        result = _solve(conf, exps, m).result
+    rows = [{"gaussians": n, "energy_hartree": gaussian_energy(conf, exps, m, n).energy} for n in counts]
+    return {
+        "element": result.element,
+        "configuration": result.configuration,
+        "state": result.state,
+        "method": result.method,
+        "zeta": dict(result.zeta),
+        "energy_exact_hartree": result.energy,
+        "virial_ratio": result.virial_ratio,
+        "gaussian": rows,
+        "orbital_energies": [
+            {"label": o.label, "spin": o.spin, "energy_hartree": o.energy, "occupation": o.occupation}
+            for o in result.orbital_energies
+        ],
+    }
+
+
+# ---------------------------------------------------------------- user exponents
+def _parse_value(text: str, item: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise InputError(f"--zeta {item!r}: {text.strip()!r} is not a number") from None
+    if not (math.isfinite(v) and v > 0):
+        raise InputError(f"--zeta {item!r}: ζ must be a positive number")
+    return v
+
+
+def parse_zeta_overrides(items, per_element: bool = False) -> dict:
+    """Parse ``--zeta`` items: "1s=1.6875" → {"1s": 1.6875}; per element "Fe:3d=2.1" → {"Fe": {"3d": 2.1}}.
+
+    Labels are checked to be subshell labels (whether the basis has them is checked where the
+    overrides are applied); values must be positive numbers (bohr⁻¹).
+    """
+    from .elements import normalise_symbol
+
+    out: dict = {}
+    for item in items or ():
+        text = str(item)
+        if "=" not in text:
+            raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
+        key, value = text.split("=", 1)
+        if per_element:
+            if ":" not in key:
+                raise InputError(f"--zeta {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
+            sym, label = key.split(":", 1)
+            try:
+                sym = normalise_symbol(sym)
+            except InputError as err:
+                raise InputError(f"--zeta {text!r}: {err}") from None
+        else:
+            sym, label = None, key
+        try:
+            n, l = parse_subshell_label(label)
+        except InputError as err:
+            raise InputError(f"--zeta {text!r}: {err}") from None
+        label = f"{n}{L_LETTERS[l]}"
+        v = _parse_value(value, text)
+        target = out.setdefault(sym, {}) if per_element else out
+        if label in target:
+            raise InputError(f"--zeta {text!r}: {label} is given twice")
+        target[label] = v
+    return out
+
+
+def load_zeta_file(path) -> dict[str, dict[str, float]]:
+    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
+    import sys
+
+    from .elements import normalise_symbol
+
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover - Python 3.10
+        import tomli as tomllib
+    try:
+        with open(path, "rb") as fh:
+            doc = tomllib.load(fh)
+    except OSError as err:
+        raise InputError(f"zeta file {str(path)!r}: cannot read it ({err.strerror})") from None
+    except tomllib.TOMLDecodeError as err:
+        raise InputError(f"zeta file {str(path)!r}: not valid TOML ({err})") from None
+    out: dict[str, dict[str, float]] = {}
+    for sym, table in doc.items():
+        try:
+            symbol = normalise_symbol(sym)
+        except InputError as err:
+            raise InputError(f"zeta file {str(path)!r}: {err}") from None
+        if not isinstance(table, dict):
+            raise InputError(f"zeta file {str(path)!r}: {sym} must be a table of LABEL = VALUE")
+        entry = out.setdefault(symbol, {})
+        for label, value in table.items():
+            try:
+                n, l = parse_subshell_label(str(label))
+            except InputError as err:
+                raise InputError(f"zeta file {str(path)!r}: [{sym}] {err}") from None
+            if isinstance(value, bool) or not isinstance(value, (int, float)):
+                raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} is not a number")
+            if not (math.isfinite(value) and value > 0):
+                raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} must be positive")
+            entry[f"{n}{L_LETTERS[l]}"] = float(value)
+    return out
+
+
+__all__ = ["AtomResult", "OrbitalEnergy", "apply_zeta_overrides", "atom_energy", "atom_report", "describe_state",
+           "gaussian_energy", "load_zeta_file", "optimize_zeta", "parse_zeta_overrides", "pick_method"]

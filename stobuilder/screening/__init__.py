@@ -22,7 +22,7 @@ class Rule:
     shell_exponents: Callable[[Configuration], tuple[ShellExponent, ...]]
 
 
-_MODULES = ("slater", "molecular")
+_MODULES = ("slater", "molecular", "clementi", "optimized")
 
 
 def rules() -> dict[str, Rule]:
