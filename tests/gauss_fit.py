@@ -14,7 +14,7 @@ def fit_sto_gaussians(n: int, l: int, zeta: float, count: int) -> list[tuple[flo
     """[(α, c)] for r^l e^(−α r²) primitives (coefficients for normalised primitives) ≈ r^(n−1) e^(−ζ r)."""
     r = np.exp(np.linspace(np.log(1e-5), np.log(60.0), 6000)) / zeta
     w = np.gradient(r) * r**2
-    alphas = zeta**2 * np.geomspace(1e-2 * (n + 1) ** -2, 2e4 / n, count)
+    alphas = zeta**2 * np.geomspace(3e-2 / n**2, 3e3 / n**2, count)
     target = r ** (n - 1) * np.exp(-zeta * r)
     design = r[:, None] ** l * np.exp(-np.outer(r**2, alphas))
     sw = np.sqrt(w)
