@@ -5,6 +5,7 @@ The public API; every name here is a plain function or a frozen dataclass.
 
 __version__ = "0.1.0"
 
+from .atomic import AtomResult, atom_energy, atom_report, load_zeta_file, optimize_zeta, parse_zeta_overrides  # noqa: E402
 from .basis import Basis, ElementBasis, Shell  # noqa: E402
 from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
 from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
@@ -16,6 +17,12 @@ from .screening import ShellExponent, rules  # noqa: E402
 from .structures import Structure, read_structures  # noqa: E402
 
 __all__ = [
+    "AtomResult",
+    "atom_energy",
+    "atom_report",
+    "load_zeta_file",
+    "optimize_zeta",
+    "parse_zeta_overrides",
     "Basis",
     "Configuration",
     "ElementBasis",
