@@ -14,7 +14,7 @@ from .build import build_basis
 from .checks import Check, check_structure
 from .errors import InputError
 from .files import atomic_write, check_targets, write_all
-from .formats import formats, get_format, merge_basis, read_basis
+from .formats import formats, get_format, merge_basis
 from .structures import Structure, elements_of, read_structures
 
 MAX_CHECK_FRAMES = 3
@@ -110,17 +110,16 @@ def backup_path(path: str) -> str:
 def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, source: str = "text") -> str:
     """``merge_basis`` plus the proof that nothing was lost: the merged text reads back to the
     old text's other elements unchanged and to our elements as written alone."""
+    fmt = get_format(code)
     try:
-        before = read_basis(text, code)
+        before = fmt.entries_of(text)
         merged = merge_basis(text, basis, code, sp_shells)
-        after = read_basis(merged, code)
+        after = fmt.entries_of(merged)
     except InputError as exc:
         raise InputError(f"{source}: {exc}") from None
-    ours = read_basis(get_format(code).write(basis, sp_shells=sp_shells), code)
-    expected = {e.symbol: e.shells for e in before.elements} | {e.symbol: e.shells for e in ours.elements}
-    got = {e.symbol: e.shells for e in after.elements}
-    if got != expected:
-        raise InputError(f"{source}: merging would change elements it should keep; nothing written")
+    expected = before | fmt.entries_of(fmt.write(basis, sp_shells=sp_shells))
+    if after != expected:
+        raise InputError(f"{source}: merging would change entries it should keep; nothing written")
     return merged
 
 

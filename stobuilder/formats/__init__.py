@@ -31,6 +31,14 @@ class Format:
     write: Callable[..., str]
     read: Callable[[str], Basis] | None = None
     merge: Callable[..., str] | None = None
+    entries: Callable[[str], dict] | None = None
+
+    def entries_of(self, text: str) -> dict:
+        """The text's entries: {symbol: shells}, or the format's own keys where a file may hold
+        several bases per element (CP2K: (symbol, NAME))."""
+        if self.entries is not None:
+            return self.entries(text)
+        return {e.symbol: e.shells for e in self.read(text).elements}
 
 
 def formats() -> dict[str, Format]:
@@ -39,7 +47,9 @@ def formats() -> dict[str, Format]:
     for mod_name in _MODULES:
         mod = import_module(f"{__name__}.{mod_name}")
         out[mod.NAME] = Format(
-            mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write, getattr(mod, "read", None), getattr(mod, "merge", None)
+            mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write, getattr(mod, "read", None),
+            getattr(mod, "merge", None),
+            getattr(mod, "entries", None),
         )
     return out
 

@@ -115,6 +115,17 @@ def read(text: str) -> Basis:
     return file_basis([ParsedElement(s, tuple(sh), (span,)) for s, _, sh, span, _ in records], lines)
 
 
+def entries(text: str) -> dict[tuple[str, str], tuple]:
+    """Every entry's shells by (symbol, upper-case name): CP2K files hold several sets per element."""
+    records, lines = parse(text)
+    out = {}
+    for symbol, name, shells, _, n in records:
+        if (symbol, name.upper()) in out:
+            raise lines.error(n, f"entry {symbol} {name} appears a second time")
+        out[(symbol, name.upper())] = tuple(shells)
+    return out
+
+
 def merge(text: str, basis: Basis, sp_shells: bool = False) -> str:
     """``text`` with our entries added (at the end) or put in place of the entries of the same
     element and name; a file's other entries, including other names for our elements, stay."""

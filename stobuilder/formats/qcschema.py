@@ -35,25 +35,35 @@ def _dump(doc: dict) -> str:
     return json.dumps(doc, indent=1) + "\n"
 
 
-def _validated(doc: dict) -> dict:
-    """The document as qcelemental's BasisSet model has checked it (nbf filled in)."""
+def _validated(doc: dict, text: str | None = None) -> dict:
+    """The document as qcelemental's BasisSet model has checked it (nbf filled in). With the
+    ``text`` it came from, an error names the line of the failing field."""
     from qcelemental.models import BasisSet
 
     try:
         model = BasisSet(**doc)
     except Exception as exc:  # pydantic's ValidationError: name the first failing field
-        raise InputError(f"{NAME} basis: not a valid qcschema_basis document: {_first_error(exc)}") from None
+        where, problem = _first_error(exc)
+        at = ""
+        if text is not None:
+            pos = 0
+            for part in where:
+                if isinstance(part, str):
+                    _, pos = _line_of(text, part, pos)
+            at = f", line {text.count(chr(10), 0, pos) + 1}"
+        path = ".".join(str(x) for x in where)
+        raise InputError(f"{NAME} basis{at}: not a valid qcschema_basis document: {path}: {problem}") from None
     out = dict(doc)
     out["nbf"] = model.nbf
     return out
 
 
-def _first_error(exc) -> str:
+def _first_error(exc) -> tuple[tuple, str]:
     errors = getattr(exc, "errors", None)
     if callable(errors):
         first = errors()[0]
-        return f"{'.'.join(str(x) for x in first['loc'])}: {first['msg']}"
-    return str(exc).splitlines()[0]
+        return tuple(first["loc"]), first["msg"]
+    return (), str(exc).splitlines()[0]
 
 
 def to_document(basis: Basis, sp_shells: bool = False) -> dict:
@@ -83,12 +93,37 @@ def _load(text: str) -> tuple[dict, Lines]:
         raise lines.error(exc.lineno, f"not JSON: {exc.msg} (column {exc.colno})") from None
     if not isinstance(doc, dict):
         raise lines.error(1, "a JSON object expected")
-    return _validated(doc), lines
+    _precheck(text, doc, lines)
+    return _validated(doc, text), lines
 
 
-def _line_of(text: str, key: str) -> int:
-    at = text.find(json.dumps(key))
-    return text.count("\n", 0, at) + 1 if at >= 0 else 1
+def _line_of(text: str, key: str, start: int = 0) -> tuple[int, int]:
+    """(1-based line, offset) of the JSON string ``key`` at or after ``start``."""
+    at = text.find(json.dumps(key), start)
+    at = start if at < 0 else at
+    return text.count("\n", 0, at) + 1, at
+
+
+def _precheck(text: str, doc: dict, lines: Lines) -> None:
+    """The checks that name a line, before qcelemental's model: centre keys are element symbols,
+    exponents and coefficients are numbers."""
+    centers = doc.get("center_data")
+    if not isinstance(centers, dict):
+        return
+    for key, center in centers.items():
+        line, at = _line_of(text, key)
+        read_symbol(key, line, lines)
+        shells = center.get("electron_shells") if isinstance(center, dict) else None
+        for shell in shells if isinstance(shells, list) else ():
+            if not isinstance(shell, dict):
+                continue
+            values = list(shell.get("exponents") or [])
+            for row in shell.get("coefficients") or []:
+                values.extend(row if isinstance(row, list) else [row])
+            for v in values:
+                if isinstance(v, bool) or not isinstance(v, (int, float)):
+                    bad_line, _ = _line_of(text, v, at) if isinstance(v, str) else (line, at)
+                    raise lines.error(bad_line, f"number expected in a shell of {key}, found {json.dumps(v)}")
 
 
 def read(text: str) -> Basis:
@@ -97,7 +132,7 @@ def read(text: str) -> Basis:
     doc, lines = _load(text)
     elements = []
     for key, center in doc["center_data"].items():
-        line = _line_of(text, key)
+        line, _ = _line_of(text, key)
         symbol = read_symbol(key, line, lines)
         if any(e.symbol == symbol for e in elements):
             raise lines.error(line, f"element {symbol} appears a second time in center_data")
