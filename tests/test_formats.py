@@ -3,7 +3,9 @@ parse_gaussian (Gaussian 94 and the Psi4 layout) and parse_cp2k, qcelemental's B
 QCSchema, runpy for the PySCF file, and for Dalton and OpenMolcas the layout readers in
 tests/layout_readers.py (written from the codes' manuals, sharing nothing with the package)."""
 
+import os
 import runpy
+import tempfile
 
 import numpy as np
 import pytest
@@ -74,8 +76,6 @@ def independent(code, basis, sp=False):
             assert text.splitlines()[0] == "spherical"  # Psi4 manual: the first line picks pure functions
         return {s: parse_gaussian.parse(c, optimize=False) for s, c in _g94_chunks(text, symbols).items()}
     if code == "pyscf":
-        import tempfile, os
-
         with tempfile.TemporaryDirectory() as d:
             path = os.path.join(d, "b.py")
             with open(path, "w") as f:
