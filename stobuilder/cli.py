@@ -49,7 +49,10 @@ def _parser() -> argparse.ArgumentParser:
     _add_rule(b)
     b.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
     b.add_argument(
-        "--code", action="append", metavar="CODE", help=f"output format, repeatable: {', '.join(formats())} (default nwchem)"
+        "--code",
+        action="append",
+        metavar="CODE",
+        help=f"output format, repeatable: {', '.join(formats())}, or all (default nwchem)",
     )
     b.add_argument("--out", default="basis", metavar="DIR", help="output folder (default ./basis)")
     b.add_argument("--force", action="store_true", help="overwrite existing output files")
@@ -58,7 +61,18 @@ def _parser() -> argparse.ArgumentParser:
     b.add_argument("--charge", type=int, help="total charge (overrides the file)")
     b.add_argument("--spin", type=int, help="2S, the number of unpaired electrons (overrides the file)")
     b.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    b.add_argument(
+        "--split-elements", action="store_true", help="one file per element: <structure>.<Symbol><extension>"
+    )
+    b.add_argument(
+        "--merge-into",
+        metavar="FILE",
+        help="add or replace our elements in this existing basis file (one format; the old file is kept as FILE.bak)",
+    )
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
+
+    f = sub.add_parser("formats", help="the basis-file formats: name, file extension, description")
+    f.add_argument("--json", action="store_true", help="print JSON")
 
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
@@ -78,7 +92,7 @@ def _cmd_build(args) -> int:
         args.structures,
         rule=args.rule,
         gaussians=args.gaussians,
-        codes=args.code or ["nwchem"],
+        codes=args.code,
         out_dir=args.out,
         check=args.check,
         force=args.force,
@@ -86,6 +100,8 @@ def _cmd_build(args) -> int:
         spin=args.spin,
         method=args.method,
         sp_shells=args.sp_shells,
+        split_elements=args.split_elements,
+        merge_into=args.merge_into,
     )
     if args.json:
         print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
@@ -166,7 +182,24 @@ def _cmd_zeta(args) -> int:
     return 0
 
 
-COMMANDS = {"build": _cmd_build, "zeta": _cmd_zeta}
+# ---------------------------------------------------------------------------- formats
+
+
+def _cmd_formats(args) -> int:
+    from .formats import formats
+
+    table = formats().values()
+    if args.json:
+        doc = {"formats": [{"name": f.name, "extension": f.extension, "description": f.description} for f in table]}
+        print(json.dumps(doc, indent=2))
+        return 0
+    print(f"{'name':<12}{'extension':<16}description")
+    for f in table:
+        print(f"{f.name:<12}{f.extension:<16}{f.description}")
+    return 0
+
+
+COMMANDS = {"build": _cmd_build, "zeta": _cmd_zeta, "formats": _cmd_formats}
 
 
 def main(argv=None) -> int:
