@@ -259,8 +259,8 @@ def _walk(folder: str, exclude: str | None) -> list[str]:
         dirs[:] = sorted(
             d for d in dirs if not d.startswith(".") and os.path.join(root, d) != exclude
         )
-        found.extend(os.path.join(root, f) for f in sorted(files) if is_structure_name(f))
-    return found
+        found.extend(os.path.join(root, f) for f in files if is_structure_name(f))
+    return sorted(found, key=lambda p: os.path.relpath(p, folder).split(os.sep))
 
 
 def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchItem, ...]:
@@ -553,11 +553,21 @@ class _Manifest:
         except OSError:
             self.handle.close()
             raise InputError(f"{path}: another batch is running on this output folder") from None
-        if self.handle.tell() > 0:  # end a torn last line from a killed run
-            with open(path, "rb") as check:
-                check.seek(-1, os.SEEK_END)
-                if check.read(1) != b"\n":
-                    self.handle.write("\n")
+        self._drop_torn_line()
+
+    def _drop_torn_line(self) -> None:
+        """A run killed while appending leaves a last line without its newline: an unfinished
+        record, dropped (we hold the lock, so nobody else is writing)."""
+        size = os.path.getsize(self.path)
+        if size == 0:
+            return
+        with open(self.path, "rb") as check:
+            data = check.read()
+        if data.endswith(b"\n"):
+            return
+        keep = data.rfind(b"\n") + 1
+        self.handle.truncate(keep)
+        self.handle.seek(0, os.SEEK_END)
 
     def append(self, records: Sequence[dict]) -> None:
         if not records:
