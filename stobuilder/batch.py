@@ -657,7 +657,10 @@ def make_progress(total: int, mode: str = "auto", stream=None, interval: float =
             tty = False
         mode = "bar" if tty else "lines"
     if mode == "bar":
-        return BarProgress(total, stream)
+        try:
+            return BarProgress(total, stream)
+        except ImportError:
+            raise InputError("--progress bar needs tqdm: pip install tqdm") from None
     if mode == "lines":
         return LineProgress(total, stream, interval)
     if mode == "off":
