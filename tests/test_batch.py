@@ -18,6 +18,7 @@ import signal
 import subprocess
 import sys
 import time
+from dataclasses import replace
 from pathlib import Path
 
 import numpy as np
@@ -80,8 +81,10 @@ def _no_wall(check: dict) -> dict:
 
 
 def records(out_dir) -> list[dict]:
-    with open(Path(out_dir) / batch.MANIFEST_NAME) as handle:
-        return [json.loads(line) for line in handle if line.strip()]
+    """Every record of the manifest, in order (a torn last line of a killed run left out)."""
+    text = (Path(out_dir) / batch.MANIFEST_NAME).read_text()
+    complete = text[: text.rfind("\n") + 1]
+    return [json.loads(line) for line in complete.splitlines() if line.strip()]
 
 
 def output_files(out_dir) -> dict[str, bytes]:
@@ -255,6 +258,35 @@ def test_mixed_bad_input_fails_item_by_item_with_exit_status_1(tmp_path, capsys)
     assert "6 structures: 3 done, 0 skipped (up to date), 3 failed" in out
     assert out.count("failed: ") == 3
     assert not (tmp_path / "out" / "xenon.nw").exists()
+
+
+def test_an_unconverged_scf_fails_the_item_but_keeps_its_files(tmp_path, monkeypatch):
+    """SCF not converged is a failed item (recorded with its check), not a stopped batch. The
+    non-convergence is injected: PySCF converges these small molecules."""
+    import stobuilder.checks as checks
+
+    real = checks.check_structure
+
+    def unconverged_for_water(structure, basis, method="auto"):
+        result = real(structure, basis, method=method)
+        if structure.formula != "H2O":
+            return result
+        (scf,) = result.results
+        return checks.Check(result.target, result.reason, (replace(scf, converged=False),))
+
+    monkeypatch.setattr(checks, "check_structure", unconverged_for_water)
+    make_library(tmp_path / "in", ["H2O", "NH3"], split=False)
+    summary = run_batch(discover([str(tmp_path / "in")]), BatchOptions(check=True), str(tmp_path / "out"),
+                        executor=cf.ThreadPoolExecutor(1))
+    assert (summary.done, summary.failed, summary.exit_status) == (1, 1, 1)
+    last = {Path(p).name: r for p, r in read_manifest(str(tmp_path / "out" / batch.MANIFEST_NAME)).items()}
+    water = last["mol_00.xyz"]
+    assert water["status"] == "failed" and water["error"].endswith("mol_00.xyz: SCF not converged")
+    assert water["checks"][0]["converged"] is False and (tmp_path / "out" / "mol_00.nw").exists()
+    assert last["mol_01.xyz"]["status"] == "done"
+    # a failed item is redone on the next run (here it fails again)
+    assert run_batch(discover([str(tmp_path / "in")]), BatchOptions(check=True), str(tmp_path / "out"),
+                     executor=cf.ThreadPoolExecutor(1)).skipped == 1
 
 
 def test_bad_usage_exits_2(tmp_path, capsys):
