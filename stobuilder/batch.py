@@ -558,14 +558,19 @@ class _Manifest:
     def _drop_torn_line(self) -> None:
         """A run killed while appending leaves a last line without its newline: an unfinished
         record, dropped (we hold the lock, so nobody else is writing)."""
-        size = os.path.getsize(self.path)
-        if size == 0:
-            return
+        end = os.path.getsize(self.path)
         with open(self.path, "rb") as check:
-            data = check.read()
-        if data.endswith(b"\n"):
-            return
-        keep = data.rfind(b"\n") + 1
+            if end == 0 or (check.seek(end - 1), check.read(1))[1] == b"\n":
+                return
+            keep, position = 0, end
+            while position > 0:  # back, block by block, to the last newline
+                start = max(0, position - 65536)
+                check.seek(start)
+                found = check.read(position - start).rfind(b"\n")
+                if found >= 0:
+                    keep = start + found + 1
+                    break
+                position = start
         self.handle.truncate(keep)
         self.handle.seek(0, os.SEEK_END)
 
