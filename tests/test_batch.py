@@ -297,7 +297,7 @@ def test_bad_usage_exits_2(tmp_path, capsys):
     assert main(["batch", str(tmp_path / "nothing"), "--out", out]) == 2
     assert main(["batch", str(tmp_path / "in"), "--out", out, "--workers", "0"]) == 2
     err = capsys.readouterr().err
-    assert "unknown output format 'nope'" in err and "no such file or folder" in err
+    assert "unknown basis format 'nope'" in err and "no such file or folder" in err
     assert not os.path.exists(out)
 
 
