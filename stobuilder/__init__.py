@@ -12,6 +12,7 @@ from .elements import Configuration, ground_state, parse_configuration  # noqa: 
 from .errors import InputError  # noqa: E402
 from .expansion import Fit, fit_sto  # noqa: E402
 from .formats import formats, write_basis  # noqa: E402
+from .formats import merge_basis, read_basis  # noqa: E402
 from .pipeline import build_structures  # noqa: E402
 from .screening import ShellExponent, rules  # noqa: E402
 from .structures import Structure, read_structures  # noqa: E402
@@ -38,7 +39,9 @@ __all__ = [
     "fit_sto",
     "formats",
     "ground_state",
+    "merge_basis",
     "parse_configuration",
+    "read_basis",
     "read_structures",
     "rules",
     "write_basis",

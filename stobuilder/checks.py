@@ -96,7 +96,7 @@ def pick_method(method: str, spin: int) -> str:
     return method.upper()
 
 
-def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom"):
+def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom", symmetry: bool = False):
     """A built PySCF Mole (spherical functions) for ``atoms`` = [(symbol, (x, y, z)), ...]."""
     from pyscf import gto
 
@@ -107,24 +107,30 @@ def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom"):
     mol.charge = charge
     mol.spin = spin
     mol.cart = False
+    mol.symmetry = symmetry
     mol.verbose = 0
     mol.build()
     return mol
 
 
-def _solve(mol, method: str, max_cycle: int, dm0=None):
+def _solve(mol, method: str, max_cycle: int, dm0=None, configure=None):
     """One SCF run: (energy, converged, iterations, density). A failed first run is retried with
     PySCF's second-order solver from where it stopped."""
     from pyscf import scf
 
     driver = {"RHF": scf.RHF, "ROHF": scf.ROHF, "UHF": scf.UHF}[method]
     mf = driver(mol)
+    if configure is not None:
+        mf = configure(mf)
     mf.max_cycle = max_cycle
     mf.verbose = 0
     energy = mf.kernel(dm0)
     iterations = int(getattr(mf, "cycles", 0))
     if not mf.converged:
-        mf2 = driver(mol).newton()
+        mf2 = driver(mol)
+        if configure is not None:
+            mf2 = configure(mf2)
+        mf2 = mf2.newton()
         mf2.verbose = 0
         mf2.max_cycle = max_cycle
         energy2 = mf2.kernel(mf.make_rdm1())
@@ -134,11 +140,11 @@ def _solve(mol, method: str, max_cycle: int, dm0=None):
     return float(energy), bool(mf.converged), iterations, mf.make_rdm1()
 
 
-def run_scf(mol, method: str, label: str = "", max_cycle: int = 100) -> ScfResult:
+def run_scf(mol, method: str, label: str = "", max_cycle: int = 100, configure=None) -> ScfResult:
     """Run one SCF calculation (method "RHF", "ROHF" or "UHF") from PySCF's default guess.
     ``converged`` reports what PySCF reports."""
     start = time.perf_counter()
-    energy, converged, iterations, _ = _solve(mol, method, max_cycle)
+    energy, converged, iterations, _ = _solve(mol, method, max_cycle, configure=configure)
     return ScfResult(label, method, energy, converged, iterations, time.perf_counter() - start)
 
 
@@ -161,7 +167,9 @@ def stored_reference(basis: Basis, symbols) -> str | None:
 STATE_TOLERANCE = 1e-4  # hartree: beyond this two nearly equal bases have landed in different states
 
 
-def compare_with_stored(mol, atoms, basis: Basis, symbols, charge, spin, method, label, max_cycle=100) -> ScfResult:
+def compare_with_stored(
+    mol, atoms, basis: Basis, symbols, charge, spin, method, label, max_cycle=100, configure=None
+) -> ScfResult:
     """SCF with our basis and, where ``stored_reference`` names one, with PySCF's stored STO-nG.
 
     Open-shell atoms have many SCF solutions; where the two energies differ by more than
@@ -172,15 +180,15 @@ def compare_with_stored(mol, atoms, basis: Basis, symbols, charge, spin, method,
     from pyscf.scf.addons import project_dm_nr2nr
 
     start = time.perf_counter()
-    e1, ok1, it1, dm1 = _solve(mol, method, max_cycle)
+    e1, ok1, it1, dm1 = _solve(mol, method, max_cycle, configure=configure)
     ref_name = stored_reference(basis, symbols)
     if ref_name is None:
         return ScfResult(label, method, e1, ok1, it1, time.perf_counter() - start)
-    mol_ref = make_mole(atoms, ref_name, charge, spin)
-    e2, ok2, _, dm2 = _solve(mol_ref, method, max_cycle)
+    mol_ref = make_mole(atoms, ref_name, charge, spin, symmetry=bool(mol.symmetry))
+    e2, ok2, _, dm2 = _solve(mol_ref, method, max_cycle, configure=configure)
     if abs(e1 - e2) > STATE_TOLERANCE:
-        e1b, ok1b, it1b, _ = _solve(mol, method, max_cycle, project_dm_nr2nr(mol_ref, dm2, mol))
-        e2b, ok2b, _, _ = _solve(mol_ref, method, max_cycle, project_dm_nr2nr(mol, dm1, mol_ref))
+        e1b, ok1b, it1b, _ = _solve(mol, method, max_cycle, project_dm_nr2nr(mol_ref, dm2, mol), configure)
+        e2b, ok2b, _, _ = _solve(mol_ref, method, max_cycle, project_dm_nr2nr(mol, dm1, mol_ref), configure)
         if ok1b and (not ok1 or e1b < e1):
             e1, ok1, it1 = e1b, ok1b, it1b
         if ok2b and (not ok2 or e2b < e2):
@@ -188,19 +196,49 @@ def compare_with_stored(mol, atoms, basis: Basis, symbols, charge, spin, method,
     return ScfResult(label, method, e1, ok1, it1, time.perf_counter() - start, ref_name, e2, ok2)
 
 
+def irrep_occupations(conf) -> dict[str, tuple[int, int]]:
+    """(α, β) electrons per real spherical harmonic (PySCF's SO3 irreps "s+0", "p-1", ...) for the
+    high-spin single determinant of a configuration: a closed subshell fills every m; an open one
+    puts min(q, 2l+1) α electrons and the rest β into its m components in the order −l…l."""
+    occ: dict[str, tuple[int, int]] = {}
+    for sub in conf.subshells:
+        n_alpha = min(sub.occupation, 2 * sub.l + 1)
+        n_beta = sub.occupation - n_alpha
+        for i, m in enumerate(range(-sub.l, sub.l + 1)):
+            key = f"{'spdfg'[sub.l]}{m:+d}"
+            a, b = occ.get(key, (0, 0))
+            occ[key] = (a + (i < n_alpha), b + (i < n_beta))
+    return occ
+
+
+def _atom_solver(occupations, method: str):
+    """A ``_solve``-compatible SCF configurer that fixes the electrons per SO3 irrep."""
+
+    def configure(mf):
+        if method == "RHF":
+            mf.irrep_nelec = {k: a + b for k, (a, b) in occupations.items()}
+        else:
+            mf.irrep_nelec = dict(occupations)
+        return mf
+
+    return configure
+
+
 def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: bool = True) -> ScfResult:
-    """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for,
-    high-spin (Hund) multiplicity."""
+    """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for:
+    the high-spin single determinant of ``irrep_occupations``, held fixed through PySCF's atomic
+    (SO3) symmetry so that the SCF cannot drift to another configuration."""
     element = basis[symbol]
     conf = parse_configuration(element.configuration, symbol) if element.configuration else ground_state(symbol)
     spin = conf.unpaired
     m = pick_method(method, spin)
     atoms = [(symbol, (0.0, 0.0, 0.0))]
-    mol = make_mole(atoms, {symbol: element.to_pyscf()}, conf.charge, spin)
+    mol = make_mole(atoms, {symbol: element.to_pyscf()}, conf.charge, spin, symmetry=True)
+    configure = _atom_solver(irrep_occupations(conf), m)
     label = f"{symbol} {conf.label}"
     if not reference:
-        return run_scf(mol, m, label)
-    return compare_with_stored(mol, atoms, basis, [symbol], conf.charge, spin, m, label)
+        return run_scf(mol, m, label, configure=configure)
+    return compare_with_stored(mol, atoms, basis, [symbol], conf.charge, spin, m, label, configure=configure)
 
 
 def check_structure(

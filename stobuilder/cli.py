@@ -49,7 +49,10 @@ def _parser() -> argparse.ArgumentParser:
     _add_rule(b)
     b.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
     b.add_argument(
-        "--code", action="append", metavar="CODE", help=f"output format, repeatable: {', '.join(formats())} (default nwchem)"
+        "--code",
+        action="append",
+        metavar="CODE",
+        help=f"output format, repeatable: {', '.join(formats())}, or all (default nwchem)",
     )
     b.add_argument("--out", default="basis", metavar="DIR", help="output folder (default ./basis)")
     b.add_argument("--force", action="store_true", help="overwrite existing output files")
@@ -58,7 +61,43 @@ def _parser() -> argparse.ArgumentParser:
     b.add_argument("--charge", type=int, help="total charge (overrides the file)")
     b.add_argument("--spin", type=int, help="2S, the number of unpaired electrons (overrides the file)")
     b.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    b.add_argument(
+        "--split-elements", action="store_true", help="one file per element: <structure>.<Symbol><extension>"
+    )
+    b.add_argument(
+        "--merge-into",
+        metavar="FILE",
+        help="add or replace our elements in this existing basis file (one format; the old file is kept as FILE.bak)",
+    )
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
+
+    f = sub.add_parser("formats", help="the basis-file formats: name, file extension, description")
+    f.add_argument("--json", action="store_true", help="print JSON")
+
+    a = sub.add_parser("batch", help="many structures: a process pool or a Dask cluster, a manifest, resume")
+    a.add_argument(
+        "inputs", nargs="+", metavar="INPUT",
+        help="structure files, folders (searched recursively by the extensions ASE reads) or @LIST files (one path a line)",
+    )
+    a.add_argument("--out", required=True, metavar="DIR", help="output folder; holds the files and the manifest")
+    a.add_argument("--workers", type=_whole_number, metavar="N", help="local worker processes (default: the usable cores)")
+    a.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786 (needs stobuilder[cluster])")
+    _add_rule(a)
+    a.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
+    a.add_argument(
+        "--code", action="append", metavar="CODE", help=f"output format, repeatable: {', '.join(formats())} (default nwchem)"
+    )
+    a.add_argument("--check", action="store_true", help="run PySCF SCF checks; an unconverged SCF fails the item")
+    a.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
+    a.add_argument("--charge", type=int, help="total charge of every structure (overrides the files)")
+    a.add_argument("--spin", type=int, help="2S of every structure (overrides the files)")
+    a.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    a.add_argument("--force", action="store_true", help="recompute every item, whatever the manifest says")
+    a.add_argument(
+        "--progress", choices=("auto", "bar", "lines", "off"), default="auto",
+        help="progress on stderr: a bar on a terminal, plain lines otherwise (default auto)",
+    )
+    a.add_argument("--json", action="store_true", help="print the summary as JSON")
 
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
@@ -78,7 +117,7 @@ def _cmd_build(args) -> int:
         args.structures,
         rule=args.rule,
         gaussians=args.gaussians,
-        codes=args.code or ["nwchem"],
+        codes=args.code,
         out_dir=args.out,
         check=args.check,
         force=args.force,
@@ -86,6 +125,8 @@ def _cmd_build(args) -> int:
         spin=args.spin,
         method=args.method,
         sp_shells=args.sp_shells,
+        split_elements=args.split_elements,
+        merge_into=args.merge_into,
     )
     if args.json:
         print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
@@ -132,6 +173,50 @@ def _build_table(report) -> str:
     return "\n".join(lines)
 
 
+# ---------------------------------------------------------------------------- batch
+
+
+def _cmd_batch(args) -> int:
+    from . import batch
+
+    if args.scheduler and args.workers is not None:
+        raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
+    if args.workers is not None and args.workers < 1:
+        raise InputError(f"--workers must be >= 1, got {args.workers}")
+    options = batch.BatchOptions(
+        rule=args.rule,
+        gaussians=args.gaussians,
+        codes=tuple(args.code or ["nwchem"]),
+        check=args.check,
+        method=args.method,
+        charge=args.charge,
+        spin=args.spin,
+        sp_shells=args.sp_shells,
+    ).validate()
+    items = batch.discover(args.inputs, exclude=args.out)
+    client = executor = None
+    if args.scheduler:
+        client, executor = batch.dask_executor(args.scheduler)
+    try:
+        summary = batch.run_batch(
+            items, options, args.out, executor=executor, workers=args.workers, force=args.force,
+            progress=batch.make_progress(len(items), args.progress),
+        )
+    finally:
+        if client is not None:
+            client.close()
+    if args.json:
+        print(json.dumps(summary.to_json(), indent=2))
+    else:
+        for path, error in summary.failures:
+            print(f"failed: {error}")
+        print(
+            f"{summary.total} structures: {summary.done} done, {summary.skipped} skipped (up to date), "
+            f"{summary.failed} failed, {summary.seconds:.1f} s; manifest {summary.manifest}"
+        )
+    return summary.exit_status
+
+
 # ---------------------------------------------------------------------------- zeta
 
 
@@ -166,7 +251,24 @@ def _cmd_zeta(args) -> int:
     return 0
 
 
-COMMANDS = {"build": _cmd_build, "zeta": _cmd_zeta}
+# ---------------------------------------------------------------------------- formats
+
+
+def _cmd_formats(args) -> int:
+    from .formats import formats
+
+    table = formats().values()
+    if args.json:
+        doc = {"formats": [{"name": f.name, "extension": f.extension, "description": f.description} for f in table]}
+        print(json.dumps(doc, indent=2))
+        return 0
+    print(f"{'name':<12}{'extension':<16}description")
+    for f in table:
+        print(f"{f.name:<12}{f.extension:<16}{f.description}")
+    return 0
+
+
+COMMANDS = {"build": _cmd_build, "batch": _cmd_batch, "zeta": _cmd_zeta, "formats": _cmd_formats}
 
 
 def main(argv=None) -> int:

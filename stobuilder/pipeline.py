@@ -13,8 +13,8 @@ from .basis import Basis
 from .build import build_basis
 from .checks import Check, check_structure
 from .errors import InputError
-from .files import check_targets, write_all
-from .formats import get_format
+from .files import atomic_write, check_targets, write_all
+from .formats import formats, get_format, merge_basis
 from .structures import Structure, elements_of, read_structures
 
 MAX_CHECK_FRAMES = 3
@@ -62,16 +62,89 @@ def basis_for(frames: Sequence[Structure], rule: str, gaussians: int, norm: str 
     return build_basis(elements, rule=rule, gaussians=gaussians, charge=charge, zeta=zeta, norm=norm)
 
 
-def output_path(path: str, out_dir: str, code: str) -> str:
+def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
+    """``<out_dir>/<structure stem><extension>``, or with ``symbol`` the per-element file
+    ``<out_dir>/<structure stem>.<Symbol><extension>`` (water.O.nw)."""
     stem = os.path.splitext(os.path.basename(path))[0] or "structure"
-    return os.path.join(out_dir, stem + get_format(code).extension)
+    middle = f".{symbol}" if symbol else ""
+    return os.path.join(out_dir, stem + middle + get_format(code).extension)
+
+
+def expand_codes(codes: Sequence[str]) -> list[str]:
+    """The format names, with "all" standing for every registered format; duplicates dropped."""
+    out: list[str] = []
+    for code in codes:
+        out.extend(formats() if code == "all" else [get_format(code).name])
+    return list(dict.fromkeys(out))
+
+
+def format_for_path(path: str) -> str:
+    """The format whose file extension ends ``path`` (the longest such extension wins)."""
+    hits = sorted((f for f in formats().values() if path.endswith(f.extension)), key=lambda f: -len(f.extension))
+    if not hits or (len(hits) > 1 and len(hits[0].extension) == len(hits[1].extension)):
+        raise InputError(f"{path}: cannot tell the format from the file name; name it with --code")
+    return hits[0].name
+
+
+def union_basis(bases: Sequence[Basis]) -> Basis:
+    """One basis with the elements of all ``bases``; an element must have the same shells in each."""
+    elements = {}
+    for basis in bases:
+        for e in basis.elements:
+            if e.symbol in elements and elements[e.symbol].shells != e.shells:
+                raise InputError(f"the structures give {e.symbol} two different bases (an ion and a neutral atom?)")
+            elements.setdefault(e.symbol, e)
+    first = bases[0]
+    return Basis(tuple(elements.values()), rule=first.rule, gaussians=first.gaussians, norm=first.norm)
+
+
+def backup_path(path: str) -> str:
+    """The first of ``path.bak``, ``path.bak2``, ``path.bak3`` … that does not exist."""
+    candidate, k = path + ".bak", 1
+    while os.path.lexists(candidate):
+        k += 1
+        candidate = f"{path}.bak{k}"
+    return candidate
+
+
+def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, source: str = "text") -> str:
+    """``merge_basis`` plus the proof that nothing was lost: the merged text reads back to the
+    old text's other elements unchanged and to our elements as written alone."""
+    fmt = get_format(code)
+    try:
+        before = fmt.entries_of(text)
+        merged = merge_basis(text, basis, code, sp_shells)
+        after = fmt.entries_of(merged)
+    except InputError as exc:
+        raise InputError(f"{source}: {exc}") from None
+    expected = before | fmt.entries_of(fmt.write(basis, sp_shells=sp_shells))
+    if after != expected:
+        raise InputError(f"{source}: merging would change entries it should keep; nothing written")
+    return merged
+
+
+def merge_file(path: str, basis: Basis, code: str | None = None, sp_shells: bool = False) -> tuple[str, str]:
+    """Add or replace the elements of ``basis`` in the basis file ``path`` (format ``code``, or
+    told by the file name). The old file is first copied to a backup (``backup_path``), then the
+    merged text replaces it; both writes are atomic. Returns (path, backup path)."""
+    code = code or format_for_path(path)
+    try:
+        with open(path, encoding="utf-8") as handle:
+            text = handle.read()
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a text file") from None
+    merged = merge_text(text, basis, code, sp_shells, source=path)
+    backup = backup_path(path)
+    atomic_write(backup, text)
+    atomic_write(path, merged)
+    return path, backup
 
 
 def build_structures(
     paths: Sequence[str],
     rule: str = "slater",
     gaussians: int = 3,
-    codes: Sequence[str] = ("nwchem",),
+    codes: Sequence[str] | None = None,
     out_dir: str = "basis",
     check: bool = False,
     force: bool = False,
@@ -83,13 +156,30 @@ def build_structures(
     sp_shells: bool = False,
     max_check_frames: int = MAX_CHECK_FRAMES,
     write: bool = True,
+    split_elements: bool = False,
+    merge_into: str | None = None,
 ) -> tuple[StructureReport, ...]:
     """Read every structure file, build its basis, write one file per structure and code, and
     (with ``check``) run the SCF checks. All inputs are read and every text is made before the
-    first file is written; an existing file is kept unless ``force``."""
+    first file is written; an existing file is kept unless ``force``.
+
+    codes           format names (``formats()``), "all" for every one; default nwchem, or with
+                    ``merge_into`` the format its file name tells
+    split_elements  one file per structure, code and element: ``<stem>.<Symbol><extension>``
+    merge_into      instead of new files, add or replace the elements of all structures in this
+                    existing basis file of one format (backed up first, see ``merge_file``)
+    """
     if not paths:
         raise InputError("no structure files given")
-    codes = list(dict.fromkeys(codes))
+    if merge_into is not None:
+        if split_elements:
+            raise InputError("--merge-into and --split-elements exclude each other")
+        codes = expand_codes(codes) if codes else [format_for_path(merge_into)]
+        if len(codes) != 1:
+            raise InputError(f"--merge-into {merge_into}: give exactly one format, not {', '.join(codes)}")
+        if not os.path.isfile(merge_into):
+            raise InputError(f"--merge-into {merge_into}: no such file")
+    codes = expand_codes(codes or ["nwchem"])
     fmts = [get_format(c) for c in codes]
     prepared = []
     contents: dict[str, str] = {}
@@ -98,25 +188,40 @@ def build_structures(
         frames = read_structures(path, charge=charge, spin=spin)
         basis = basis_for(frames, rule, gaussians, norm, _zeta_for(zeta, frames))
         files = {}
-        for fmt in fmts:
-            target = output_path(path, out_dir, fmt.name)
-            if target in sources:
-                raise InputError(f"{path} and {sources[target]} would both write {target}")
-            sources[target] = path
-            contents[target] = fmt.write(basis, sp_shells=sp_shells)
-            files[fmt.name] = target
+        for fmt in fmts if merge_into is None else ():
+            parts = [(e.symbol, Basis((e,), basis.rule, basis.gaussians, basis.norm, basis.notes)) for e in basis.elements]
+            for symbol, part in parts if split_elements else [(None, basis)]:
+                target = output_path(path, out_dir, fmt.name, symbol)
+                if target in sources:
+                    raise InputError(f"{path} and {sources[target]} would both write {target}")
+                sources[target] = path
+                contents[target] = fmt.write(part, sp_shells=sp_shells)
+                files[fmt.name + (f":{symbol}" if symbol else "")] = target
         prepared.append((path, frames, basis, files))
     if zeta:
         named = {s for s in zeta}
         present = {s for _, frames, _, _ in prepared for f in frames for s in f.symbols}
         if named - present:
             raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(named - present))}")
-    if write:
+    if merge_into is not None:
+        merged = union_basis([basis for _, _, basis, _ in prepared])
+        code = codes[0]
+        if write:
+            target, backup = merge_file(merge_into, merged, code, sp_shells)
+        else:
+            with open(merge_into, encoding="utf-8") as handle:
+                merge_text(handle.read(), merged, code, sp_shells, source=merge_into)
+            target, backup = merge_into, None
+        for _, _, _, files in prepared:
+            files[code] = target
+    elif write:
         check_targets(sources, force)
         write_all(contents, out_dir)
     reports = []
     for path, frames, basis, files in prepared:
         notes = tuple(n for f in frames for n in f.notes)
+        if merge_into is not None and write:
+            notes += (f"merged into {target}; its former text is in {backup}",)
         checks: tuple[Check, ...] = ()
         if check:
             checked = frames[:max_check_frames]

@@ -60,8 +60,11 @@ def test_build_check_json_has_the_fields(tmp_path, capsys):
     check = json.loads(out)["structures"][0]["check"]
     assert check["method"] == "RHF" and check["converged"] is True and check["iterations"] > 0
     assert check["reference_basis"] == "sto-3g"
-    # Same exponents and (refitted) coefficients as PySCF's stored STO-3G: same energy to 1e-6.
-    assert check["energy_hartree"] == pytest.approx(check["reference_energy_hartree"], abs=1e-6)
+    assert check["delta_hartree"] == check["energy_hartree"] - check["reference_energy_hartree"]
+    # Same ζ as PySCF's stored STO-3G, our refitted expansions: the published 2sp expansion is off
+    # the least-squares optimum, which moves the O atom by 2.0e-6 hartree
+    # (tests/test_molecular_energies.py proves it family by family); water moves by as much.
+    assert 1e-6 < check["delta_hartree"] < 3e-6
 
 
 def test_zeta_table_and_json(capsys):

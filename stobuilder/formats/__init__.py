@@ -1,5 +1,6 @@
-"""Output formats by name: each module describes itself once (NAME, EXTENSION, DESCRIPTION) and
-provides ``write(basis, sp_shells=False) -> str``. Adding a format is a new module and one line in
+"""Basis-file formats by name: each module describes itself once (NAME, EXTENSION, DESCRIPTION)
+and provides ``write(basis, sp_shells=False) -> str``, a strict ``read(text) -> Basis`` and
+``merge(text, basis, sp_shells=False) -> str``. Adding a format is a new module and one line in
 ``_MODULES`` (DEVELOPERS.md).
 """
 
@@ -12,30 +13,51 @@ from typing import Callable
 from ..basis import Basis
 from ..errors import InputError
 
-_MODULES = ("nwchem", "gaussian94", "pyscf_format")
+_MODULES = ("nwchem", "gaussian94", "pyscf_format", "psi4", "cp2k", "qcschema", "dalton", "molcas")
 
 
 @dataclass(frozen=True)
 class Format:
+    """One basis-file format.
+
+    write  (basis, sp_shells=False) -> text
+    read   (text) -> Basis with rule "file"; bad text raises InputError naming the line
+    merge  (text, basis, sp_shells=False) -> the text with the basis's elements added or replaced
+    """
+
     name: str
     extension: str
     description: str
     write: Callable[..., str]
+    read: Callable[[str], Basis] | None = None
+    merge: Callable[..., str] | None = None
+    entries: Callable[[str], dict] | None = None
+
+    def entries_of(self, text: str) -> dict:
+        """The text's entries: {symbol: shells}, or the format's own keys where a file may hold
+        several bases per element (CP2K: (symbol, NAME))."""
+        if self.entries is not None:
+            return self.entries(text)
+        return {e.symbol: e.shells for e in self.read(text).elements}
 
 
 def formats() -> dict[str, Format]:
-    """All registered output formats, by name, in registry order."""
+    """All registered formats, by name, in registry order."""
     out = {}
     for mod_name in _MODULES:
         mod = import_module(f"{__name__}.{mod_name}")
-        out[mod.NAME] = Format(mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write)
+        out[mod.NAME] = Format(
+            mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write, getattr(mod, "read", None),
+            getattr(mod, "merge", None),
+            getattr(mod, "entries", None),
+        )
     return out
 
 
 def get_format(name: str) -> Format:
     table = formats()
     if name not in table:
-        raise InputError(f"unknown output format {name!r}; choose one of {', '.join(table)}")
+        raise InputError(f"unknown basis format {name!r}; choose one of {', '.join(table)}")
     return table[name]
 
 
@@ -44,4 +66,24 @@ def write_basis(basis: Basis, code: str, sp_shells: bool = False) -> str:
     return get_format(code).write(basis, sp_shells=sp_shells)
 
 
-__all__ = ["Format", "formats", "get_format", "write_basis"]
+def read_basis(text: str, code: str) -> Basis:
+    """The basis in ``text``, a file in the format of ``code``: a Basis with rule "file" and the
+    shells as written (contraction coefficients of normalised primitives, exponents in bohr⁻²).
+    Strict: a truncated text, an unknown element, a non-numeric field or a missing terminator
+    raises InputError with a one-line message naming the line."""
+    fmt = get_format(code)
+    if fmt.read is None:
+        raise InputError(f"format {code!r} cannot be read")
+    return fmt.read(text)
+
+
+def merge_basis(text: str, basis: Basis, code: str, sp_shells: bool = False) -> str:
+    """``text`` (a file in the format of ``code``) with the elements of ``basis`` added, or put in
+    place of the text's own; the text's other elements and lines stay as they were."""
+    fmt = get_format(code)
+    if fmt.merge is None:
+        raise InputError(f"format {code!r} cannot be merged into")
+    return fmt.merge(text, basis, sp_shells=sp_shells)
+
+
+__all__ = ["Format", "formats", "get_format", "merge_basis", "read_basis", "write_basis"]

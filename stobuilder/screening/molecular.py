@@ -34,6 +34,9 @@ def table() -> dict:
 def shell_exponents(conf: Configuration) -> tuple[ShellExponent, ...]:
     """ζ of the published STO-3G shells of the element of ``conf`` (its configuration is not used)."""
     elements = table()["elements"]
+    excluded = table().get("excluded", {})
+    if conf.symbol in excluded:
+        raise InputError(f"the molecular rule has no exponents for {conf.symbol}: {excluded[conf.symbol]}; use --rule slater instead")
     if conf.symbol not in elements:
         covered = list(elements)
         raise InputError(

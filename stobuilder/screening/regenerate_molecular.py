@@ -38,14 +38,18 @@ EXPONENT_TOL = 1e-5  # relative: a block whose primitives disagree more than thi
 # Zr: the exponent sets of the 5SP and the valence D block are swapped: the 5SP block carries the
 #     [4s,4p,4d] exponents at ζ = 1.95 and the D block the [5s,5p] exponents at ζ = 1.90, while
 #     their coefficients are those of [5s,5p] and [4s,4p,4d]. We take 5s, 5p = 1.90, 4d = 1.95.
-# Y:  every block below 5SP carries exponents of a fit other than the one its coefficients
-#     belong to (3SP: [3s,3p] exponents; 4SP: [4s,4p]; the 3D block: the single-3d fit; the 4D
-#     block: the single-4d fit). ζ is derived from the exponents (the family they do match), and
-#     the 3d takes the ζ of the 3SP block as for every other element of Y–Cd.
 KNOWN_DEFECTS = {
     "Zr": "5SP and valence D exponent sets swapped in the file; zeta taken from the swapped blocks",
-    "Y": "exponents of 3SP, 4SP, 3D, 4D belong to other fits than their coefficients; zeta derived "
-    "from the fits the exponents match; 3d given the 3sp zeta",
+}
+# Y:  every block below 5SP carries exponents of a fit other than the one its coefficients
+#     belong to (3SP: [3s,3p] exponents; 4SP: [4s,4p]; the 3D block: the single-3d fit; the 4D
+#     block: the single-4d fit); the ζ they imply (4d 3.46 beside Zr 1.95, Nb 2.40; 5sp 1.24
+#     beside Sr 1.80, Zr 1.90) do not fit the row. The published values cannot be recovered from
+#     the transcription, so Y is left out of the table rather than given invented exponents.
+EXCLUDED = {
+    "Y": "PySCF's sto-3g.dat transcription of Y is internally inconsistent (exponents and "
+    "coefficients of its 3SP, 4SP, 3D and 4D blocks belong to different fits), so its published "
+    "exponents cannot be recovered",
 }
 
 
@@ -101,17 +105,6 @@ def classify(block: dict, gaussians: int):
     return best[1], best[2]
 
 
-def exponent_family(exponents, gaussians: int):
-    """The family whose ζ = 1 exponents are proportional to ``exponents`` (smallest spread)."""
-    best = None
-    for fam in library_families():
-        r = np.array(exponents) / np.array(lookup(list(fam), gaussians).exponents)
-        spread = r.max() / r.min() - 1
-        if best is None or spread < best[0]:
-            best = (spread, fam)
-    return best[1]
-
-
 def zeta_of(exponents, fit_exponents) -> float:
     r = np.log(np.array(exponents) / np.array(fit_exponents))
     return math.exp(0.5 * float(np.mean(r)))
@@ -131,6 +124,8 @@ def derive(path: str | None = None) -> dict[str, dict[str, float]]:
     path = path or pyscf_basis_file("sto-3g.dat")
     table = {}
     for symbol in element_symbols(path):
+        if symbol in EXCLUDED:
+            continue
         zetas: dict[str, float] = {}
         raw = blocks(path, symbol)
         if symbol == "Zr":  # swap the exponents of the 5SP block and the valence D block back
@@ -141,15 +136,12 @@ def derive(path: str | None = None) -> dict[str, dict[str, float]]:
             fam, fit = classify(block, 3)
             ex = block["exponents"]
             r = np.array(ex) / np.array(fit.exponents)
-            if np.max(np.abs(r / np.median(r) - 1)) > EXPONENT_TOL:  # Y: exponents from another fit (KNOWN_DEFECTS)
-                assert symbol in KNOWN_DEFECTS, f"{symbol}: unexpected inconsistent block {fam}"
-                fit = lookup(list(exponent_family(ex, 3)), 3)
+            if np.max(np.abs(r / np.median(r) - 1)) > EXPONENT_TOL:
+                raise ValueError(f"{symbol}: block {fam} is inconsistent; document it in EXCLUDED or KNOWN_DEFECTS")
             zeta = round_zeta(zeta_of(ex, fit.exponents))
             for l in sorted(block["coefficients"]):
                 label = next(x for x in fam if "spdf".index(x[1]) == l)
                 zetas[label] = zeta
-        if symbol == "Y":  # the 3d shares the 3sp ζ (KNOWN_DEFECTS)
-            zetas["3d"] = zetas["3s"]
         table[symbol] = dict(sorted(zetas.items(), key=lambda kv: (int(kv[0][0]), "spdf".index(kv[0][1]))))
     return dict(sorted(table.items(), key=lambda kv: atomic_number(kv[0])))
 
@@ -163,9 +155,10 @@ def render(table: dict) -> str:
         "PySCF's sto-3g.dat transcription by dividing its exponents by stobuilder's own zeta = 1 N = 3 fits "
         "(zeta = sqrt(alpha_stored / alpha_fit)); transcription defects handled: "
         + "; ".join(f"{k}: {v}" for k, v in KNOWN_DEFECTS.items())
-        + f". Regenerate: {COMMAND}"
+        + f". Left out: {', '.join(EXCLUDED)} (see 'excluded'). Regenerate: {COMMAND}"
     )
-    return json.dumps({"provenance": provenance, "elements": table}, indent=1, ensure_ascii=True) + "\n"
+    doc = {"provenance": provenance, "excluded": EXCLUDED, "elements": table}
+    return json.dumps(doc, indent=1, ensure_ascii=True) + "\n"
 
 
 def main(argv: list[str] | None = None) -> int:

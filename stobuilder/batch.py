@@ -1,0 +1,893 @@
+"""Batch runs over many structure files: a process pool or a Dask cluster, a manifest, resume.
+
+The flow of one batch::
+
+    inputs (files, folders, @lists) ──discover──▶ BatchItem(path, name) per structure file
+        ──plan── against the manifest: up to date → a "skipped" record; the rest → Task
+        ──executor.submit(run_item, task)──▶ ItemOutcome (texts, checks, error), in a worker
+        ──the client writes the files atomically and appends one record to the manifest
+
+Workers only read: they parse the structure, build (or take from their cache) the basis and make
+the texts; the process that runs the batch writes every file and every manifest record, so a
+worker that dies leaves nothing on disk, and a record is appended (flushed and fsynced) only after
+its files are in place. Any ``concurrent.futures.Executor`` runs the tasks: a local process pool
+by default, or ``distributed.Client(address).get_executor()`` on a Dask cluster (Rocklin, "Dask:
+parallel computation with blocked algorithms and task scheduling", Proc. SciPy 2015); cluster
+workers need to see the input paths (a shared file system), nothing else.
+
+Output names mirror the input layout: every item is named by its path relative to the common
+folder of the inputs (a folder argument counts as itself, a file as its parent folder), without
+its extension; ``DIR/<name><code extension>`` is its file for each code. Two items that would
+still share a name (``a.xyz`` and ``a.cif`` side by side) are a usage error.
+"""
+
+from __future__ import annotations
+
+import concurrent.futures as cf
+import fnmatch
+import hashlib
+import json
+import os
+import socket
+import sys
+import time
+from collections.abc import Callable, Iterable, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import datetime, timezone
+from functools import lru_cache
+
+from . import __version__
+from .errors import InputError
+
+MANIFEST_NAME = "stobuilder-batch.jsonl"
+STATUSES = ("done", "failed", "skipped")
+TEMP_PREFIX = ".stobuilder-"  # stobuilder.files.atomic_write's temporary files
+# Extensions ASE reads that, in a folder of structures, are almost always something else:
+# Markdown (ASE: CASTEP .md trajectories). Name such files explicitly to read them.
+SKIPPED_EXTENSIONS = frozenset({"md"})
+# ASE format names that are not file extensions (servers, folder formats).
+_NOT_EXTENSIONS = frozenset({"mysql", "postgresql", "bundletrajectory"})
+_COMPRESSIONS = ("gz", "bz2", "xz")
+MAX_POOL_RESTARTS = 2  # a local pool whose worker process died is rebuilt this often
+
+
+# ---------------------------------------------------------------------------- data
+
+
+@dataclass(frozen=True)
+class BatchOptions:
+    """Everything that decides an item's output; recorded with every item and compared on resume.
+
+    rule, gaussians, codes, sp_shells, norm  as for ``build_structures``
+    check             run the SCF checks (the first ``max_check_frames`` frames)
+    method            SCF method for the checks ("auto", "rhf", "rohf", "uhf")
+    charge, spin      override the file's charge (e) and 2S; None keeps the file's
+    """
+
+    rule: str = "slater"
+    gaussians: int = 3
+    codes: tuple[str, ...] = ("nwchem",)
+    check: bool = False
+    method: str = "auto"
+    charge: int | None = None
+    spin: int | None = None
+    sp_shells: bool = False
+    norm: str = "l2"
+    max_check_frames: int = 3
+
+    def validate(self) -> "BatchOptions":
+        """Return the options with codes de-duplicated; raise InputError for a bad value."""
+        from .checks import METHODS
+        from .formats import get_format
+        from .screening import get_rule
+
+        get_rule(self.rule)
+        if not self.codes:
+            raise InputError("no output format given")
+        for code in self.codes:
+            get_format(code)
+        if isinstance(self.gaussians, bool) or not isinstance(self.gaussians, int) or self.gaussians < 1:
+            raise InputError(f"--gaussians must be a whole number >= 1, got {self.gaussians!r}")
+        if self.method not in METHODS:
+            raise InputError(f"unknown SCF method {self.method!r}; choose one of {', '.join(METHODS)}")
+        if self.max_check_frames < 1:
+            raise InputError(f"max_check_frames must be >= 1, got {self.max_check_frames}")
+        return replace(self, codes=tuple(dict.fromkeys(self.codes)))
+
+    def to_json(self) -> dict:
+        return {
+            "rule": self.rule,
+            "gaussians": self.gaussians,
+            "codes": list(self.codes),
+            "check": self.check,
+            "method": self.method,
+            "charge": self.charge,
+            "spin": self.spin,
+            "sp_shells": self.sp_shells,
+            "norm": self.norm,
+            "max_check_frames": self.max_check_frames,
+            "stobuilder": __version__,
+        }
+
+
+@dataclass(frozen=True)
+class BatchItem:
+    """One structure file of a batch.
+
+    path  absolute path of the structure file
+    name  output name relative to the output folder, without extension, "/"-separated ("sub/x")
+    """
+
+    path: str
+    name: str
+
+    def output_files(self, codes: Iterable[str]) -> dict[str, str]:
+        """code → output path relative to the output folder."""
+        from .formats import get_format
+
+        return {code: self.name + get_format(code).extension for code in codes}
+
+
+@dataclass(frozen=True)
+class Task:
+    """What a worker gets: one item, the options, and the OpenMP threads for its SCF checks."""
+
+    item: BatchItem
+    options: BatchOptions
+    threads: int = 1
+
+
+@dataclass(frozen=True)
+class ItemOutcome:
+    """What a worker returns for one item. ``error`` is None when the item is done.
+
+    texts     (code, path relative to the output folder, file text) per code
+    checks    Check.to_json() per checked frame
+    timings   seconds per stage: read_s, basis_s, check_s, total_s
+    """
+
+    item: BatchItem
+    input_sha256: str | None
+    texts: tuple[tuple[str, str, str], ...] = ()
+    elements: tuple[str, ...] = ()
+    formula: str | None = None
+    frames: int = 0
+    charge: int | None = None
+    spin: int | None = None
+    checks: tuple[dict, ...] = ()
+    notes: tuple[str, ...] = ()
+    error: str | None = None
+    timings: Mapping[str, float] = field(default_factory=dict)
+    worker: str = ""
+
+
+@dataclass(frozen=True)
+class BatchSummary:
+    """The outcome of ``run_batch``: counts by final status, the failures, the wall time (s)."""
+
+    out_dir: str
+    manifest: str
+    total: int
+    done: int
+    skipped: int
+    failed: int
+    failures: tuple[tuple[str, str], ...]  # (input path, error message)
+    seconds: float
+
+    @property
+    def exit_status(self) -> int:
+        """0 when every item is done or skipped, 1 when any failed."""
+        return 1 if self.failed else 0
+
+    def to_json(self) -> dict:
+        return {
+            "out_dir": self.out_dir,
+            "manifest": self.manifest,
+            "total": self.total,
+            "done": self.done,
+            "skipped": self.skipped,
+            "failed": self.failed,
+            "failures": [{"input": p, "error": e} for p, e in self.failures],
+            "seconds": round(self.seconds, 3),
+        }
+
+
+# ---------------------------------------------------------------------------- inputs
+
+
+@lru_cache(maxsize=1)
+def structure_extensions() -> frozenset[str]:
+    """File extensions (lower case, no dot) that ASE reads: every readable format's extensions and
+    the readable format names themselves (ASE takes an unknown extension as a format name), less
+    SKIPPED_EXTENSIONS."""
+    from ase.io.formats import ioformats
+
+    exts = set()
+    for name, fmt in ioformats.items():
+        if not fmt.can_read:
+            continue
+        exts.update(e.lower() for e in fmt.extensions)
+        if name.isalnum() and name not in _NOT_EXTENSIONS:
+            exts.add(name.lower())
+    return frozenset(exts - SKIPPED_EXTENSIONS)
+
+
+@lru_cache(maxsize=1)
+def _structure_globs() -> tuple[str, ...]:
+    from ase.io.formats import ioformats
+
+    return tuple(sorted({g for fmt in ioformats.values() if fmt.can_read for g in fmt.globs}))
+
+
+def is_structure_name(filename: str) -> bool:
+    """True when ASE would recognise the file by its name: a readable extension (optionally
+    compressed: .gz, .bz2, .xz) or one of ASE's file-name patterns (POSCAR, CONTCAR, ...)."""
+    base = os.path.basename(filename)
+    if base.startswith("."):
+        return False
+    root, ext = os.path.splitext(base)
+    if ext[1:].lower() in _COMPRESSIONS:
+        base = root
+        root, ext = os.path.splitext(base)
+    if ext and ext[1:].lower() in structure_extensions():
+        return True
+    return any(fnmatch.fnmatchcase(base, g) for g in _structure_globs())
+
+
+def read_list(path: str) -> list[str]:
+    """The paths in a list file: one per line; blank lines and lines starting with # are skipped;
+    relative paths are relative to the list file's folder."""
+    try:
+        with open(path, encoding="utf-8") as handle:
+            lines = handle.read().splitlines()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the list file ({exc.strerror})") from None
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: the list file is not UTF-8 text") from None
+    base = os.path.dirname(os.path.abspath(path))
+    out = []
+    for line in lines:
+        entry = line.strip()
+        if entry and not entry.startswith("#"):
+            out.append(os.path.normpath(os.path.join(base, os.path.expanduser(entry))))
+    return out
+
+
+def _walk(folder: str, exclude: str | None) -> list[str]:
+    found = []
+    for root, dirs, files in os.walk(folder):
+        dirs[:] = sorted(
+            d for d in dirs if not d.startswith(".") and os.path.join(root, d) != exclude
+        )
+        found.extend(os.path.join(root, f) for f in files if is_structure_name(f))
+    return sorted(found, key=lambda p: os.path.relpath(p, folder).split(os.sep))
+
+
+def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchItem, ...]:
+    """The structure files named by ``inputs``, each with its output name.
+
+    Parameters
+    ----------
+    inputs : structure files (read whatever their name), folders (searched recursively for the
+        names ``is_structure_name`` accepts; hidden files and folders skipped) and ``@FILE`` list
+        files (see ``read_list``; entries may be files or folders).
+    exclude : a folder not to search (the output folder).
+
+    Names are the paths relative to the common folder of all inputs, without the extension;
+    a file given twice is one item. Raises InputError for a missing input, no structure files at
+    all, or two items with the same name.
+    """
+    if not inputs:
+        raise InputError("no inputs given")
+    exclude = os.path.abspath(exclude) if exclude else None
+    files: list[str] = []
+    anchors: list[str] = []
+
+    def add(path: str, origin: str) -> None:
+        path = os.path.abspath(path)
+        if os.path.isdir(path):
+            anchors.append(path)
+            files.extend(_walk(path, exclude))
+        elif os.path.exists(path):
+            anchors.append(os.path.dirname(path))
+            files.append(path)
+        else:
+            raise InputError(f"{origin}: no such file or folder")
+
+    for arg in inputs:
+        if arg.startswith("@"):
+            listed = read_list(arg[1:])
+            for entry in listed:
+                add(entry, f"{entry} (listed in {arg[1:]})")
+        else:
+            add(arg, arg)
+    unique = list(dict.fromkeys(files))
+    if not unique:
+        raise InputError(f"no structure files found in {', '.join(inputs)}")
+    root = os.path.commonpath(anchors)
+    items, seen = [], {}
+    for path in unique:
+        rel = os.path.relpath(path, root)
+        stem = rel
+        if os.path.splitext(stem)[1][1:].lower() in _COMPRESSIONS:
+            stem = os.path.splitext(stem)[0]
+        stem = os.path.splitext(stem)[0] or stem
+        name = stem.replace(os.sep, "/")
+        if name in seen:
+            raise InputError(f"{path} and {seen[name]} would both be named {name!r} in the output folder; rename one")
+        seen[name] = path
+        items.append(BatchItem(path, name))
+    return tuple(items)
+
+
+def sha256_file(path: str) -> str:
+    """SHA-256 of a file's bytes (hex)."""
+    digest = hashlib.sha256()
+    with open(path, "rb") as handle:
+        for block in iter(lambda: handle.read(1 << 20), b""):
+            digest.update(block)
+    return digest.hexdigest()
+
+
+# ---------------------------------------------------------------------------- the worker
+
+
+def basis_key(frames, options: BatchOptions) -> tuple:
+    """The content key of an item's basis: everything ``pipeline.basis_for`` looks at (the
+    element set; for single-atom structures, the ion charges) and the options that shape it."""
+    from .structures import elements_of
+
+    single_atom = all(len(f.symbols) == 1 for f in frames)
+    charges = tuple(sorted({f.charge for f in frames})) if single_atom else ()
+    return (elements_of(tuple(frames)), single_atom, charges, options.rule, options.gaussians, options.norm)
+
+
+_BASIS_CACHE: dict[tuple, object] = {}
+_TEXT_CACHE: dict[tuple, str] = {}
+_CACHE_LIMIT = 4096  # distinct element sets kept per worker process
+
+
+def _cached_basis(key: tuple, frames, options: BatchOptions):
+    """One basis construction per content key and worker process."""
+    from .pipeline import basis_for
+
+    basis = _BASIS_CACHE.get(key)
+    if basis is None:
+        basis = basis_for(frames, options.rule, options.gaussians, options.norm)
+        if len(_BASIS_CACHE) >= _CACHE_LIMIT:
+            _BASIS_CACHE.clear()
+            _TEXT_CACHE.clear()
+        _BASIS_CACHE[key] = basis
+    return basis
+
+
+def _cached_text(key: tuple, basis, code: str, sp_shells: bool) -> str:
+    from .formats import write_basis
+
+    text_key = (key, code, sp_shells)
+    text = _TEXT_CACHE.get(text_key)
+    if text is None:
+        text = _TEXT_CACHE[text_key] = write_basis(basis, code, sp_shells=sp_shells)
+    return text
+
+
+def _named(path: str, message: str) -> str:
+    message = " ".join(message.split())
+    return message if message.startswith(path) else f"{path}: {message}"
+
+
+def run_item(task: Task) -> ItemOutcome:
+    """Read one structure file, make its basis texts and (with ``check``) run its SCF checks.
+
+    The worker function of every batch: top level and picklable, it reads but never writes, and
+    reports every problem of the item (unreadable file, element beyond the rule, SCF not
+    converged) in ``ItemOutcome.error`` instead of raising.
+    """
+    from .checks import check_structure
+    from .structures import elements_of, read_structures
+
+    item, options = task.item, task.options
+    start = time.perf_counter()
+    timings: dict[str, float] = {}
+    worker = f"{socket.gethostname()}:{os.getpid()}"
+    sha = None
+    try:
+        sha = sha256_file(item.path)
+    except OSError as exc:
+        return ItemOutcome(item, None, error=f"{item.path}: cannot read ({exc.strerror})", worker=worker,
+                           timings={"total_s": time.perf_counter() - start})
+    partial: dict = {}
+    try:
+        frames = read_structures(item.path, charge=options.charge, spin=options.spin)
+        first = frames[0]
+        partial = dict(
+            elements=elements_of(frames),
+            formula=first.formula,
+            frames=len(frames),
+            charge=first.charge,
+            spin=first.spin,
+        )
+        timings["read_s"] = time.perf_counter() - start
+        t = time.perf_counter()
+        key = basis_key(frames, options)
+        basis = _cached_basis(key, frames, options)
+        paths = item.output_files(options.codes)
+        texts = tuple((code, paths[code], _cached_text(key, basis, code, options.sp_shells)) for code in options.codes)
+        partial["texts"] = texts
+        timings["basis_s"] = time.perf_counter() - t
+        notes = tuple(n for f in frames for n in f.notes)
+        checks: tuple[dict, ...] = ()
+        error = None
+        if options.check:
+            t = time.perf_counter()
+            checked = frames[: options.max_check_frames]
+            results = _run_checks(checked, basis, options.method, task.threads, check_structure)
+            checks = tuple(c.to_json() for c in results)
+            if len(frames) > len(checked):
+                notes += (f"checked the first {len(checked)} of {len(frames)} frames",)
+            timings["check_s"] = time.perf_counter() - t
+            bad = [f.frame for f, c in zip(checked, results) if not c.converged]
+            if bad:
+                which = "" if len(frames) == 1 else f" (frame {', '.join(map(str, bad))})"
+                error = f"{item.path}: SCF not converged{which}"
+        timings["total_s"] = time.perf_counter() - start
+        return ItemOutcome(item, sha, checks=checks, notes=notes, error=error, timings=timings, worker=worker, **partial)
+    except InputError as exc:
+        message = _named(item.path, str(exc))
+    except Exception as exc:  # an engine failure of one item must not stop the batch
+        message = _named(item.path, f"{type(exc).__name__}: {exc}")
+    timings["total_s"] = time.perf_counter() - start
+    partial.pop("texts", None)
+    return ItemOutcome(item, sha, error=message, timings=timings, worker=worker, **partial)
+
+
+def _run_checks(frames, basis, method, threads, check_structure):
+    """SCF checks with PySCF's OpenMP threads limited to ``threads``: a batch runs one item per
+    core, and a small molecule's SCF is slower on two threads than on one (measured here)."""
+    from pyscf import lib
+
+    with lib.with_omp_threads(threads):
+        return tuple(check_structure(f, basis, method=method) for f in frames)
+
+
+# ---------------------------------------------------------------------------- the manifest
+
+
+def manifest_path(out_dir: str) -> str:
+    return os.path.join(out_dir, MANIFEST_NAME)
+
+
+def read_manifest(path: str) -> dict[str, dict]:
+    """The last record of every input in a manifest (input path → record). A torn last line (the
+    run was killed while appending) is ignored; any other bad line is an InputError."""
+    last: dict[str, dict] = {}
+    if not os.path.exists(path):
+        return last
+    with open(path, encoding="utf-8") as handle:
+        lines = handle.read().split("\n")
+    for number, line in enumerate(lines, 1):
+        if not line.strip():
+            continue
+        try:
+            record = json.loads(line)
+        except json.JSONDecodeError:
+            if number == len(lines):  # no newline after it: a torn final append
+                continue
+            raise InputError(f"{path}: line {number} is not a JSON record") from None
+        if not isinstance(record, dict) or "input" not in record or record.get("status") not in STATUSES:
+            raise InputError(f"{path}: line {number} is not a batch record")
+        last[record["input"]] = record
+    return last
+
+
+def is_up_to_date(record: Mapping | None, input_sha256: str | None, options: BatchOptions,
+                  item: BatchItem, out_dir: str) -> bool:
+    """True when ``record`` (the item's last) says done (or skipped after done) for the same input
+    bytes and options, and every file it names still exists with the recorded hash."""
+    if not record or record.get("status") not in ("done", "skipped") or input_sha256 is None:
+        return False
+    if record.get("input_sha256") != input_sha256 or record.get("options") != options.to_json():
+        return False
+    files = record.get("files") or {}
+    if files.keys() != item.output_files(options.codes).keys():
+        return False
+    for code, entry in files.items():
+        if entry.get("path") != item.output_files([code])[code]:
+            return False
+        target = os.path.join(out_dir, entry["path"])
+        try:
+            if sha256_file(target) != entry.get("sha256"):
+                return False
+        except OSError:
+            return False
+    return True
+
+
+def outcome_record(outcome: ItemOutcome, options: BatchOptions, files: Mapping[str, Mapping[str, str]]) -> dict:
+    """The manifest record of a finished item (status done or failed)."""
+    return {
+        "input": outcome.item.path,
+        "name": outcome.item.name,
+        "input_sha256": outcome.input_sha256,
+        "options": options.to_json(),
+        "status": "failed" if outcome.error else "done",
+        "files": {code: dict(entry) for code, entry in files.items()},
+        "elements": list(outcome.elements),
+        "formula": outcome.formula,
+        "frames": outcome.frames,
+        "charge": outcome.charge,
+        "spin": outcome.spin,
+        "checks": list(outcome.checks),
+        "notes": list(outcome.notes),
+        "error": outcome.error,
+        "timings": {k: round(v, 6) for k, v in outcome.timings.items()} | {"finished_utc": _utc_now()},
+        "worker": outcome.worker,
+    }
+
+
+def skipped_record(previous: Mapping) -> dict:
+    """The record of an item found up to date: its previous record with status skipped."""
+    record = dict(previous)
+    record["status"] = "skipped"
+    record["timings"] = {"finished_utc": _utc_now()}
+    record["worker"] = ""
+    return record
+
+
+def _utc_now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
+
+
+class _Manifest:
+    """The open manifest: an exclusive lock (one batch per folder), appends flushed and fsynced."""
+
+    def __init__(self, path: str):
+        self.path = path
+        self.handle = open(path, "a", encoding="utf-8", newline="\n")
+        try:
+            import fcntl
+
+            fcntl.flock(self.handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except ImportError:  # no fcntl (Windows): no lock
+            pass
+        except OSError:
+            self.handle.close()
+            raise InputError(f"{path}: another batch is running on this output folder") from None
+        self._drop_torn_line()
+
+    def _drop_torn_line(self) -> None:
+        """A run killed while appending leaves a last line without its newline: an unfinished
+        record, dropped (we hold the lock, so nobody else is writing)."""
+        end = os.path.getsize(self.path)
+        with open(self.path, "rb") as check:
+            if end == 0 or (check.seek(end - 1), check.read(1))[1] == b"\n":
+                return
+            keep, position = 0, end
+            while position > 0:  # back, block by block, to the last newline
+                start = max(0, position - 65536)
+                check.seek(start)
+                found = check.read(position - start).rfind(b"\n")
+                if found >= 0:
+                    keep = start + found + 1
+                    break
+                position = start
+        self.handle.truncate(keep)
+        self.handle.seek(0, os.SEEK_END)
+
+    def append(self, records: Sequence[dict]) -> None:
+        if not records:
+            return
+        self.handle.write("".join(json.dumps(r, sort_keys=False) + "\n" for r in records))
+        self.handle.flush()
+        os.fsync(self.handle.fileno())
+
+    def close(self) -> None:
+        self.handle.close()
+
+
+# ---------------------------------------------------------------------------- progress
+
+
+class LineProgress:
+    """Plain progress lines, at most one per ``interval`` seconds and one at the end, for logs."""
+
+    def __init__(self, total: int, stream=None, interval: float = 10.0, clock: Callable[[], float] = time.monotonic):
+        self.total, self.stream, self.interval, self.clock = total, stream or sys.stderr, interval, clock
+        self.counts = dict.fromkeys(STATUSES, 0)
+        self.start = self.clock()
+        self.last = self.start
+        self.computed = 0
+
+    def update(self, status: str) -> None:
+        self.counts[status] += 1
+        if status != "skipped":
+            self.computed += 1
+        now = self.clock()
+        if now - self.last >= self.interval:
+            self.last = now
+            self._line(now)
+
+    def _line(self, now: float) -> None:
+        finished = sum(self.counts.values())
+        elapsed = max(now - self.start, 1e-9)
+        rate = self.computed / elapsed
+        left = self.total - finished
+        eta = f", about {left / rate:.0f} s left" if rate > 0 and left else ""
+        print(
+            f"stobuilder batch: {finished}/{self.total} (done {self.counts['done']}, skipped "
+            f"{self.counts['skipped']}, failed {self.counts['failed']}), {rate:.1f} items/s{eta}",
+            file=self.stream,
+            flush=True,
+        )
+
+    def close(self) -> None:
+        self._line(self.clock())
+
+
+class BarProgress:
+    """A tqdm progress bar (count, rate, estimate) with the done/skipped/failed counts."""
+
+    def __init__(self, total: int, stream=None):
+        from tqdm import tqdm
+
+        self.counts = dict.fromkeys(STATUSES, 0)
+        self.bar = tqdm(total=total, file=stream or sys.stderr, unit="item", desc="stobuilder batch", dynamic_ncols=True)
+
+    def update(self, status: str) -> None:
+        self.counts[status] += 1
+        self.bar.set_postfix(self.counts, refresh=False)
+        self.bar.update(1)
+
+    def close(self) -> None:
+        self.bar.close()
+
+
+class NoProgress:
+    def update(self, status: str) -> None:
+        pass
+
+    def close(self) -> None:
+        pass
+
+
+def make_progress(total: int, mode: str = "auto", stream=None, interval: float = 10.0):
+    """"bar" (tqdm), "lines" (LineProgress), "off", or "auto": a bar when ``stream`` (stderr) is a
+    terminal and tqdm is installed, plain lines otherwise."""
+    stream = stream or sys.stderr
+    if mode == "auto":
+        tty = hasattr(stream, "isatty") and stream.isatty()
+        try:
+            import tqdm  # noqa: F401
+        except ImportError:
+            tty = False
+        mode = "bar" if tty else "lines"
+    if mode == "bar":
+        try:
+            return BarProgress(total, stream)
+        except ImportError:
+            raise InputError("--progress bar needs tqdm: pip install tqdm") from None
+    if mode == "lines":
+        return LineProgress(total, stream, interval)
+    if mode == "off":
+        return NoProgress()
+    raise InputError(f"unknown progress mode {mode!r}; choose auto, bar, lines or off")
+
+
+# ---------------------------------------------------------------------------- running a batch
+
+
+def prepare_out_dir(out_dir: str, force: bool) -> None:
+    """Create the output folder. A folder that holds files but no manifest is refused unless
+    ``force`` (the batch would overwrite files it does not own)."""
+    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
+        raise InputError(f"{out_dir}: exists and is not a folder")
+    if os.path.isdir(out_dir) and not force and not os.path.exists(manifest_path(out_dir)):
+        if any(not e.startswith(".") for e in os.listdir(out_dir)):
+            raise InputError(f"{out_dir}: the folder holds files but no batch manifest; use --force to write into it")
+    try:
+        os.makedirs(out_dir, exist_ok=True)
+    except OSError as exc:
+        raise InputError(f"{out_dir}: cannot create the output folder ({exc.strerror})") from None
+
+
+def _remove_stale_temporaries(out_dir: str) -> None:
+    """Temporary files of atomic writes cut short by a killed run (we hold the folder's lock)."""
+    for root, _, files in os.walk(out_dir):
+        for f in files:
+            if f.startswith(TEMP_PREFIX) and f.endswith(".tmp"):
+                os.unlink(os.path.join(root, f))
+
+
+def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str]]:
+    """Write an item's texts atomically; return code → {"path", "sha256"} (paths relative)."""
+    from .files import atomic_write, sha256_text
+
+    files = {}
+    for code, rel, text in outcome.texts:
+        target = os.path.join(out_dir, *rel.split("/"))
+        os.makedirs(os.path.dirname(target), exist_ok=True)
+        atomic_write(target, text)
+        files[code] = {"path": rel, "sha256": sha256_text(text)}
+    return files
+
+
+def default_workers() -> int:
+    """The cores this process may use."""
+    try:
+        return len(os.sched_getaffinity(0))
+    except AttributeError:
+        return os.cpu_count() or 1
+
+
+def local_executor(workers: int) -> cf.Executor:
+    """A process pool of ``workers`` processes, started by spawn (no inherited threads or state)."""
+    import multiprocessing
+
+    return cf.ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
+
+
+def run_batch(
+    items: Sequence[BatchItem],
+    options: BatchOptions,
+    out_dir: str,
+    executor: cf.Executor | None = None,
+    workers: int | None = None,
+    force: bool = False,
+    progress=None,
+    threads: int = 1,
+) -> BatchSummary:
+    """Run a batch: skip the items the manifest shows up to date, compute the rest, record all.
+
+    Parameters
+    ----------
+    items : from ``discover``.
+    options : the build options (validated here).
+    out_dir : output folder; holds the files and the manifest ``MANIFEST_NAME``.
+    executor : any concurrent.futures Executor, e.g. ``distributed.Client(addr).get_executor()``;
+        None runs a local process pool of ``workers`` processes (default: the usable cores),
+        rebuilt (at most MAX_POOL_RESTARTS times) if one of its processes dies.
+    force : recompute every item, whatever the manifest says.
+    progress : an object with update(status) and close(), e.g. ``make_progress(len(items))``.
+    threads : OpenMP threads per item for the SCF checks.
+
+    Every finished item gets one record, appended and fsynced after its files are written; an
+    item's problem becomes a failed record and never stops the batch.
+    """
+    start = time.perf_counter()
+    options = options.validate()
+    prepare_out_dir(out_dir, force)
+    path = manifest_path(out_dir)
+    manifest = _Manifest(path)
+    progress = progress or NoProgress()
+    final: dict[str, dict] = {}
+    try:
+        _remove_stale_temporaries(out_dir)
+        previous = {} if force else read_manifest(path)
+        todo, skipped = [], []
+        for item in items:
+            try:
+                sha = sha256_file(item.path)
+            except OSError:
+                sha = None  # the worker records why
+            record = previous.get(item.path)
+            if is_up_to_date(record, sha, options, item, out_dir):
+                skipped.append(skipped_record(record))
+            else:
+                todo.append(Task(item, options, threads))
+        manifest.append(skipped)
+        for record in skipped:
+            final[record["input"]] = record
+            progress.update("skipped")
+
+        def finish(outcome: ItemOutcome) -> None:
+            try:
+                files = write_outcome(outcome, out_dir)
+            except OSError as exc:
+                where = exc.filename or out_dir
+                outcome = replace(outcome, texts=(), error=f"{outcome.item.path}: cannot write {where} ({exc.strerror})")
+                files = {}
+            record = outcome_record(outcome, options, files)
+            manifest.append([record])
+            final[record["input"]] = record
+            progress.update(record["status"])
+
+        if todo:
+            if executor is not None:
+                _run_on(executor, todo, finish)
+            else:
+                _run_local(todo, workers or default_workers(), finish)
+    finally:
+        manifest.close()
+        progress.close()
+    failures = tuple((p, r["error"]) for p, r in final.items() if r["status"] == "failed")
+    counts = {s: sum(1 for r in final.values() if r["status"] == s) for s in STATUSES}
+    return BatchSummary(out_dir, path, len(final), counts["done"], counts["skipped"], counts["failed"],
+                        failures, time.perf_counter() - start)
+
+
+def _worker_failure(task: Task, exc: BaseException) -> ItemOutcome:
+    reason = " ".join(str(exc).split()) or type(exc).__name__
+    return ItemOutcome(task.item, None, error=f"{task.item.path}: the worker failed ({type(exc).__name__}: {reason})")
+
+
+def _run_on(executor: cf.Executor, tasks: Sequence[Task], finish) -> None:
+    """Run the tasks on a caller's executor; a task that raises (a worker lost for good) is a
+    failed item."""
+    futures = {executor.submit(run_item, t): t for t in tasks}
+    try:
+        for future in cf.as_completed(futures):
+            try:
+                outcome = future.result()
+            except Exception as exc:
+                outcome = _worker_failure(futures[future], exc)
+            finish(outcome)
+    except BaseException:
+        for future in futures:
+            future.cancel()
+        raise
+
+
+def _run_local(tasks: Sequence[Task], workers: int, finish) -> None:
+    """Run the tasks on our own process pool; when a worker process dies the pool breaks, and the
+    unfinished tasks go to a new pool (MAX_POOL_RESTARTS times, then they fail)."""
+    from concurrent.futures.process import BrokenProcessPool
+
+    pending = list(tasks)
+    for attempt in range(MAX_POOL_RESTARTS + 1):
+        broken: list[Task] = []
+        pool = local_executor(min(workers, len(pending)))
+        completed = False
+        try:
+            futures = {pool.submit(run_item, t): t for t in pending}
+            for future in cf.as_completed(futures):
+                try:
+                    outcome = future.result()
+                except BrokenProcessPool as exc:
+                    if attempt < MAX_POOL_RESTARTS:
+                        broken.append(futures[future])
+                        continue
+                    outcome = _worker_failure(futures[future], exc)
+                except Exception as exc:
+                    outcome = _worker_failure(futures[future], exc)
+                finish(outcome)
+            completed = True
+        finally:
+            # on Ctrl-C or an error, do not wait for the queued tasks
+            pool.shutdown(wait=completed, cancel_futures=not completed)
+        if not broken:
+            return
+        pending = broken
+
+
+def dask_executor(address: str):
+    """A Client connected to the Dask scheduler at ``address`` and its Executor (pure=False:
+    every submission runs). Needs dask.distributed (``pip install stobuilder[cluster]``)."""
+    try:
+        from distributed import Client
+    except ImportError:
+        raise InputError("--scheduler needs dask.distributed: pip install 'stobuilder[cluster]'") from None
+    try:
+        client = Client(address, timeout="10s")
+    except (OSError, TimeoutError) as exc:
+        raise InputError(f"{address}: cannot reach the Dask scheduler ({exc})") from None
+    return client, client.get_executor(pure=False)
+
+
+__all__ = [
+    "BatchItem",
+    "BatchOptions",
+    "BatchSummary",
+    "ItemOutcome",
+    "MANIFEST_NAME",
+    "Task",
+    "dask_executor",
+    "discover",
+    "is_structure_name",
+    "is_up_to_date",
+    "make_progress",
+    "read_list",
+    "read_manifest",
+    "run_batch",
+    "run_item",
+    "structure_extensions",
+]
