@@ -32,13 +32,12 @@ import scipy.linalg
 import scipy.optimize
 
 from . import sto
-from .elements import L_LETTERS, Configuration, capacity, parse_subshell_label, resolve
+from .elements import L_LETTERS, M_FILL_ORDER, Configuration, capacity, parse_subshell_label, resolve
 from .errors import InputError
 from .screening import ShellExponent, basis_subshells, shell_exponents
 
 METHODS = ("auto", "rhf", "rohf", "uhf")
 TERM_LETTERS = "SPDFGHIK"
-M_FILL_ORDER = {l: tuple([x for m in range(1, l + 1) for x in (m, -m)] + [0]) for l in range(4)}
 _M_NAMES = {
     0: {0: ""},
     1: {1: "x", -1: "y", 0: "z"},

@@ -12,7 +12,7 @@ import time
 from dataclasses import dataclass, field
 
 from .basis import Basis
-from .elements import ground_state, parse_configuration
+from .elements import M_FILL_ORDER, ground_state, parse_configuration
 from .errors import InputError
 from .structures import Structure
 
@@ -57,21 +57,48 @@ class ScfResult:
 
 
 @dataclass(frozen=True)
+class ExactAtom:
+    """A free atom computed with the exact STOs of its basis and with their Gaussian expansion
+    (same configuration, same determinant), energies in hartree."""
+
+    symbol: str
+    state: str
+    energy_exact_hartree: float
+    energy_gaussian_hartree: float
+
+    @property
+    def expansion_error_hartree(self) -> float:
+        return self.energy_gaussian_hartree - self.energy_exact_hartree
+
+    def to_json(self) -> dict:
+        return {
+            "symbol": self.symbol,
+            "state": self.state,
+            "energy_exact_hartree": self.energy_exact_hartree,
+            "energy_gaussian_hartree": self.energy_gaussian_hartree,
+            "expansion_error_hartree": self.expansion_error_hartree,
+        }
+
+
+@dataclass(frozen=True)
 class Check:
-    """The check of one structure frame: either the structure itself or its free atoms."""
+    """The check of one structure frame: either the structure itself or its free atoms, plus the
+    exact-STO free atoms of its elements."""
 
     target: str  # "structure" or "free atoms"
     reason: str  # why free atoms were checked instead, "" otherwise
     results: tuple[ScfResult, ...] = field(default=())
+    exact_atoms: tuple[ExactAtom, ...] = field(default=())
 
     @property
     def converged(self) -> bool:
         return all(r.converged for r in self.results)
 
     def to_json(self) -> dict:
+        exact = [a.to_json() for a in self.exact_atoms]
         if self.target == "structure":
             (r,) = self.results
-            out = {"target": self.target, **r.to_json()}
+            out = {"target": self.target, **r.to_json(), "exact_sto_atoms": exact}
             out.pop("label")
             return out
         return {
@@ -83,6 +110,7 @@ class Check:
             "iterations": max(r.iterations for r in self.results),
             "reference_energy_hartree": None,
             "atoms": [r.to_json() for r in self.results],
+            "exact_sto_atoms": exact,
         }
 
 
@@ -199,12 +227,13 @@ def compare_with_stored(
 def irrep_occupations(conf) -> dict[str, tuple[int, int]]:
     """(α, β) electrons per real spherical harmonic (PySCF's SO3 irreps "s+0", "p-1", ...) for the
     high-spin single determinant of a configuration: a closed subshell fills every m; an open one
-    puts min(q, 2l+1) α electrons and the rest β into its m components in the order −l…l."""
+    puts min(q, 2l+1) α electrons and the rest β into its m components in the order
+    ``M_FILL_ORDER`` (the order of the exact-STO atomic SCF, stobuilder.atomic)."""
     occ: dict[str, tuple[int, int]] = {}
     for sub in conf.subshells:
         n_alpha = min(sub.occupation, 2 * sub.l + 1)
         n_beta = sub.occupation - n_alpha
-        for i, m in enumerate(range(-sub.l, sub.l + 1)):
+        for i, m in enumerate(M_FILL_ORDER[sub.l]):
             key = f"{'spdfg'[sub.l]}{m:+d}"
             a, b = occ.get(key, (0, 0))
             occ[key] = (a + (i < n_alpha), b + (i < n_beta))
@@ -270,6 +299,37 @@ def check_structure(
                 )
             else:
                 result = run_scf(mol, m, structure.formula)
-            return Check("structure", "", (result,))
+            return Check("structure", "", (result,), exact_sto_atoms(basis, structure.elements, method))
     results = tuple(check_free_atom(basis, s, method, reference) for s in structure.elements)
-    return Check("free atoms", reason, results)
+    gaussian = {s: r.energy_hartree for s, r in zip(structure.elements, results) if r.converged}
+    return Check("free atoms", reason, results, exact_sto_atoms(basis, structure.elements, method, gaussian))
+
+
+def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) -> tuple[ExactAtom, ...]:
+    """Each element's free atom with the exact STOs its basis expands (stobuilder.atomic) beside
+    the same atom with the Gaussian basis. ``gaussian`` holds Gaussian free-atom energies already
+    computed. Elements without STO provenance (read from a file) are left out."""
+    from .atomic import atom_energy
+
+    out = []
+    for symbol in symbols:
+        element = basis[symbol]
+        if not element.stos:
+            continue
+        exact = atom_energy(
+            symbol,
+            rule=basis.rule,
+            configuration=element.configuration,
+            zeta={s.label: s.zeta for s in element.stos},
+            method=method,
+        )
+        if gaussian is not None and symbol in gaussian:
+            e_gauss = gaussian[symbol]
+        else:
+            r = check_free_atom(basis, symbol, method, reference=False)
+            if not r.converged:
+                continue
+            e_gauss = r.energy_hartree
+        if exact.converged:
+            out.append(ExactAtom(symbol, exact.state, exact.energy, e_gauss))
+    return tuple(out)

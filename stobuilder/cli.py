@@ -69,7 +69,25 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="add or replace our elements in this existing basis file (one format; the old file is kept as FILE.bak)",
     )
+    b.add_argument(
+        "--zeta", action="append", metavar="ELEMENT:LABEL=VALUE", help="your own ζ for one subshell, e.g. Fe:3d=2.1 (repeatable)"
+    )
+    b.add_argument("--zeta-file", metavar="FILE.toml", help="your own ζ: a TOML table per element, e.g. [Fe] 3d = 2.1")
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
+
+    t = sub.add_parser("atom", help="one atom with exact STOs: energy, ζ, virial ratio, Gaussian-expansion error")
+    t.add_argument("element", metavar="ELEMENT", help='element symbol, or a configuration such as "[Ar] 3d7 4s1"')
+    _add_rule(t)
+    t.add_argument("--configuration", metavar="CONFIG", help='explicit configuration, e.g. "1s2 2s1 2p3"')
+    t.add_argument("--charge", type=int, default=0, help="ion charge (default 0)")
+    t.add_argument("--zeta", action="append", metavar="LABEL=VALUE", help="your own ζ for one subshell, e.g. 1s=1.6875")
+    t.add_argument("--optimize", action="store_true", help="optimise every ζ variationally (from the rule's values)")
+    t.add_argument(
+        "--gaussians", type=_whole_number, nargs="+", default=[], metavar="N",
+        help="also the energy with N-Gaussian expansions of the same STOs, e.g. --gaussians 3 6 12",
+    )
+    t.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
+    t.add_argument("--json", action="store_true", help="print JSON")
 
     f = sub.add_parser("formats", help="the basis-file formats: name, file extension, description")
     f.add_argument("--json", action="store_true", help="print JSON")
@@ -127,6 +145,7 @@ def _cmd_build(args) -> int:
         sp_shells=args.sp_shells,
         split_elements=args.split_elements,
         merge_into=args.merge_into,
+        zeta=_build_zeta(args),
     )
     if args.json:
         print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
@@ -134,6 +153,18 @@ def _cmd_build(args) -> int:
         for r in reports:
             print(_build_table(r))
     return 0
+
+
+def _build_zeta(args) -> dict | None:
+    """--zeta-file, then --zeta items on top: {symbol: {label: ζ}}."""
+    from .atomic import load_zeta_file, parse_zeta_overrides
+
+    zeta: dict = {}
+    if args.zeta_file:
+        zeta = load_zeta_file(args.zeta_file)
+    for symbol, table in parse_zeta_overrides(args.zeta or [], per_element=True).items():
+        zeta.setdefault(symbol, {}).update(table)
+    return zeta or None
 
 
 def _fmt_energy(e):
@@ -168,6 +199,11 @@ def _build_table(report) -> str:
                     f"       PySCF {r.reference_basis:<13}E = {_fmt_energy(r.reference_energy_hartree)} hartree  "
                     f"dE = {r.delta_hartree:+.2e} hartree"
                 )
+        for a in check.exact_atoms:
+            lines.append(
+                f"  exact-STO free atom {a.symbol:<3}E = {a.energy_exact_hartree:.8f} hartree; "
+                f"its Gaussian expansion lies {a.expansion_error_hartree:+.2e} above"
+            )
     for note in report.notes:
         lines.append(f"  note: {note}")
     return "\n".join(lines)
@@ -215,6 +251,39 @@ def _cmd_batch(args) -> int:
             f"{summary.failed} failed, {summary.seconds:.1f} s; manifest {summary.manifest}"
         )
     return summary.exit_status
+
+
+# ---------------------------------------------------------------------------- atom
+
+
+def _cmd_atom(args) -> int:
+    from .atomic import atom_report, parse_zeta_overrides
+
+    doc = atom_report(
+        args.element,
+        rule=args.rule,
+        configuration=args.configuration,
+        charge=args.charge,
+        zeta=parse_zeta_overrides(args.zeta or []) or None,
+        optimize=args.optimize,
+        gaussians=args.gaussians,
+        method=args.method,
+    )
+    if args.json:
+        print(json.dumps(doc, indent=2))
+        return 0
+    print(f"{doc['element']} {doc['configuration']}: {doc['state']}")
+    source = "optimised" if args.optimize else f"rule {args.rule}" + (", your own ζ" if args.zeta else "")
+    print(f"  STOs ({source}): " + "  ".join(f"{k} {v:.6f}" for k, v in doc["zeta"].items()))
+    print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}")
+    for row in doc["gaussian"]:
+        diff = row["energy_hartree"] - doc["energy_exact_hartree"]
+        print(f"  STO-{row['gaussians']}G: E = {row['energy_hartree']:.10f} hartree, E - E(exact) = {diff:+.3e}")
+    print("  orbital energies/hartree: " + "  ".join(
+        f"{o['label']}{'' if o['spin'] == 'both' else '(' + o['spin'][0] + ')'} {o['energy_hartree']:.5f}"
+        for o in doc["orbital_energies"] if o["occupation"] > 0
+    ))
+    return 0
 
 
 # ---------------------------------------------------------------------------- zeta
@@ -268,7 +337,13 @@ def _cmd_formats(args) -> int:
     return 0
 
 
-COMMANDS = {"build": _cmd_build, "batch": _cmd_batch, "zeta": _cmd_zeta, "formats": _cmd_formats}
+COMMANDS = {
+    "build": _cmd_build,
+    "batch": _cmd_batch,
+    "atom": _cmd_atom,
+    "zeta": _cmd_zeta,
+    "formats": _cmd_formats,
+}
 
 
 def main(argv=None) -> int:

@@ -44,6 +44,12 @@ _EXCEPTIONS = {
 }
 
 
+# The order in which the open-shell electrons of a subshell take the real spherical harmonics
+# (PySCF's m convention, p: x, y, z = m 1, −1, 0): m = 1, −1, 2, −2, …, 0. Every SCF of a free atom
+# (exact STO and Gaussian alike) uses it, so both compute the same high-spin determinant.
+M_FILL_ORDER = {l: tuple([x for m in range(1, l + 1) for x in (m, -m)] + [0]) for l in range(4)}
+
+
 def capacity(l: int) -> int:
     """Number of electrons a subshell of angular momentum ``l`` holds: 2(2l + 1)."""
     return 2 * (2 * l + 1)

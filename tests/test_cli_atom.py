@@ -1,0 +1,102 @@
+"""`stobuilder atom`, user exponents on `build`, and the exact-STO atoms of `build --check`."""
+
+import json
+
+import pytest
+
+from stobuilder.cli import main
+
+BOHR = 0.52917721092  # ångström per bohr (CODATA 2010, as PySCF uses)
+
+
+def run(argv, capsys):
+    code = main(argv)
+    out, err = capsys.readouterr()
+    return code, out, err
+
+
+def test_atom_he_exact_variational_result(capsys):
+    code, out, err = run(["atom", "He", "--zeta", "1s=1.6875", "--gaussians", "3", "6", "--json"], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    # He with one 1s STO of ζ = 27/16: E = −(27/16)² = −2.84765625 hartree (textbook variational result).
+    assert doc["energy_exact_hartree"] == pytest.approx(-2.84765625, abs=1e-10)
+    assert doc["virial_ratio"] == pytest.approx(2.0, abs=1e-10)  # virial theorem at the optimum ζ
+    e3, e6 = (row["energy_hartree"] for row in doc["gaussian"])
+    assert -2.84765625 < e6 < e3  # the Gaussian imitations lie above, closer with more Gaussians
+    assert set(doc) >= {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree", "virial_ratio", "gaussian"}
+
+
+def test_atom_optimize_carbon_clementi_raimondi(capsys):
+    code, out, err = run(["atom", "C", "--optimize", "--json"], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    # Clementi & Raimondi, J. Chem. Phys. 38, 2686 (1963): C 1s 5.6727, 2s 1.6083, 2p 1.5679,
+    # E = −37.6224 hartree (values from memory).
+    assert doc["zeta"]["1s"] == pytest.approx(5.6727, abs=1e-3)
+    assert doc["zeta"]["2s"] == pytest.approx(1.6083, abs=1e-3)
+    assert doc["zeta"]["2p"] == pytest.approx(1.5679, abs=1e-3)
+    assert doc["energy_exact_hartree"] == pytest.approx(-37.6224, abs=5e-4)
+
+
+@pytest.mark.parametrize(
+    "argv,named",
+    [
+        (["atom", "He", "--zeta", "1s=abc"], "abc"),
+        (["atom", "He", "--zeta", "1s=-2"], "positive"),
+        (["atom", "He", "--zeta", "2p=1.0"], "2p"),
+        (["atom", "Qq"], "Qq"),
+    ],
+)
+def test_atom_bad_input(argv, named, capsys):
+    code, out, err = run(argv, capsys)
+    assert code == 2 and len(err.strip().splitlines()) == 1 and named in err and "Traceback" not in err
+
+
+def _h2(tmp_path):
+    path = tmp_path / "h2.xyz"
+    path.write_text(f"2\n\nH 0 0 0\nH 0 0 {1.4 * BOHR:.10f}\n")
+    return path
+
+
+def test_build_with_zeta_file_gives_szabo_ostlund_h2(tmp_path, capsys):
+    # H2 at R = 1.4 bohr, STO-3G with ζ = 1.24: E = −1.1167 hartree (Szabo & Ostlund, Modern
+    # Quantum Chemistry, 1989, §3.5.2).
+    zfile = tmp_path / "zeta.toml"
+    zfile.write_text("[H]\n1s = 1.24\n")
+    code, out, err = run(["build", str(_h2(tmp_path)), "--zeta-file", str(zfile), "--check", "--json", "--out", str(tmp_path / "o")], capsys)
+    assert code == 0, err
+    check = json.loads(out)["structures"][0]["check"]
+    assert check["energy_hartree"] == pytest.approx(-1.1167, abs=5e-5)
+    (h,) = check["exact_sto_atoms"]
+    # One H 1s STO with ζ = 1.24: E = ζ²/2 − ζ = −0.4712 hartree (exact one-electron result).
+    assert h["energy_exact_hartree"] == pytest.approx(1.24**2 / 2 - 1.24, abs=1e-10)
+    assert h["expansion_error_hartree"] > 0
+
+
+def test_build_zeta_option_overrides_the_file(tmp_path, capsys):
+    zfile = tmp_path / "zeta.toml"
+    zfile.write_text("[H]\n1s = 1.0\n")
+    code, out, err = run(
+        ["build", str(_h2(tmp_path)), "--zeta-file", str(zfile), "--zeta", "H:1s=1.24", "--json", "--out", str(tmp_path / "o")],
+        capsys,
+    )
+    assert code == 0, err
+    text = (tmp_path / "o" / "h2.nw").read_text()
+    assert "1s 1.240000" in text
+
+
+@pytest.mark.parametrize(
+    "extra,named",
+    [
+        (["--zeta", "H:2p=1.0"], "2p"),
+        (["--zeta", "O:1s=7.0"], "O"),
+        (["--zeta", "H1s=1.0"], "ELEMENT:LABEL=VALUE"),
+        (["--zeta-file", "missing.toml"], "missing.toml"),
+    ],
+)
+def test_build_bad_zeta(tmp_path, capsys, extra, named):
+    out_dir = tmp_path / "never"
+    code, out, err = run(["build", str(_h2(tmp_path)), "--out", str(out_dir), *extra], capsys)
+    assert code == 2 and named in err and len(err.strip().splitlines()) == 1
+    assert not out_dir.exists()
