@@ -36,9 +36,31 @@ def _add_rule(p, default="slater"):
     p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
 
 
+def _add_fit_options(p):
+    from .build import RADIAL_FORMS
+    from .expansion.fit import NORMS
+
+    p.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
+    group = p.add_mutually_exclusive_group()
+    group.add_argument(
+        "--shared-exponents", action="store_true",
+        help="one exponent set per n, fitted jointly at the rule's zeta ratios (allows sp shells)",
+    )
+    group.add_argument("--separate-fits", action="store_true", help="fit every subshell on its own")
+    p.add_argument(
+        "--radial", choices=RADIAL_FORMS, default="integer",
+        help="STO radial form: integer n, or the rule's effective n* (default integer)",
+    )
+
+
+def _exponent_mode(args) -> str:
+    return "shared" if args.shared_exponents else "separate" if args.separate_fits else "family"
+
+
 def _parser() -> argparse.ArgumentParser:
     from .checks import METHODS
     from .formats import formats
+    from .expansion.fit import NORMS
 
     parser = _Parser(prog="stobuilder", description="Slater-type-orbital minimal bases expanded in Gaussians.")
     parser.add_argument("--version", action="version", version=f"stobuilder {__version__}")
@@ -69,6 +91,7 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="add or replace our elements in this existing basis file (one format; the old file is kept as FILE.bak)",
     )
+    _add_fit_options(b)
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
 
     f = sub.add_parser("formats", help="the basis-file formats: name, file extension, description")
@@ -99,6 +122,14 @@ def _parser() -> argparse.ArgumentParser:
     )
     a.add_argument("--json", action="store_true", help="print the summary as JSON")
 
+    t = sub.add_parser("fit", help="fit Gaussians to STOs: exponents, coefficients, error; optionally a plot")
+    t.add_argument("subshells", nargs="+", metavar="SUBSHELL", help="e.g. 1s, or 2s 2p (or 2s,2p) sharing exponents")
+    t.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
+    t.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
+    t.add_argument("--zeta", type=float, default=1.0, metavar="Z", help="zeta of the (first) STO in bohr^-1 (default 1)")
+    t.add_argument("--plot", metavar="FILE.png", help="draw the STO, its expansion, the residual and epsilon against N")
+    t.add_argument("--json", action="store_true", help="print JSON")
+
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
     _add_rule(z)
@@ -127,6 +158,9 @@ def _cmd_build(args) -> int:
         sp_shells=args.sp_shells,
         split_elements=args.split_elements,
         merge_into=args.merge_into,
+        norm=args.fit,
+        exponents=_exponent_mode(args),
+        radial=args.radial,
     )
     if args.json:
         print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
@@ -217,6 +251,29 @@ def _cmd_batch(args) -> int:
     return summary.exit_status
 
 
+# ---------------------------------------------------------------------------- fit
+
+
+def _cmd_fit(args) -> int:
+    from .expansion import lookup
+    from .expansion.report import fit_document, fit_table
+
+    labels = [x for item in args.subshells for x in item.split(",") if x]
+    fit = lookup(labels, args.gaussians, args.fit)
+    doc = fit_document(fit, args.zeta)  # validates --zeta
+    if args.plot:
+        from .expansion.plot import plot_fit
+
+        doc["plot"] = plot_fit(fit, args.plot, args.zeta)
+    if args.json:
+        print(json.dumps(doc, indent=2))
+    else:
+        print(fit_table(fit, args.zeta))
+        if args.plot:
+            print(f"  wrote {args.plot}")
+    return 0
+
+
 # ---------------------------------------------------------------------------- zeta
 
 
@@ -268,7 +325,7 @@ def _cmd_formats(args) -> int:
     return 0
 
 
-COMMANDS = {"build": _cmd_build, "batch": _cmd_batch, "zeta": _cmd_zeta, "formats": _cmd_formats}
+COMMANDS = {"build": _cmd_build, "batch": _cmd_batch, "fit": _cmd_fit, "zeta": _cmd_zeta, "formats": _cmd_formats}
 
 
 def main(argv=None) -> int:
