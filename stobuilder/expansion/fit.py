@@ -187,8 +187,51 @@ def _evaluate(problem: Problem, x: np.ndarray) -> float:
     return math.inf if out is None else math.fsum(out[3])
 
 
-def _local_fit(problem: Problem, x0: np.ndarray, tol: float = 1e-15, max_nfev: int = 400) -> tuple[float, np.ndarray]:
-    """Gauss–Newton / Levenberg–Marquardt in ln α from one start; ε and the sorted ln α."""
+def _gradient(problem: Problem, x: np.ndarray) -> np.ndarray | None:
+    out = problem.solve(x)
+    return None if out is None else out[1].T @ out[0]  # ∇(½ Σε) = Jᵀr (Golub–Pereyra Jacobian)
+
+
+def _polish(problem: Problem, x: np.ndarray, steps: int = 6, h: float = 1e-5) -> np.ndarray:
+    """Newton steps on ∇(½ Σε) = Jᵀr with a Hessian from central differences of that gradient.
+
+    Levenberg–Marquardt stops on the relative decrease of ε, which in the flattest direction of
+    a fit leaves ln α off by ~1e-8, and Gauss–Newton converges only linearly here (the residual
+    is not small against the smallest singular value of J); Newton converges on the gradient,
+    which the sampled residual resolves to ~1e-19. Steps are taken while |∇| shrinks.
+    """
+    grad = _gradient(problem, x)
+    if grad is None:
+        return x
+    hess = np.empty((x.size, x.size))
+    for k in range(x.size):
+        e = np.zeros_like(x)
+        e[k] = h
+        up, down = _gradient(problem, x + e), _gradient(problem, x - e)
+        if up is None or down is None:
+            return x
+        hess[k] = (up - down) / (2 * h)
+    w, v = np.linalg.eigh(0.5 * (hess + hess.T))
+    if w.min() <= 0:
+        return x  # not a minimum's neighbourhood: keep the LM result
+    norm = float(np.linalg.norm(grad))
+    for _ in range(steps):
+        step = v @ ((v.T @ grad) / w)
+        if not np.max(np.abs(step)) < 0.01:
+            break
+        trial = x - step
+        trial_grad = _gradient(problem, trial)
+        if trial_grad is None:
+            break
+        trial_norm = float(np.linalg.norm(trial_grad))
+        if not trial_norm < norm:
+            break
+        x, grad, norm = trial, trial_grad, trial_norm
+    return x
+
+
+def _local_fit(problem: Problem, x0: np.ndarray, tol: float = 1e-10, max_nfev: int = 400) -> tuple[float, np.ndarray]:
+    """Levenberg–Marquardt in ln α from one start; ε and the sorted ln α."""
     x = np.sort(_least_squares(problem, np.asarray(x0, dtype=float), tol, max_nfev))[::-1]
     return _evaluate(problem, x), x
 
@@ -198,23 +241,30 @@ def _even_tempered(n_gauss: int, centre: float, log_ratio: float) -> np.ndarray:
 
 
 def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | None) -> list[np.ndarray]:
-    """Deterministic starting points in ln α: continuation from the N−1 fit (new tight, new diffuse,
-    new exponent in a gap) and even-tempered sets (3 × 3 up to N = 6, where fewer starts miss the
-    best minimum of 5s, 5p, 6d; 3 beyond, where the continuation starts suffice)."""
+    """Deterministic starting points in ln α: continuation from the N−1 fit (a new tight, a new
+    diffuse exponent, a new exponent in each gap up to N = 6, in the GAPS widest gaps beyond)
+    and ET_STARTS even-tempered sets (their centre from the STO's extent, α ~ 1/⟨r⟩²)."""
     starts = []
     if previous is not None:
         ext = np.concatenate([[previous[0] + 1.5], previous, [previous[-1] - 1.5]])
         starts.append(ext[:-1])  # new tight exponent
         starts.append(ext[1:])  # new diffuse exponent
-        for k in range(len(previous) - 1):  # new exponent in a gap
+        gaps = list(range(len(previous) - 1))
+        if n_gauss > 6:
+            widths = -np.diff(previous)
+            gaps = sorted(sorted(gaps, key=lambda k: (-widths[k], k))[:GAPS])
+        for k in gaps:
             starts.append(np.sort(np.concatenate([previous, [(previous[k] + previous[k + 1]) / 2]]))[::-1])
-    # the STO's extent ~ n/ζ sets the centre: α ~ 1/⟨r⟩²
     n_mean = sum(t.n_eff / t.zeta for t in targets) / len(targets)
     base = -2.0 * math.log(n_mean) - 1.0
-    grid = [(r, s) for r in (0.7, 1.2, 1.8) for s in (-1.0, 0.0, 1.0)] if n_gauss <= 6 else [(0.7, 0.0), (1.0, 0.5), (1.3, 1.0)]
-    for log_ratio, shift in grid:
+    for log_ratio, shift in ET_STARTS[:3] if n_gauss > 1 else ET_STARTS:
         starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
     return starts
+
+
+GAPS = 3  # gap insertions tried beyond N = 6
+# (ln of the exponent ratio, shift of the centre in ln α) of the even-tempered starts
+ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))  # N = 1: all, else the first 3
 
 
 # Smallest ratio of neighbouring exponents accepted (common practice, no source): closer
@@ -258,28 +308,26 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int) -> tupl
     for x0 in starts:
         f, x = _local_fit(problem, x0, tol=SCREEN_TOL, max_nfev=SCREEN_NFEV)
         # Two exponents running together mimic an r^(l+2) Gaussian: ε can keep falling towards
-        # that limit (seen for 6s6p with N = 3); such solutions are discarded here.
-        if n_gauss > 1 and np.min(-np.diff(x)) < math.log(MIN_RATIO):
-            continue
+        # that limit (seen for 6s6p with N = 3); such solutions are set aside (constrained fit).
         if math.isfinite(f):
             screened.append((f, x))
     screened.sort(key=lambda item: item[0])
-    candidates = []
-    for f, x in screened:
-        if all(np.max(np.abs(x - y)) > 1e-2 for _, y in candidates):
-            candidates.append((f, x))
-        if len(candidates) == SCREEN_KEEP:
-            break
-    best_f, best_x = math.inf, None
-    for _, x0 in candidates:
+    best_f, best_x, tried = math.inf, None, []
+    for _, x0 in screened:
+        if any(np.max(np.abs(x0 - y)) < 1e-2 for y in tried):
+            continue  # the same minimum as a candidate already converged
+        tried.append(x0)
         f, x = _local_fit(problem, x0)
         if n_gauss > 1 and np.min(-np.diff(x)) < math.log(MIN_RATIO):
             continue
         if f < best_f * (1 - 1e-12):
             best_f, best_x = f, x
+        if (best_x is not None and len(tried) >= SCREEN_KEEP) or len(tried) >= 3 * SCREEN_KEEP:
+            break
     if best_x is not None:
-        return tuple(best_x), False
-    for x0 in starts:
+        x = np.sort(_polish(problem, best_x))[::-1]
+        return tuple(x if _evaluate(problem, x) <= best_f * (1 + 1e-12) else best_x), False
+    for x0 in [x for _, x in screened[: SCREEN_KEEP + 1]] or starts[: SCREEN_KEEP + 1]:
         f, x = _constrained_fit(problem, x0)
         if f < best_f * (1 - 1e-12):
             best_f, best_x = f, x
@@ -287,8 +335,8 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int) -> tupl
 
 
 SCREEN_TOL = 1e-7  # relative tolerance of the screening runs
-SCREEN_NFEV = 25  # their evaluation budget
-SCREEN_KEEP = 2  # candidates converged fully
+SCREEN_NFEV = 12  # their evaluation budget
+SCREEN_KEEP = 3  # candidates converged fully
 
 
 def fit_sto(
