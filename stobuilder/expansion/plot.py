@@ -48,27 +48,35 @@ def plot_fit(fit: Fit, path: str, zeta: float = 1.0, family_fits: Callable[[str,
     zetas = subshell_zetas(fit, zeta)
     r_max = max((2.0 * n_effective(fit, k) + 6.0) / zetas[k] for k in fit.subshells)
     r = np.linspace(0.0, r_max, 1500)
+    r_log = np.geomspace(1e-3 * r_max, r_max, 1500)
     colours = plt.rcParams["axes.prop_cycle"].by_key()["color"]
     fig, axes = plt.subplots(2, 2, figsize=(11.0, 8.0))
     (ax_r, ax_d), (ax_res, ax_eps) = axes
+    # subshells with the same radial STO (same n*, same ζ) are drawn once
+    groups: dict[tuple[float, float], list[str]] = {}
+    for label in fit.subshells:
+        groups.setdefault((n_effective(fit, label), zetas[label]), []).append(label)
+    for (n, z), labels in groups.items():
+        sto = sto_radial(fit, labels[0], zeta, r)
+        name = "/".join(labels)
+        ax_r.plot(r, sto, color="0.6", lw=4.0, label=f"{name} STO, ζ = {z:.4g} bohr$^{{-1}}$")
+        ax_d.plot(r, r * r * sto * sto, color="0.6", lw=4.0, label=f"{name} STO")
     for i, label in enumerate(fit.subshells):
         col = colours[i % len(colours)]
-        sto = sto_radial(fit, label, zeta, r)
         gau = expansion_radial(fit, label, zeta, r)
-        ax_r.plot(r, sto, color=col, lw=2.0, label=f"{label} STO, ζ = {zetas[label]:.4g}")
-        ax_r.plot(r, gau, color="black" if len(fit.subshells) == 1 else col, lw=1.2, ls="--",
-                  label=f"{label} STO-{fit.gaussians}G")
-        ax_d.plot(r, r * r * sto * sto, color=col, lw=2.0, label=f"{label} STO")
-        ax_d.plot(r, r * r * gau * gau, color="black" if len(fit.subshells) == 1 else col, lw=1.2, ls="--",
-                  label=f"{label} STO-{fit.gaussians}G")
-        ax_res.plot(r, sto - gau, color=col, lw=1.3, label=f"{label}: ε = {fit.error[label]:.3e}")
+        ax_r.plot(r, gau, color=col, lw=1.4, ls="--", label=f"{label} STO-{fit.gaussians}G")
+        ax_d.plot(r, r * r * gau * gau, color=col, lw=1.4, ls="--", label=f"{label} STO-{fit.gaussians}G")
+        res = sto_radial(fit, label, zeta, r_log) - expansion_radial(fit, label, zeta, r_log)
+        ax_res.plot(r_log, res, color=col, lw=1.3, label=f"{label}: ε = {fit.error[label]:.3e}")
     ax_r.set(xlabel="r / bohr", ylabel="R(r) / bohr$^{-3/2}$", title="(a) radial function")
     ax_d.set(xlabel="r / bohr", ylabel="r$^2$R(r)$^2$ / bohr$^{-1}$", title="(b) radial density")
-    ax_res.set(xlabel="r / bohr", ylabel="R$_{STO}$ − R$_{Gauss}$ / bohr$^{-3/2}$",
-               title=f"(c) residual (ε in the {fit.norm.upper()} norm)")
+    ax_res.set(xlabel="r / bohr (log scale)", ylabel="R$_{STO}$ − R$_{Gauss}$ / bohr$^{-3/2}$",
+               title=f"(c) residual (ε in the {fit.norm.upper()} norm)", xscale="log")
     ax_res.axhline(0.0, color="grey", lw=0.6)
-    for ax in (ax_r, ax_d, ax_res):
+    ax_res.set_xlim(r_log[0], r_max)
+    for ax in (ax_r, ax_d):
         ax.set_xlim(0.0, r_max)
+    for ax in (ax_r, ax_d, ax_res):
         ax.grid(alpha=0.3)
         ax.legend(fontsize=8)
     ns = np.arange(1, MAX_GAUSSIANS + 1)
