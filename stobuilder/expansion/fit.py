@@ -230,7 +230,7 @@ def _polish(problem: Problem, x: np.ndarray, steps: int = 6, h: float = 1e-5) ->
     return x
 
 
-def _local_fit(problem: Problem, x0: np.ndarray, tol: float = 1e-10, max_nfev: int = 400) -> tuple[float, np.ndarray]:
+def _local_fit(problem: Problem, x0: np.ndarray, tol: float = 1e-8, max_nfev: int = 400) -> tuple[float, np.ndarray]:
     """Levenberg–Marquardt in ln α from one start; ε and the sorted ln α."""
     x = np.sort(_least_squares(problem, np.asarray(x0, dtype=float), tol, max_nfev))[::-1]
     return _evaluate(problem, x), x

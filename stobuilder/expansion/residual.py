@@ -22,8 +22,9 @@ Norms. "l2": ∫ |φ − χ|² dτ (Hehre, Stewart & Pople 1969). "h1": the Sobo
 ∫ |φ − χ|² dτ + ζ₁⁻² ∫ |∇φ − ∇χ|² dτ with ζ₁ the exponent of the first subshell of the fit
 (1 bohr⁻¹ for the ζ = 1 library): measuring the gradient in the STO's own length unit keeps the
 norm, and so the fit, invariant under r → ζr, so a fit at ζ = 1 scales exactly by ζ². For
-R(r) Y_lm, |∇|² integrates to ∫ (R'² + l(l+1) R²/r²) r² dr, so the H¹ residual is three stacked
-blocks: R, R' and √(l(l+1)) R / r.
+R(r) Y_lm, |∇|² integrates to ∫ (R'² + l(l+1) R²/r²) r² dr, which by parts (u = R/r^l, the
+boundary terms r^(2l+1) u² vanish for the STOs and Gaussians here) equals ∫ (r^l u')² r² dr; so
+the H¹ residual is two stacked blocks, R and r^l (R/r^l)'.
 
 Variable projection: for fixed α the coefficients are linear; the residual of the projected
 problem r(x) = (I − P_A) b, x = ln α, has the Jacobian of G. H. Golub and V. Pereyra,
@@ -75,11 +76,8 @@ def sto_blocks(target: Target, r: np.ndarray, sw: np.ndarray, h1: bool, scale: f
     radial = sto_norm(n, z) * np.exp((n - 1.0) * np.log(r) - z * r)
     if not h1:
         return sw * radial
-    deriv = radial * ((n - 1.0) / r - z)
-    parts = [sw * radial, sw * deriv / scale]
-    if l:
-        parts.append(sw * math.sqrt(l * (l + 1)) * radial / (r * scale))
-    return np.concatenate(parts)
+    deriv = radial * ((n - 1.0 - l) / r - z)  # r^l (R / r^l)'
+    return np.concatenate([sw * radial, sw * deriv / scale])
 
 
 def gaussian_blocks(
@@ -99,18 +97,11 @@ def gaussian_blocks(
     dfac = p / 2.0 - ar2  # ∂ ln(N_k e^(−α r²)) / ∂ ln α_k
     if not h1:
         return a, (a * dfac if derivative else None)
-    g = a / sw[:, None]
-    swc = sw[:, None]
-    # R' = g (l/r − 2 α r);  ∂R'/∂ln α = dfac R' − 2 α r² g / r
-    gp = g * (l / r[:, None] - 2.0 * alpha[None, :] * r[:, None])
-    dgp = dfac * gp - 2.0 * ar2 * g / r[:, None]
-    a_parts = [swc * g, swc * gp / scale]
-    d_parts = [swc * g * dfac, swc * dgp / scale]
-    if l:
-        f = math.sqrt(l * (l + 1)) / (r[:, None] * scale)
-        a_parts.append(swc * g * f)
-        d_parts.append(swc * g * dfac * f)
-    return np.vstack(a_parts), (np.vstack(d_parts) if derivative else None)
+    # r^l (R / r^l)' = −2 α r R for the Gaussian; ∂/∂ln α of it = (1 + dfac) × itself
+    ap = a * (-2.0 / scale) * np.outer(r, alpha)
+    if not derivative:
+        return np.vstack([a, ap]), None
+    return np.vstack([a, ap]), np.vstack([a * dfac, ap * (1.0 + dfac)])
 
 
 class Problem:
