@@ -6,11 +6,12 @@ first subshell of a fit) is expanded in normalised Gaussians g_k = N_k r^l e^(�
 minimising ε = ‖φ − Σ_k c_k g_k‖² in the chosen norm; subshells fitted jointly share the α_k and
 the objective is Σ ε. For fixed α the optimal c solve a linear least-squares problem, so only
 x = ln α is optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10,
-413, 1973) by a trust-region Gauss–Newton method (scipy.optimize.least_squares, "trf") on the
-sampled residual of stobuilder.expansion.residual, which keeps ε free of the cancellation of
-1 − sᵀG⁻¹s. Starts are deterministic: continuation from the N − 1 fit (a new tight, a new
-diffuse or a new middle exponent) and even-tempered sets (K. Ruedenberg, R. C. Raffenetti,
-R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973: α_k = α₀ β^k).
+413, 1973) by Levenberg–Marquardt (MINPACK through scipy.optimize.least_squares) on the sampled
+residual of stobuilder.expansion.residual, which keeps ε free of the cancellation of
+1 − sᵀG⁻¹s, followed by Newton steps on its gradient. Starts are deterministic: continuation
+from the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
+(K. Ruedenberg, R. C. Raffenetti, R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973:
+α_k = α₀ β^k); every start is screened with a few iterations and the best few are converged.
 """
 
 from __future__ import annotations
@@ -33,7 +34,7 @@ NORMS = ("l2", "h1")
 MAX_N = 6
 MAX_L = 3
 # Version of the fitting algorithm: part of every cache key (a change invalidates cached fits).
-ALGORITHM = "vp-trf-1"
+ALGORITHM = "vp-lm-newton-1"
 
 
 @dataclass(frozen=True)
