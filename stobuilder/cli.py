@@ -186,6 +186,9 @@ def _build_table(report) -> str:
     for e in report.basis.elements:
         stos = "  ".join(f"{s.label} {s.zeta:.4f}" for s in e.stos)
         lines.append(f"  {e.symbol:<8}{e.configuration:<24}{stos}")
+        errors = "  ".join(f"{s.label} {s.fit_error:.2e}" for s in e.shells if s.fit_error is not None)
+        if errors:
+            lines.append(f"  {'':<8}{'fit error (' + report.basis.norm + ')':<24}{errors}")
     for code, path in report.files.items():
         lines.append(f"  wrote {path} ({code})")
     for check in report.checks:

@@ -46,6 +46,14 @@ class StructureReport:
             "files": dict(self.files),
             "check": self.checks[0].to_json() if self.checks else None,
             "notes": list(self.notes),
+            "fit": {
+                "norm": self.basis.norm,
+                "gaussians": self.basis.gaussians,
+                "error": {
+                    e.symbol: {s.label: s.fit_error for s in e.shells if s.fit_error is not None}
+                    for e in self.basis.elements
+                },
+            },
         }
         if len(self.checks) > 1:
             out["frame_checks"] = [c.to_json() for c in self.checks]
