@@ -244,7 +244,8 @@ def _even_tempered(n_gauss: int, centre: float, log_ratio: float) -> np.ndarray:
 def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | None) -> list[np.ndarray]:
     """Deterministic starting points in ln α: continuation from the N−1 fit (a new tight, a new
     diffuse exponent, a new exponent in each gap up to N = 6, in the GAPS widest gaps beyond)
-    and ET_STARTS even-tempered sets (their centre from the STO's extent, α ~ 1/⟨r⟩²)."""
+    and even-tempered sets (their centre from the STO's extent, α ~ 1/⟨r⟩²): all of ET_STARTS for
+    N = 1, the first 3 up to N = 6, the first beyond (fewer change no library fit; measured)."""
     starts = []
     if previous is not None:
         ext = np.concatenate([[previous[0] + 1.5], previous, [previous[-1] - 1.5]])
@@ -258,7 +259,7 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
             starts.append(np.sort(np.concatenate([previous, [(previous[k] + previous[k + 1]) / 2]]))[::-1])
     n_mean = sum(t.n_eff / t.zeta for t in targets) / len(targets)
     base = -2.0 * math.log(n_mean) - 1.0
-    for log_ratio, shift in ET_STARTS[:3] if n_gauss > 1 else ET_STARTS:
+    for log_ratio, shift in ET_STARTS if n_gauss == 1 else ET_STARTS[:3] if n_gauss <= 6 else ET_STARTS[:1]:
         starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
     return starts
 
