@@ -27,7 +27,7 @@ from scipy.optimize import least_squares
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
 from .integrals import gaussian_overlap
-from .residual import Problem, Target
+from .residual import STEP, Problem, Target
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2", "h1")
@@ -139,8 +139,8 @@ def targets_for(labels: tuple[str, ...], n_eff: Mapping[str, float], zeta_ratio:
 
 
 @lru_cache(maxsize=64)
-def _problem(targets: tuple[Target, ...], norm: str) -> Problem:
-    return Problem(targets, norm)
+def _problem(targets: tuple[Target, ...], norm: str, step: float = STEP) -> Problem:
+    return Problem(targets, norm, step)
 
 
 def objective(log_alpha: np.ndarray, nls, norm: str = "l2") -> tuple[float, np.ndarray]:
@@ -302,13 +302,14 @@ def _constrained_fit(problem: Problem, x0: np.ndarray) -> tuple[float, np.ndarra
 def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int) -> tuple[tuple[float, ...], bool]:
     """Best ln α (descending) over the deterministic starts, and whether MIN_RATIO was binding."""
     problem = _problem(targets, norm)
+    coarse = _problem(targets, norm, SCREEN_STEP)  # the screening needs ε to ~1e-9 relative only
     previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
     starts = _starts(n_gauss, targets, previous)
     # Screening: every start is taken a short way (loose tolerance); the best SCREEN_KEEP distinct
     # candidates are then converged fully.
     screened = []
     for x0 in starts:
-        f, x = _local_fit(problem, x0, tol=SCREEN_TOL, max_nfev=SCREEN_NFEV)
+        f, x = _local_fit(coarse, x0, tol=SCREEN_TOL, max_nfev=SCREEN_NFEV)
         # Two exponents running together mimic an r^(l+2) Gaussian: ε can keep falling towards
         # that limit (seen for 6s6p with N = 3); such solutions are set aside (constrained fit).
         if math.isfinite(f):
@@ -339,6 +340,7 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int) -> tupl
 SCREEN_TOL = 1e-7  # relative tolerance of the screening runs
 SCREEN_NFEV = 12  # their evaluation budget
 SCREEN_KEEP = 3  # candidates converged fully
+SCREEN_STEP = 0.12  # quadrature step of the screening grid (ranking needs ε to ~1e-9 relative only)
 
 
 def fit_sto(

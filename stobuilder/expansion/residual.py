@@ -57,12 +57,12 @@ class Target:
     zeta: float
 
 
-def grid(zeta_min: float, zeta_max: float = 1.0) -> tuple[np.ndarray, np.ndarray]:
-    """Radii r_i (bohr) and weights w_i with Σ w_i f(r_i) ≈ ∫_0^∞ f(r) r² dr."""
+def grid(zeta_min: float, zeta_max: float = 1.0, step: float = STEP) -> tuple[np.ndarray, np.ndarray]:
+    """Radii r_i (bohr) and weights w_i with Σ w_i f(r_i) ≈ ∫_0^∞ f(r) r² dr (trapezoidal in ln r)."""
     r_max = math.sqrt(40.0 / ALPHA_MIN) / zeta_min
-    t = np.arange(math.log(R_MIN / zeta_max), math.log(r_max) + STEP, STEP)
+    t = np.arange(math.log(R_MIN / zeta_max), math.log(r_max) + step, step)
     r = np.exp(t)
-    return r, STEP * r**3
+    return r, step * r**3
 
 
 def sto_norm(n_eff: float, zeta: float) -> float:
@@ -107,12 +107,12 @@ def gaussian_blocks(
 class Problem:
     """The sampled fit problem of several STOs sharing one set of Gaussian exponents."""
 
-    def __init__(self, targets: tuple[Target, ...], norm: str):
+    def __init__(self, targets: tuple[Target, ...], norm: str, step: float = STEP):
         self.targets = targets
         self.h1 = norm == "h1"
         self.scale = targets[0].zeta
         zmin, zmax = min(t.zeta for t in targets), max(t.zeta for t in targets)
-        self.r, w = grid(zmin, zmax)
+        self.r, w = grid(zmin, zmax, step)
         self.sw = np.sqrt(w)
         self.r2 = self.r * self.r
         self.b = [sto_blocks(t, self.r, self.sw, self.h1, self.scale) for t in targets]
