@@ -25,6 +25,8 @@ class Shell:
     coefficients  contraction coefficients for normalised primitives
     label         the STO subshell this shell expands ("2p"), or "" for a shell read from a file
     zeta          the STO exponent ζ in bohr⁻¹ this shell expands, or None
+    fit_error     ε of the fit the shell comes from, in the basis' fit norm (dimensionless), or
+                  None; provenance only, not part of equality
     """
 
     l: int
@@ -32,6 +34,7 @@ class Shell:
     coefficients: tuple[float, ...]
     label: str = ""
     zeta: float | None = None
+    fit_error: float | None = field(default=None, compare=False)
 
     def __post_init__(self):
         if len(self.exponents) != len(self.coefficients) or not self.exponents:

@@ -6,6 +6,13 @@ occupied; 4s4p(4d)(4f); ...). Each subshell's exponents are the family's ζ = 1 
 own ζ², so a transition metal's 3d uses the d part of the joint 3s3p3d expansion with its own ζ:
 the construction of the published STO-3G (Hehre, Stewart & Pople 1969; Pietro & Hehre, J. Comput.
 Chem. 4, 241, 1983).
+
+Options (``exponents``): "family" (the default, above); "shared": a family is fitted jointly at the
+actual ratios of its ζ (fit_sto's zeta_ratio) and every subshell gets the very same exponents, so
+s and p can be written as sp shells even when the rule gives them different ζ; "separate": each
+subshell is fitted on its own and scaled by its own ζ². With ``radial="effective-n"`` the STOs are
+r^(n*−1) e^(−ζr) with the rule's effective n* (Slater's 3.7, 4.0, 4.2 for n = 4, 5, 6) instead
+of r^(n−1) e^(−ζr).
 """
 
 from __future__ import annotations
@@ -21,6 +28,8 @@ from .expansion import lookup
 from .screening import ShellExponent, shell_exponents
 
 ZetaOverrides = Mapping[str, float]
+EXPONENT_MODES = ("family", "shared", "separate")
+RADIAL_FORMS = ("integer", "effective-n")
 
 
 def apply_zeta_overrides(
@@ -74,13 +83,39 @@ def shell_families(stos: Iterable[ShellExponent]) -> list[tuple[ShellExponent, .
     return [tuple(group) for _, group in groupby(ordered, key=lambda s: s.n)]
 
 
-def expand(stos: tuple[ShellExponent, ...], gaussians: int, norm: str = "l2") -> tuple[Shell, ...]:
-    """Contracted Gaussian shells for the STOs: joint ζ = 1 fits per family, scaled by ζ²."""
+def check_options(exponents: str, radial: str) -> None:
+    if exponents not in EXPONENT_MODES:
+        raise InputError(f"exponents {exponents!r}: choose one of {', '.join(EXPONENT_MODES)}")
+    if radial not in RADIAL_FORMS:
+        raise InputError(f"radial {radial!r}: choose one of {', '.join(RADIAL_FORMS)}")
+
+
+def expand(
+    stos: tuple[ShellExponent, ...],
+    gaussians: int,
+    norm: str = "l2",
+    exponents: str = "family",
+    radial: str = "integer",
+) -> tuple[Shell, ...]:
+    """Contracted Gaussian shells for the STOs (see the module docstring for ``exponents``, ``radial``).
+
+    Every Shell carries ``fit_error``: ε of its subshell in the fit it comes from (in ``norm``).
+    """
+    check_options(exponents, radial)
     shells = []
-    for family in shell_families(stos):
-        fit = lookup([s.label for s in family], gaussians, norm)
+    groups = [(s,) for s in sorted(stos, key=lambda s: (s.n, s.l))] if exponents == "separate" else shell_families(stos)
+    for family in groups:
+        labels = [s.label for s in family]
+        n_eff = {s.label: s.n_eff for s in family if s.n_eff != s.n} if radial == "effective-n" else None
+        ratio = None
+        if exponents == "shared":
+            ratio = {s.label: s.zeta / family[0].zeta for s in family if s.zeta != family[0].zeta} or None
+        try:
+            fit = lookup(labels, gaussians, norm, n_eff=n_eff or None, zeta_ratio=ratio)
+        except InputError as exc:
+            raise InputError(f"subshells {', '.join(labels)}: {exc}") from None
         for s in family:
-            scale = s.zeta**2
+            scale = (family[0].zeta if exponents == "shared" else s.zeta) ** 2
             shells.append(
                 Shell(
                     l=s.l,
@@ -88,9 +123,22 @@ def expand(stos: tuple[ShellExponent, ...], gaussians: int, norm: str = "l2") ->
                     coefficients=tuple(fit.coefficients[s.label]),
                     label=s.label,
                     zeta=s.zeta,
+                    fit_error=fit.error[s.label],
                 )
             )
     return tuple(shells)
+
+
+def option_notes(exponents: str, radial: str) -> tuple[str, ...]:
+    """Provenance lines for non-default expansion options (none for the defaults)."""
+    notes = []
+    if exponents == "shared":
+        notes.append("Gaussian exponents: shared within each n, fitted jointly at the rule's zeta ratios")
+    elif exponents == "separate":
+        notes.append("Gaussian exponents: each subshell fitted on its own")
+    if radial == "effective-n":
+        notes.append("radial form: r^(n*-1) exp(-zeta r) with the rule's effective n*")
+    return tuple(notes)
 
 
 def element_basis(
@@ -101,12 +149,14 @@ def element_basis(
     configuration: str | Configuration | None = None,
     zeta: ZetaOverrides | None = None,
     norm: str = "l2",
+    exponents: str = "family",
+    radial: str = "integer",
 ) -> ElementBasis:
-    """The STO-NG basis of one element (or ion, or explicit configuration)."""
+    """The STO-NG basis of one element (or ion, or explicit configuration); options as ``build_basis``."""
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
     conf, stos = sto_exponents(element, rule, charge, configuration, zeta)
-    return ElementBasis(conf.symbol, expand(stos, gaussians, norm), conf.label, stos)
+    return ElementBasis(conf.symbol, expand(stos, gaussians, norm, exponents, radial), conf.label, stos)
 
 
 def build_basis(
@@ -116,6 +166,8 @@ def build_basis(
     charge: int | Mapping[str, int] | None = None,
     zeta: Mapping[str, ZetaOverrides] | None = None,
     norm: str = "l2",
+    exponents: str = "family",
+    radial: str = "integer",
 ) -> Basis:
     """Build the STO-NG basis for a set of elements.
 
@@ -127,8 +179,14 @@ def build_basis(
     gaussians : N, the number of primitive Gaussians per STO.
     charge : None (neutral atoms), an int applied to every element, or {symbol: charge}.
     zeta : {symbol: {label: ζ}} overriding the rule's ζ (bohr⁻¹) for the subshells named.
-    norm : fitting norm of the expansion ("l2", Hehre, Stewart & Pople 1969).
+    norm : fitting norm of the expansion: "l2" (least squares, Hehre, Stewart & Pople 1969) or
+        "h1" (Sobolev norm, value and gradient; contractions renormalised in L²).
+    exponents : "family" (default: joint ζ = 1 fit per n, each subshell scaled by its own ζ²),
+        "shared" (joint fit at the actual ζ ratios, exponents exactly shared) or "separate"
+        (one fit per subshell).
+    radial : "integer" (r^(n−1) e^(−ζr)) or "effective-n" (r^(n*−1) e^(−ζr), the rule's n*).
     """
+    check_options(exponents, radial)
     built: dict[str, ElementBasis] = {}
     zeta = dict(zeta or {})
     for item in elements:
@@ -140,9 +198,9 @@ def build_basis(
         if symbol in built:
             continue
         q = charge.get(symbol, 0) if isinstance(charge, Mapping) else int(charge or 0)
-        built[symbol] = element_basis(symbol, rule, gaussians, q, conf, zeta.pop(symbol, None), norm)
+        built[symbol] = element_basis(symbol, rule, gaussians, q, conf, zeta.pop(symbol, None), norm, exponents, radial)
     if zeta:
         raise InputError(f"zeta overrides name elements not in the basis: {', '.join(sorted(zeta))}")
     if not built:
         raise InputError("no elements to build a basis for")
-    return Basis(tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm)
+    return Basis(tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm, notes=option_notes(exponents, radial))

@@ -36,9 +36,31 @@ def _add_rule(p, default="slater"):
     p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
 
 
+def _add_fit_options(p):
+    from .build import RADIAL_FORMS
+    from .expansion.fit import NORMS
+
+    p.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
+    group = p.add_mutually_exclusive_group()
+    group.add_argument(
+        "--shared-exponents", action="store_true",
+        help="one exponent set per n, fitted jointly at the rule's zeta ratios (allows sp shells)",
+    )
+    group.add_argument("--separate-fits", action="store_true", help="fit every subshell on its own")
+    p.add_argument(
+        "--radial", choices=RADIAL_FORMS, default="integer",
+        help="STO radial form: integer n, or the rule's effective n* (default integer)",
+    )
+
+
+def _exponent_mode(args) -> str:
+    return "shared" if args.shared_exponents else "separate" if args.separate_fits else "family"
+
+
 def _parser() -> argparse.ArgumentParser:
     from .checks import METHODS
     from .formats import formats
+    from .expansion.fit import NORMS
 
     parser = _Parser(prog="stobuilder", description="Slater-type-orbital minimal bases expanded in Gaussians.")
     parser.add_argument("--version", action="version", version=f"stobuilder {__version__}")
@@ -73,6 +95,7 @@ def _parser() -> argparse.ArgumentParser:
         "--zeta", action="append", metavar="ELEMENT:LABEL=VALUE", help="your own ζ for one subshell, e.g. Fe:3d=2.1 (repeatable)"
     )
     b.add_argument("--zeta-file", metavar="FILE.toml", help="your own ζ: a TOML table per element, e.g. [Fe] 3d = 2.1")
+    _add_fit_options(b)
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
 
     t = sub.add_parser("atom", help="one atom with exact STOs: energy, ζ, virial ratio, Gaussian-expansion error")
@@ -117,6 +140,14 @@ def _parser() -> argparse.ArgumentParser:
     )
     a.add_argument("--json", action="store_true", help="print the summary as JSON")
 
+    t = sub.add_parser("fit", help="fit Gaussians to STOs: exponents, coefficients, error; optionally a plot")
+    t.add_argument("subshells", nargs="+", metavar="SUBSHELL", help="e.g. 1s, or 2s 2p (or 2s,2p) sharing exponents")
+    t.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
+    t.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
+    t.add_argument("--zeta", type=float, default=1.0, metavar="Z", help="zeta of the (first) STO in bohr^-1 (default 1)")
+    t.add_argument("--plot", metavar="FILE.png", help="draw the STO, its expansion, the residual and epsilon against N")
+    t.add_argument("--json", action="store_true", help="print JSON")
+
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
     _add_rule(z)
@@ -146,6 +177,9 @@ def _cmd_build(args) -> int:
         split_elements=args.split_elements,
         merge_into=args.merge_into,
         zeta=_build_zeta(args),
+        norm=args.fit,
+        exponents=_exponent_mode(args),
+        radial=args.radial,
     )
     if args.json:
         print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
@@ -183,6 +217,9 @@ def _build_table(report) -> str:
     for e in report.basis.elements:
         stos = "  ".join(f"{s.label} {s.zeta:.4f}" for s in e.stos)
         lines.append(f"  {e.symbol:<8}{e.configuration:<24}{stos}")
+        errors = "  ".join(f"{s.label} {s.fit_error:.2e}" for s in e.shells if s.fit_error is not None)
+        if errors:
+            lines.append(f"  {'':<8}{'fit error (' + report.basis.norm + ')':<24}{errors}")
     for code, path in report.files.items():
         lines.append(f"  wrote {path} ({code})")
     for check in report.checks:
@@ -286,6 +323,29 @@ def _cmd_atom(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------------------- fit
+
+
+def _cmd_fit(args) -> int:
+    from .expansion import lookup
+    from .expansion.report import fit_document, fit_table
+
+    labels = [x for item in args.subshells for x in item.split(",") if x]
+    fit = lookup(labels, args.gaussians, args.fit)
+    doc = fit_document(fit, args.zeta)  # validates --zeta
+    if args.plot:
+        from .expansion.plot import plot_fit
+
+        doc["plot"] = plot_fit(fit, args.plot, args.zeta)
+    if args.json:
+        print(json.dumps(doc, indent=2))
+    else:
+        print(fit_table(fit, args.zeta))
+        if args.plot:
+            print(f"  wrote {args.plot}")
+    return 0
+
+
 # ---------------------------------------------------------------------------- zeta
 
 
@@ -341,6 +401,7 @@ COMMANDS = {
     "build": _cmd_build,
     "batch": _cmd_batch,
     "atom": _cmd_atom,
+    "fit": _cmd_fit,
     "zeta": _cmd_zeta,
     "formats": _cmd_formats,
 }

@@ -46,20 +46,33 @@ class StructureReport:
             "files": dict(self.files),
             "check": self.checks[0].to_json() if self.checks else None,
             "notes": list(self.notes),
+            "fit": {
+                "norm": self.basis.norm,
+                "gaussians": self.basis.gaussians,
+                "error": {
+                    e.symbol: {s.label: s.fit_error for s in e.shells if s.fit_error is not None}
+                    for e in self.basis.elements
+                },
+            },
         }
         if len(self.checks) > 1:
             out["frame_checks"] = [c.to_json() for c in self.checks]
         return out
 
 
-def basis_for(frames: Sequence[Structure], rule: str, gaussians: int, norm: str = "l2", zeta=None) -> Basis:
+def basis_for(
+    frames: Sequence[Structure], rule: str, gaussians: int, norm: str = "l2", zeta=None,
+    exponents: str = "family", radial: str = "integer",
+) -> Basis:
     """The basis for the union of the frames' elements. A structure of one atom is an atomic ion:
     its basis follows the ion's configuration; atoms in molecules and solids use neutral atoms."""
     elements = elements_of(tuple(frames))
     charge = None
     if len(elements) == 1 and all(len(f.symbols) == 1 for f in frames) and len({f.charge for f in frames}) == 1:
         charge = frames[0].charge
-    return build_basis(elements, rule=rule, gaussians=gaussians, charge=charge, zeta=zeta, norm=norm)
+    return build_basis(
+        elements, rule=rule, gaussians=gaussians, charge=charge, zeta=zeta, norm=norm, exponents=exponents, radial=radial
+    )
 
 
 def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
@@ -158,6 +171,8 @@ def build_structures(
     write: bool = True,
     split_elements: bool = False,
     merge_into: str | None = None,
+    exponents: str = "family",
+    radial: str = "integer",
 ) -> tuple[StructureReport, ...]:
     """Read every structure file, build its basis, write one file per structure and code, and
     (with ``check``) run the SCF checks. All inputs are read and every text is made before the
@@ -168,6 +183,7 @@ def build_structures(
     split_elements  one file per structure, code and element: ``<stem>.<Symbol><extension>``
     merge_into      instead of new files, add or replace the elements of all structures in this
                     existing basis file of one format (backed up first, see ``merge_file``)
+    norm, exponents, radial  expansion options, see ``stobuilder.build_basis``
     """
     if not paths:
         raise InputError("no structure files given")
@@ -186,7 +202,7 @@ def build_structures(
     sources: dict[str, str] = {}
     for path in paths:
         frames = read_structures(path, charge=charge, spin=spin)
-        basis = basis_for(frames, rule, gaussians, norm, _zeta_for(zeta, frames))
+        basis = basis_for(frames, rule, gaussians, norm, _zeta_for(zeta, frames), exponents, radial)
         files = {}
         for fmt in fmts if merge_into is None else ():
             parts = [(e.symbol, Basis((e,), basis.rule, basis.gaussians, basis.norm, basis.notes)) for e in basis.elements]

@@ -61,7 +61,8 @@ def _integrals_one(nu_max: int, a: float, zeta: float) -> list[float]:
 def radial_integrals_mp(nu_max: int, a, zeta=1):
     """I_1 … I_nu_max at one α in mpmath precision (the current mp.dps), same recurrences.
 
-    Used to polish fits: ε and its gradient need more than double precision when ε ≲ 1e-6.
+    An independent extended-precision check of the fits (tests): the Gram form 1 − sᵀG⁻¹s of ε
+    and its gradient need more than double precision when ε ≲ 1e-6.
     """
     import mpmath as mp
 

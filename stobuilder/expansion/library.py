@@ -1,23 +1,34 @@
-"""The shipped fit library (data/fits_l2.json) and look-ups with fitting on demand.
+"""The shipped fit library (data/fits_l2.json, data/fits_h1.json), the user's fit cache, look-ups.
 
 File layout (our own): {"provenance": {...}, "norm": "l2", "fits": {family: {N: entry}}} where
 family is the comma-joined (n, l)-sorted labels ("3s,3p,3d"), N the number of primitives as a
 string, and entry = {"exponents": [...], "coefficients": {label: [...]}, "error": {label: ε}}.
 Floats are written with repr() precision, keys in a fixed order, so a regeneration on the same
 software stack is byte-identical (``python -m stobuilder.expansion.regenerate --check``).
+
+Fits the library lacks (other subshell combinations, non-integer n*, unequal ζ ratios) are fitted
+on demand and cached, one small JSON file per fit, in the user's cache folder:
+``$STOBUILDER_CACHE_DIR`` if set, else ``platformdirs.user_cache_dir("stobuilder")``, sub-folder
+``fits``. Files are written atomically; a damaged or foreign file is ignored and refitted. The
+package directory is never written to.
 """
 
 from __future__ import annotations
 
+import hashlib
 import json
+import os
+import tempfile
 from functools import lru_cache
 from importlib import resources
-from typing import Iterable
+from pathlib import Path
+from typing import Iterable, Mapping
 
 from .. import __version__
-from .fit import MIN_RATIO, NORMS, Fit, _check_inputs, fit_sto, normalise_subshells
+from .fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
 
-LIBRARY_MAX_GAUSSIANS = 6
+LIBRARY_MAX_GAUSSIANS = 12
+CACHE_ENV = "STOBUILDER_CACHE_DIR"
 REGENERATE_COMMAND = "python -m stobuilder.expansion.regenerate"
 
 
@@ -46,6 +57,10 @@ def family_key(labels: Iterable[str]) -> str:
 
 def fit_to_entry(fit: Fit) -> dict:
     extra = {"constrained_min_ratio": MIN_RATIO} if fit.constrained else {}
+    if fit.n_eff:
+        extra["n_eff"] = dict(fit.n_eff)
+    if fit.zeta_ratio:
+        extra["zeta_ratio"] = dict(fit.zeta_ratio)
     return {**extra,
         "exponents": list(fit.exponents),
         "coefficients": {label: list(fit.coefficients[label]) for label in fit.subshells},
@@ -62,22 +77,32 @@ def entry_to_fit(labels: tuple[str, ...], gaussians: int, norm: str, entry: dict
         coefficients={label: tuple(float(c) for c in entry["coefficients"][label]) for label in labels},
         error={label: float(entry["error"][label]) for label in labels},
         constrained="constrained_min_ratio" in entry,
+        n_eff={k: float(v) for k, v in entry.get("n_eff", {}).items()},
+        zeta_ratio={k: float(v) for k, v in entry.get("zeta_ratio", {}).items()},
     )
 
 
-def provenance() -> dict:
+_METHODS = {
+    "l2": "least-squares expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents "
+    "within a family (objective: sum of the squared L2 residual norms)",
+    "h1": "expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents within a family, "
+    "minimising the sum of the squared Sobolev H1 residual norms |f|^2 + |grad f|^2 (gradient in units of 1/zeta); "
+    "coefficients then rescaled to an L2-normalised contraction",
+}
+
+
+def provenance(norm: str = "l2") -> dict:
     return {
-        "method": (
-            "least-squares expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing "
-            "exponents within a family (objective: sum of the squared-residual norms); variable projection "
-            "over ln(alpha) with analytic overlaps and gradients, deterministic multi-start, BFGS + Newton"
-        ),
+        "method": _METHODS[norm] + "; variable projection over ln(alpha) with a sampled residual (trapezoidal rule "
+        "in ln r), Levenberg-Marquardt, deterministic starts (continuation from N-1 and even-tempered sets)",
         "sources": [
             "W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)",
             "R. F. Stewart, J. Chem. Phys. 52, 431 (1970)",
+            "G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413 (1973)",
         ],
         "units": "exponents in bohr^-2 at zeta = 1 bohr^-1 (scale by zeta^2); coefficients for normalised "
-        "primitives, contraction normalised to 1; error = least-squares residual norm squared",
+        "primitives, contraction normalised to 1; error = squared residual norm of the optimum in the fitted norm",
+        "algorithm": ALGORITHM,
         "command": REGENERATE_COMMAND,
         "version": __version__,
     }
@@ -86,7 +111,7 @@ def provenance() -> dict:
 def render_library(fits: dict[tuple[str, ...], dict[int, Fit]], norm: str = "l2") -> str:
     """The library file text for the given fits (deterministic)."""
     body = {
-        "provenance": provenance(),
+        "provenance": provenance(norm),
         "norm": norm,
         "fits": {
             family_key(labels): {str(n): fit_to_entry(fits[labels][n]) for n in sorted(fits[labels])}
@@ -108,23 +133,89 @@ def _library(norm: str) -> dict:
     return json.loads(path.read_text())["fits"]
 
 
+def cache_dir() -> Path:
+    """The folder of fits computed on demand: $STOBUILDER_CACHE_DIR, else the user cache folder."""
+    env = os.environ.get(CACHE_ENV)
+    if env:
+        return Path(env) / "fits"
+    import platformdirs
+
+    return Path(platformdirs.user_cache_dir("stobuilder")) / "fits"
+
+
+def _cache_key(labels, gaussians, norm, n_eff, zeta_ratio) -> str:
+    parts = [ALGORITHM, norm, family_key(labels), str(gaussians)]
+    parts += [f"n*{k}={v!r}" for k, v in n_eff.items()] + [f"ratio{k}={v!r}" for k, v in zeta_ratio.items()]
+    return ";".join(parts)
+
+
+def _write_atomic(path: Path, text: str) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=path.name + ".", suffix=".tmp")
+    try:
+        with os.fdopen(fd, "w", encoding="ascii") as fh:
+            fh.write(text)
+        os.replace(tmp, path)
+    except BaseException:
+        os.unlink(tmp)
+        raise
+
+
+def _cached_fit(labels, gaussians, norm, n_eff, zeta_ratio) -> Fit:
+    """Read the fit from the user cache, or fit it and store it there (best effort: an unwritable
+    cache folder only costs the refit next time)."""
+    key = _cache_key(labels, gaussians, norm, n_eff, zeta_ratio)
+    path = cache_dir() / (hashlib.sha256(key.encode()).hexdigest()[:24] + ".json")
+    try:
+        doc = json.loads(path.read_text(encoding="ascii"))
+        if doc.get("key") == key:
+            return entry_to_fit(labels, gaussians, norm, doc["fit"])
+    except (OSError, ValueError, KeyError, TypeError, AttributeError):
+        pass
+    fit = fit_sto(list(labels), gaussians, norm, n_eff=n_eff or None, zeta_ratio=zeta_ratio or None)
+    text = json.dumps({"key": key, "version": __version__, "fit": fit_to_entry(fit)}, indent=1) + "\n"
+    try:
+        _write_atomic(path, text)
+    except OSError:
+        pass
+    return fit
+
+
 @lru_cache(maxsize=None)
-def _fit_cached(labels: tuple[str, ...], gaussians: int, norm: str) -> Fit:
-    return fit_sto(list(labels), gaussians, norm)
+def _fit_cached(labels: tuple[str, ...], gaussians: int, norm: str, n_eff: tuple = (), zeta_ratio: tuple = ()) -> Fit:
+    return _cached_fit(labels, gaussians, norm, dict(n_eff), dict(zeta_ratio))
 
 
-def lookup(subshells: str | Iterable[str], gaussians: int, norm: str = "l2") -> Fit:
-    """The fit of ``subshells`` with ``gaussians`` primitives: from the library, else fitted.
+def lookup(
+    subshells: str | Iterable[str],
+    gaussians: int,
+    norm: str = "l2",
+    n_eff: Mapping[str, float] | None = None,
+    zeta_ratio: Mapping[str, float] | None = None,
+) -> Fit:
+    """The fit of ``subshells`` with ``gaussians`` primitives: from the library, else the cache, else fitted.
 
-    Parameters are those of :func:`stobuilder.expansion.fit_sto`. Fits missing from the shipped
-    library are computed and memoised in this process (never written to the package directory).
+    Parameters are those of :func:`stobuilder.expansion.fit_sto`. Reading the shipped library
+    costs microseconds; fits it lacks are computed once, stored in the user cache (see
+    ``cache_dir``) and memoised in this process.
     """
     _check_inputs(gaussians, norm)
     labels = normalise_subshells(subshells)
-    entry = _library(norm).get(family_key(labels), {}).get(str(int(gaussians)))
-    if entry is not None:
-        return entry_to_fit(labels, int(gaussians), norm, entry)
-    return _fit_cached(labels, int(gaussians), norm)
+    from ..elements import parse_subshell_label
+
+    n_map = {k: v for k, v in _positive_map("n_eff", n_eff, labels, 1.0, 8.0).items() if v != parse_subshell_label(k)[0]}
+    r_map = {k: v for k, v in _positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0).items() if v != 1.0}
+    if not n_map and not r_map:
+        fit = _from_library(labels, int(gaussians), norm)
+        if fit is not None:
+            return fit
+    return _fit_cached(labels, int(gaussians), norm, tuple(n_map.items()), tuple(r_map.items()))
 
 
-__all__ = ["LIBRARY_MAX_GAUSSIANS", "NORMS", "library_families", "lookup", "render_library"]
+@lru_cache(maxsize=4096)
+def _from_library(labels: tuple[str, ...], gaussians: int, norm: str) -> Fit | None:
+    entry = _library(norm).get(family_key(labels), {}).get(str(gaussians))
+    return None if entry is None else entry_to_fit(labels, gaussians, norm, entry)
+
+
+__all__ = ["CACHE_ENV", "LIBRARY_MAX_GAUSSIANS", "NORMS", "cache_dir", "library_families", "lookup", "render_library"]
