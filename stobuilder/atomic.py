@@ -456,7 +456,9 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
 
 
 # ---------------------------------------------------------------- the same STOs as Gaussians
-def gaussian_energy(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, gaussians: int) -> AtomResult:
+def gaussian_energy(
+    conf: Configuration, exps: tuple[ShellExponent, ...], method: str, gaussians: int, norm: str = "l2"
+) -> AtomResult:
     """SCF energy (hartree) of the same determinant with every STO replaced by its N-Gaussian expansion.
 
     Each subshell is fitted on its own (stobuilder.expansion.lookup, exponents at ζ = 1 scaled by ζ²);
@@ -472,7 +474,7 @@ def gaussian_energy(conf: Configuration, exps: tuple[ShellExponent, ...], method
     shells = []
     for label in labels:  # (l, n) order, as PySCF sorts shells by l
         e = by_label[label]
-        fit = lookup(label, int(gaussians))
+        fit = lookup(label, int(gaussians), norm)
         shells.append([e.l] + [[a, c] for a, c in zip(fit.scaled(e.zeta), fit.coefficients[label])])
     mol = gto.M(atom=[["X", (0.0, 0.0, 0.0)]], basis={"X": shells}, cart=False, verbose=0)
     ints = _Integrals(basis, mol.intor("int1e_ovlp"), mol.intor("int1e_kin"),
@@ -491,7 +493,7 @@ def gaussian_energy(conf: Configuration, exps: tuple[ShellExponent, ...], method
 
 
 def atom_report(element: str, rule: str = "slater", configuration=None, charge: int = 0, zeta=None,
-                optimize: bool = False, gaussians=(), method: str = "auto") -> dict:
+                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = "l2") -> dict:
     """The exact-STO atom and its N-Gaussian imitations, as a JSON-ready dict.
 
     Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
@@ -513,7 +515,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     else:
         exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
         result = _solve(conf, exps, m).result
-    rows = [{"gaussians": n, "energy_hartree": gaussian_energy(conf, exps, m, n).energy} for n in counts]
+    rows = [{"gaussians": n, "fit": norm, "energy_hartree": gaussian_energy(conf, exps, m, n, norm).energy} for n in counts]
     return {
         "element": result.element,
         "configuration": result.configuration,

@@ -110,6 +110,9 @@ def _parser() -> argparse.ArgumentParser:
         help="also the energy with N-Gaussian expansions of the same STOs, e.g. --gaussians 3 6 12",
     )
     t.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
+    t.add_argument(
+        "--fit", choices=("l2", "h1"), default="l2", help="fitting norm of the Gaussian expansions (default l2)"
+    )
     t.add_argument("--json", action="store_true", help="print JSON")
 
     f = sub.add_parser("formats", help="the basis-file formats: name, file extension, description")
@@ -305,6 +308,7 @@ def _cmd_atom(args) -> int:
         optimize=args.optimize,
         gaussians=args.gaussians,
         method=args.method,
+        norm=args.fit,
     )
     if args.json:
         print(json.dumps(doc, indent=2))
@@ -315,7 +319,10 @@ def _cmd_atom(args) -> int:
     print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}")
     for row in doc["gaussian"]:
         diff = row["energy_hartree"] - doc["energy_exact_hartree"]
-        print(f"  STO-{row['gaussians']}G: E = {row['energy_hartree']:.10f} hartree, E - E(exact) = {diff:+.3e}")
+        print(
+            f"  STO-{row['gaussians']}G ({row['fit']} fit): E = {row['energy_hartree']:.10f} hartree, "
+            f"E - E(exact) = {diff:+.3e}"
+        )
     print("  orbital energies/hartree: " + "  ".join(
         f"{o['label']}{'' if o['spin'] == 'both' else '(' + o['spin'][0] + ')'} {o['energy_hartree']:.5f}"
         for o in doc["orbital_energies"] if o["occupation"] > 0

@@ -128,18 +128,29 @@ def test_report_gaussian_error_shrinks():
     assert all(b < a for a, b in zip(diffs, diffs[1:]))
 
 
-NE_SHORTFALL = pytest.mark.xfail(
+L2_SHORTFALL = pytest.mark.xfail(
     strict=True,
-    reason="measured E(STO-12G) − E(exact) = 2.8e-4 hartree for Ne at the optimised ζ (Li and C: < 1e-4); "
-    "the least-squares 1s fit misses the cusp and its energy error grows about as Z², so the 1e-4 target "
-    "needs more than 12 Gaussians for Ne (N, O, F not measured)",
+    reason="measured E(STO-12G, least squares) − E(exact) at the optimised ζ: Li 1.6e-5, C 6.7e-5, N 9.2e-5, "
+    "O 1.2e-4, F 1.5e-4, Ne 1.9e-4 hartree: the least-squares 1s fit misses the cusp and its energy error grows "
+    "about as Z², so O, F and Ne need more than 12 Gaussians in that norm; the H1 fits reach the target",
 )
+FIRST_ROW = ["Li", "B", "C", "N", "O", "F", "Ne"]
 
 
 @pytest.mark.slow
-@pytest.mark.parametrize("symbol", ["Li", "C", pytest.param("Ne", marks=NE_SHORTFALL)])
+@pytest.mark.parametrize("symbol", [s if s in ("Li", "B", "C", "N") else pytest.param(s, marks=L2_SHORTFALL) for s in FIRST_ROW])
 def test_report_largest_expansion_first_row(symbol):
     # Target of the issue: below 1e-4 hartree per first-row atom at the largest N the expansion
-    # module supports (MAX_GAUSSIANS, 12 now).
+    # module supports (MAX_GAUSSIANS, 12 now), least-squares expansions.
     rep = atom_report(symbol, gaussians=[MAX_GAUSSIANS], optimize=True)
     assert 0 < rep["gaussian"][0]["energy_hartree"] - rep["energy_exact_hartree"] < 1e-4
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("symbol", FIRST_ROW)
+def test_report_largest_h1_expansion_first_row(symbol):
+    # The same target with the Sobolev-norm expansions, which control the kinetic energy: met for
+    # every first-row atom (measured |ΔE| ≤ 3e-5 hartree at N = 12). The H1 contraction is not the
+    # STO itself, so its SCF energy may lie slightly below the exact-STO one (measured for Li–Ne).
+    rep = atom_report(symbol, gaussians=[MAX_GAUSSIANS], optimize=True, norm="h1")
+    assert abs(rep["gaussian"][0]["energy_hartree"] - rep["energy_exact_hartree"]) < 1e-4

@@ -72,3 +72,20 @@ def test_optimized_empty_partner_and_on_demand():
     first = shell_exponents(conf, "optimized")
     assert shell_exponents(conf, "optimized") == first
     assert {e.label for e in first} == {"1s", "2s", "2p"}
+
+
+def test_optimized_on_demand_is_cached_on_disk(tmp_path, monkeypatch):
+    # Beyond the shipped table (here an ion, Li+ 1s2) the optimum is computed once and kept in
+    # the user cache folder; the cached value is the same optimum (He-like ion: ζ = Z − 5/16,
+    # the textbook variational result, e.g. Levine, Quantum Chemistry).
+    import stobuilder
+    from stobuilder.screening import optimized
+
+    monkeypatch.setenv("STOBUILDER_CACHE_DIR", str(tmp_path))
+    optimized._optimise.cache_clear()
+    zeta = stobuilder.exponents("Li", rule="optimized", charge=1)["1s"]
+    assert zeta == pytest.approx(3 - 5 / 16, abs=1e-6)
+    files = list((tmp_path / "optimized").glob("Li-*.json"))
+    assert len(files) == 1
+    optimized._optimise.cache_clear()
+    assert stobuilder.exponents("Li", rule="optimized", charge=1)["1s"] == zeta
