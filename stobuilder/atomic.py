@@ -32,6 +32,7 @@ import scipy.linalg
 import scipy.optimize
 
 from . import sto
+from .build import apply_zeta_overrides
 from .elements import L_LETTERS, M_FILL_ORDER, Configuration, capacity, parse_subshell_label, resolve
 from .errors import InputError
 from .screening import ShellExponent, basis_subshells, shell_exponents
@@ -347,28 +348,6 @@ def _orbitals(mf, method, basis, classify) -> tuple[OrbitalEnergy, ...]:
 
 
 # ---------------------------------------------------------------- inputs
-def apply_zeta_overrides(exps: tuple[ShellExponent, ...], zeta: dict | None, where: str = "") -> tuple[ShellExponent, ...]:
-    """Replace ζ of the named subshells; InputError for unknown labels, non-numeric or non-positive values."""
-    if not zeta:
-        return exps
-    if not isinstance(zeta, dict):
-        raise InputError(f"zeta overrides{where} must be a mapping label → value, got {type(zeta).__name__}")
-    known = {e.label: e for e in exps}
-    out = dict(known)
-    for label, value in zeta.items():
-        key = str(label).strip()
-        if key not in known:
-            raise InputError(f"zeta override {label!r}{where}: not a basis subshell (basis: {', '.join(known)})")
-        if isinstance(value, bool) or not isinstance(value, Real):
-            raise InputError(f"zeta override {key}={value!r}{where}: not a number")
-        v = float(value)
-        if not (math.isfinite(v) and v > 0):
-            raise InputError(f"zeta override {key}={value!r}{where}: must be a positive number")
-        e = known[key]
-        out[key] = ShellExponent(e.label, e.n, e.l, v * e.n_eff, e.n_eff, v)
-    return tuple(out[e.label] for e in exps)
-
-
 def _conf(element, charge, configuration) -> Configuration:
     conf = resolve(element, charge, configuration)
     for s in conf.subshells:

@@ -18,6 +18,7 @@ of r^(n−1) e^(−ζr).
 from __future__ import annotations
 
 import math
+from numbers import Real
 from collections.abc import Iterable, Mapping
 from itertools import groupby
 
@@ -33,25 +34,29 @@ RADIAL_FORMS = ("integer", "effective-n")
 
 
 def apply_zeta_overrides(
-    stos: tuple[ShellExponent, ...], overrides: ZetaOverrides | None, where: str
+    stos: tuple[ShellExponent, ...], overrides: ZetaOverrides | None, where: str = ""
 ) -> tuple[ShellExponent, ...]:
-    """Replace the ζ of the subshells named in ``overrides`` (label → ζ in bohr⁻¹)."""
+    """Replace the ζ (bohr⁻¹) of the subshells named in ``overrides`` (label → ζ); ``where`` is
+    appended to messages (" for Fe"). InputError for an unknown label, a non-numeric or a
+    non-positive value."""
     if not overrides:
         return stos
-    labels = {s.label for s in stos}
-    out = []
+    if not isinstance(overrides, Mapping):
+        raise InputError(f"zeta overrides{where} must be a mapping label → value, got {type(overrides).__name__}")
+    known = {s.label: s for s in stos}
+    out = dict(known)
     for label, value in overrides.items():
-        if label not in labels:
-            raise InputError(f"{where}: no basis subshell {label!r} to override (it has {', '.join(sorted(labels))})")
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value) or value <= 0:
-            raise InputError(f"{where}: zeta for {label} must be a positive number, got {value!r}")
-    for s in stos:
-        if s.label in overrides:
-            zeta = float(overrides[s.label])
-            out.append(ShellExponent(s.label, s.n, s.l, zeta * s.n_eff, s.n_eff, zeta))
-        else:
-            out.append(s)
-    return tuple(out)
+        key = str(label).strip()
+        if key not in known:
+            raise InputError(f"zeta override {label!r}{where}: not a basis subshell (basis: {', '.join(known)})")
+        if isinstance(value, bool) or not isinstance(value, Real):
+            raise InputError(f"zeta override {key}={value!r}{where}: not a number")
+        v = float(value)
+        if not (math.isfinite(v) and v > 0):
+            raise InputError(f"zeta override {key}={value!r}{where}: must be a positive number")
+        s = known[key]
+        out[key] = ShellExponent(s.label, s.n, s.l, v * s.n_eff, s.n_eff, v)
+    return tuple(out[s.label] for s in stos)
 
 
 def sto_exponents(
@@ -63,7 +68,7 @@ def sto_exponents(
 ) -> tuple[Configuration, tuple[ShellExponent, ...]]:
     """The configuration and the STO exponents of every basis subshell of one element."""
     conf = resolve(element, charge, configuration)
-    stos = apply_zeta_overrides(shell_exponents(conf, rule), zeta, conf.symbol)
+    stos = apply_zeta_overrides(shell_exponents(conf, rule), zeta, f" for {conf.symbol}")
     return conf, stos
 
 
