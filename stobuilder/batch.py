@@ -58,7 +58,7 @@ MAX_POOL_RESTARTS = 2  # a local pool whose worker process died is rebuilt this 
 class BatchOptions:
     """Everything that decides an item's output; recorded with every item and compared on resume.
 
-    rule, gaussians, codes, sp_shells, norm  as for ``build_structures``
+    rule, gaussians, codes, sp_shells, norm, exponents, radial  as for ``build_structures``
     check             run the SCF checks (the first ``max_check_frames`` frames)
     method            SCF method for the checks ("auto", "rhf", "rohf", "uhf")
     charge, spin      override the file's charge (e) and 2S; None keeps the file's
@@ -73,6 +73,8 @@ class BatchOptions:
     spin: int | None = None
     sp_shells: bool = False
     norm: str = "l2"
+    exponents: str = "family"
+    radial: str = "integer"
     max_check_frames: int = 3
 
     def validate(self) -> "BatchOptions":
@@ -90,6 +92,15 @@ class BatchOptions:
             raise InputError(f"--gaussians must be a whole number >= 1, got {self.gaussians!r}")
         if self.method not in METHODS:
             raise InputError(f"unknown SCF method {self.method!r}; choose one of {', '.join(METHODS)}")
+        from .build import EXPONENT_MODES, RADIAL_FORMS
+        from .expansion.fit import NORMS
+
+        if self.norm not in NORMS:
+            raise InputError(f"unknown fitting norm {self.norm!r}; choose one of {', '.join(NORMS)}")
+        if self.exponents not in EXPONENT_MODES:
+            raise InputError(f"unknown exponent mode {self.exponents!r}; choose one of {', '.join(EXPONENT_MODES)}")
+        if self.radial not in RADIAL_FORMS:
+            raise InputError(f"unknown radial form {self.radial!r}; choose one of {', '.join(RADIAL_FORMS)}")
         if self.max_check_frames < 1:
             raise InputError(f"max_check_frames must be >= 1, got {self.max_check_frames}")
         return replace(self, codes=tuple(dict.fromkeys(self.codes)))
@@ -105,6 +116,8 @@ class BatchOptions:
             "spin": self.spin,
             "sp_shells": self.sp_shells,
             "norm": self.norm,
+            "exponents": self.exponents,
+            "radial": self.radial,
             "max_check_frames": self.max_check_frames,
             "stobuilder": __version__,
         }
@@ -339,7 +352,10 @@ def basis_key(frames, options: BatchOptions) -> tuple:
 
     single_atom = all(len(f.symbols) == 1 for f in frames)
     charges = tuple(sorted({f.charge for f in frames})) if single_atom else ()
-    return (elements_of(tuple(frames)), single_atom, charges, options.rule, options.gaussians, options.norm)
+    return (
+        elements_of(tuple(frames)), single_atom, charges, options.rule, options.gaussians, options.norm,
+        options.exponents, options.radial,
+    )
 
 
 _BASIS_CACHE: dict[tuple, object] = {}
@@ -353,7 +369,9 @@ def _cached_basis(key: tuple, frames, options: BatchOptions):
 
     basis = _BASIS_CACHE.get(key)
     if basis is None:
-        basis = basis_for(frames, options.rule, options.gaussians, options.norm)
+        basis = basis_for(
+            frames, options.rule, options.gaussians, options.norm, exponents=options.exponents, radial=options.radial
+        )
         if len(_BASIS_CACHE) >= _CACHE_LIMIT:
             _BASIS_CACHE.clear()
             _TEXT_CACHE.clear()

@@ -136,6 +136,7 @@ def _parser() -> argparse.ArgumentParser:
     a.add_argument("--charge", type=int, help="total charge of every structure (overrides the files)")
     a.add_argument("--spin", type=int, help="2S of every structure (overrides the files)")
     a.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    _add_fit_options(a)
     a.add_argument("--force", action="store_true", help="recompute every item, whatever the manifest says")
     a.add_argument(
         "--progress", choices=("auto", "bar", "lines", "off"), default="auto",
@@ -268,6 +269,9 @@ def _cmd_batch(args) -> int:
         charge=args.charge,
         spin=args.spin,
         sp_shells=args.sp_shells,
+        norm=args.fit,
+        exponents=_exponent_mode(args),
+        radial=args.radial,
     ).validate()
     items = batch.discover(args.inputs, exclude=args.out)
     client = executor = None
