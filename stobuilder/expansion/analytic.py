@@ -32,6 +32,7 @@ import math
 from dataclasses import dataclass
 
 import numpy as np
+from scipy.linalg import cho_factor, cho_solve
 from scipy.special import erfcx, gammaln
 
 from .integrals import _SWITCH, radial_integrals_mp
@@ -140,6 +141,7 @@ class Problem:
         self.bounds = (math.log(ALPHA_MIN * zmin * zmin), math.log(ALPHA_MAX * zmax * zmax))
         self.norm2 = [sto_h1_norm2(t.n_eff, t.l, t.zeta, self.scale) if self.h1 else 1.0 for t in targets]
         self.integer = [float(t.n_eff).is_integer() for t in targets]
+        self._nonint_cache: dict[tuple[float, float, float], tuple[float, ...]] = {}
 
     # ------------------------------------------------------------------ double precision
     def _integrals(self, alpha: np.ndarray) -> list[np.ndarray]:
@@ -154,12 +156,23 @@ class Problem:
                     cache[t.zeta] = integrals_vec(top, alpha, t.zeta)
                 out.append(cache[t.zeta][int(m) - 1 : int(m) + 3])
             else:
-                import mpmath as mp
-
-                with mp.workdps(24):
-                    cols = [integrals_nonint_mp(m, 4, float(a), t.zeta) for a in alpha]
-                out.append(np.array([[float(v) for v in col] for col in cols]).T)
+                out.append(np.array([self._nonint_column(m, float(a), t.zeta) for a in alpha]).T)
         return out
+
+    def _nonint_column(self, nu: float, a: float, zeta: float) -> tuple[float, ...]:
+        """I_ν … I_(ν+3) at one α for non-integer ν (mpmath hyperu, 24 digits), cached per (ν, α, ζ):
+        a fit re-evaluates most exponents unchanged (finite differences, line searches)."""
+        key = (nu, a, zeta)
+        col = self._nonint_cache.get(key)
+        if col is None:
+            import mpmath as mp
+
+            if len(self._nonint_cache) > 200000:
+                self._nonint_cache.clear()
+            with mp.workdps(24):
+                col = tuple(float(v) for v in integrals_nonint_mp(nu, 4, a, zeta))
+            self._nonint_cache[key] = col
+        return col
 
     def _gram(self, l: int, alpha: np.ndarray, gradient: bool):
         """Gram matrix of the normalised Gaussians in the norm, and ∂G_kj/∂ln α_k (first index)."""
@@ -207,18 +220,17 @@ class Problem:
             if t.l not in grams:
                 g, dg = self._gram(t.l, alpha, gradient)
                 try:
-                    chol = np.linalg.cholesky(g)
+                    chol = cho_factor(g, lower=True, check_finite=False)
                 except np.linalg.LinAlgError:
                     return None
-                diag = np.diag(chol)
-                if diag.min() < MIN_RCOND * diag.max():
+                diag = np.diag(chol[0])
+                if not diag.min() >= MIN_RCOND * diag.max():
                     return None
                 grams[t.l] = (g, dg, chol)
             g, dg, chol = grams[t.l]
             s, ds = self._overlaps(t, alpha, it, gradient)
-            y = np.linalg.solve(chol, s)
-            c = np.linalg.solve(chol.T, y)
-            eps.append(norm2 - float(y @ y))
+            c = cho_solve(chol, s, check_finite=False)
+            eps.append(norm2 - float(s @ c))
             coefs.append(c)
             if gradient:
                 grad += -2.0 * c * ds + 2.0 * c * (dg @ c)
