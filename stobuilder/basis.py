@@ -86,6 +86,7 @@ class Basis:
     gaussians: int = 3
     norm: str = "l2"
     notes: tuple[str, ...] = field(default=())
+    radial: str = "integer"  # "effective-n" where the STOs are r^(n*−1) e^(−ζr)
 
     def __post_init__(self):
         symbols = [e.symbol for e in self.elements]

@@ -208,4 +208,6 @@ def build_basis(
         raise InputError(f"zeta overrides name elements not in the basis: {', '.join(sorted(zeta))}")
     if not built:
         raise InputError("no elements to build a basis for")
-    return Basis(tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm, notes=option_notes(exponents, radial))
+    return Basis(
+        tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm, notes=option_notes(exponents, radial), radial=radial
+    )

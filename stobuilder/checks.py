@@ -308,13 +308,16 @@ def check_structure(
 def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) -> tuple[ExactAtom, ...]:
     """Each element's free atom with the exact STOs its basis expands (stobuilder.atomic) beside
     the same atom with the Gaussian basis. ``gaussian`` holds Gaussian free-atom energies already
-    computed. Elements without STO provenance (read from a file) are left out."""
+    computed. Elements without STO provenance (read from a file) are left out, and so are STOs of
+    non-integer n* (``radial="effective-n"``), which the exact-STO integrals do not cover."""
     from .atomic import atom_energy
 
     out = []
     for symbol in symbols:
         element = basis[symbol]
         if not element.stos:
+            continue
+        if basis.radial == "effective-n" and any(s.n_eff != s.n for s in element.stos):
             continue
         exact = atom_energy(
             symbol,

@@ -7,7 +7,7 @@ from __future__ import annotations
 
 import os
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 from .basis import Basis
 from .build import build_basis
@@ -108,7 +108,9 @@ def union_basis(bases: Sequence[Basis]) -> Basis:
                 raise InputError(f"the structures give {e.symbol} two different bases (an ion and a neutral atom?)")
             elements.setdefault(e.symbol, e)
     first = bases[0]
-    return Basis(tuple(elements.values()), rule=first.rule, gaussians=first.gaussians, norm=first.norm)
+    return Basis(
+        tuple(elements.values()), rule=first.rule, gaussians=first.gaussians, norm=first.norm, radial=first.radial
+    )
 
 
 def backup_path(path: str) -> str:
@@ -205,7 +207,7 @@ def build_structures(
         basis = basis_for(frames, rule, gaussians, norm, _zeta_for(zeta, frames), exponents, radial)
         files = {}
         for fmt in fmts if merge_into is None else ():
-            parts = [(e.symbol, Basis((e,), basis.rule, basis.gaussians, basis.norm, basis.notes)) for e in basis.elements]
+            parts = [(e.symbol, replace(basis, elements=(e,))) for e in basis.elements]
             for symbol, part in parts if split_elements else [(None, basis)]:
                 target = output_path(path, out_dir, fmt.name, symbol)
                 if target in sources:

@@ -100,3 +100,15 @@ def test_build_bad_zeta(tmp_path, capsys, extra, named):
     code, out, err = run(["build", str(_h2(tmp_path)), "--out", str(out_dir), *extra], capsys)
     assert code == 2 and named in err and len(err.strip().splitlines()) == 1
     assert not out_dir.exists()
+
+
+def test_exact_atoms_leave_out_effective_n_stos():
+    # The exact-STO integrals cover integer n only; with r^(n*−1) STOs (Slater 1930: n* = 3.7 for
+    # n = 4) the K atom has no exact counterpart and is left out rather than compared wrongly.
+    import stobuilder
+    from stobuilder.checks import exact_sto_atoms
+
+    effective = stobuilder.build_basis(["H", "K"], radial="effective-n")
+    assert [a.symbol for a in exact_sto_atoms(effective, ["H", "K"])] == ["H"]
+    integer = stobuilder.build_basis(["H", "K"])
+    assert [a.symbol for a in exact_sto_atoms(integer, ["H", "K"])] == ["H", "K"]
