@@ -7,6 +7,7 @@ and provides ``write(basis, sp_shells=False) -> str``, a strict ``read(text) -> 
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from importlib import import_module
 from typing import Callable
 
@@ -41,17 +42,23 @@ class Format:
         return {e.symbol: e.shells for e in self.read(text).elements}
 
 
-def formats() -> dict[str, Format]:
-    """All registered formats, by name, in registry order."""
-    out = {}
+@lru_cache(maxsize=1)
+def _registry() -> tuple[Format, ...]:
+    out = []
     for mod_name in _MODULES:
         mod = import_module(f"{__name__}.{mod_name}")
-        out[mod.NAME] = Format(
-            mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write, getattr(mod, "read", None),
-            getattr(mod, "merge", None),
-            getattr(mod, "entries", None),
+        out.append(
+            Format(
+                mod.NAME, mod.EXTENSION, mod.DESCRIPTION, mod.write, getattr(mod, "read", None),
+                getattr(mod, "merge", None), getattr(mod, "entries", None),
+            )
         )
-    return out
+    return tuple(out)
+
+
+def formats() -> dict[str, Format]:
+    """All registered formats, by name, in registry order (the modules are read once)."""
+    return {f.name: f for f in _registry()}
 
 
 def get_format(name: str) -> Format:

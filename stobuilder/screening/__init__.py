@@ -7,6 +7,7 @@ and one line in ``_MODULES`` (see DEVELOPERS.md).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 from importlib import import_module
 from typing import Callable
 
@@ -25,13 +26,18 @@ class Rule:
 _MODULES = ("slater", "molecular", "clementi", "optimized")
 
 
-def rules() -> dict[str, Rule]:
-    """All registered rules, by name."""
-    out = {}
+@lru_cache(maxsize=1)
+def _registry() -> tuple[Rule, ...]:
+    out = []
     for mod_name in _MODULES:
         mod = import_module(f"{__name__}.{mod_name}")
-        out[mod.NAME] = Rule(mod.NAME, mod.DESCRIPTION, mod.shell_exponents)
-    return out
+        out.append(Rule(mod.NAME, mod.DESCRIPTION, mod.shell_exponents))
+    return tuple(out)
+
+
+def rules() -> dict[str, Rule]:
+    """All registered rules, by name (the modules are read once)."""
+    return {r.name: r for r in _registry()}
 
 
 def get_rule(name: str) -> Rule:
