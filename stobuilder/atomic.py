@@ -37,7 +37,6 @@ from .elements import L_LETTERS, M_FILL_ORDER, Configuration, capacity, parse_su
 from .errors import InputError
 from .screening import ShellExponent, basis_subshells, shell_exponents
 
-METHODS = ("auto", "rhf", "rohf", "uhf")
 TERM_LETTERS = "SPDFGHIK"
 _M_NAMES = {
     0: {0: ""},
@@ -144,15 +143,10 @@ def describe_state(conf: Configuration, method: str) -> str:
 
 
 def pick_method(conf: Configuration, method: str) -> str:
-    """RHF for closed shells and ROHF for open shells under "auto"; validates an explicit choice."""
-    m = str(method).lower()
-    if m not in METHODS:
-        raise InputError(f"unknown SCF method {method!r}; choose one of {', '.join(METHODS)}")
-    if m == "auto":
-        return "rhf" if conf.unpaired == 0 else "rohf"
-    if m == "rhf" and conf.unpaired:
-        raise InputError(f"method rhf cannot describe {conf.symbol} {conf.label}: it has {conf.unpaired} unpaired electrons")
-    return m
+    """"rhf", "rohf" or "uhf" for ``conf``: the choice of stobuilder.checks.pick_method."""
+    from .checks import pick_method as choose
+
+    return choose(method, conf.unpaired, f"({conf.symbol} {conf.label})").lower()
 
 
 # ---------------------------------------------------------------- integrals

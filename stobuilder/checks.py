@@ -114,14 +114,19 @@ class Check:
         }
 
 
-def pick_method(method: str, spin: int) -> str:
-    if method not in METHODS:
+def pick_method(method: str, spin: int, what: str = "") -> str:
+    """"RHF", "ROHF" or "UHF": RHF for closed shells and ROHF for open ones under "auto"; an
+    explicit choice is validated (``what`` names the system in the message)."""
+    m = str(method).lower()
+    if m not in METHODS:
         raise InputError(f"unknown SCF method {method!r}; choose one of {', '.join(METHODS)}")
-    if method == "auto":
+    if m == "auto":
         return "RHF" if spin == 0 else "ROHF"
-    if method == "rhf" and spin != 0:
-        raise InputError(f"RHF needs a closed shell; spin is {spin}")
-    return method.upper()
+    if m == "rhf" and spin != 0:
+        raise InputError(
+            f"RHF needs a closed shell{' ' + what if what else ''}; it has {spin} unpaired electrons (spin {spin})"
+        )
+    return m.upper()
 
 
 def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom", symmetry: bool = False):
