@@ -29,8 +29,8 @@ def test_closed_form_error_and_gradient_match_the_sampled_residual(targets, norm
     x = np.log(np.array([10.0, 2.0, 0.6, 0.24, 0.1, 0.05]))
     analytic = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     sampled = R.Problem(tuple(R.Target(*t) for t in targets), norm)
-    eps, grad, coefs = analytic.evaluate(x)
-    eps_mp, grad_mp, coefs_mp = analytic.evaluate_mp(x)
+    eps, grad, _, coefs = analytic.evaluate(x)
+    eps_mp, grad_mp, _, coefs_mp = analytic.evaluate_mp(x)
     res, jac, c_ref, eps_ref = sampled.solve(x)
     grad_ref = 2.0 * jac.T @ res
     # double precision: absolute floor ~1e-16 × the size of the terms (module docstring)
@@ -41,3 +41,30 @@ def test_closed_form_error_and_gradient_match_the_sampled_residual(targets, norm
     assert np.allclose(grad_mp, grad_ref, rtol=1e-8, atol=1e-15)
     for c, cm, cr in zip(coefs, coefs_mp, c_ref):
         assert np.allclose(c, cr, rtol=1e-9) and np.allclose(cm, cr, rtol=1e-9)
+
+
+@pytest.mark.parametrize("norm", ["l2", "h1"])
+@pytest.mark.parametrize("targets", CASES)
+def test_exact_hessian_matches_finite_differences_of_the_gradient(targets, norm):
+    """The closed-form Hessian of Σε against central differences of the closed-form gradient
+    (common practice, no source), in double and in 34-digit arithmetic."""
+    x = np.log(np.array([10.0, 2.0, 0.6, 0.24, 0.1, 0.05]))
+    problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
+    _, _, hess, _ = problem.evaluate(x, order=2)
+    _, _, hess_mp, _ = problem.evaluate_mp(x, order=2)
+    h = 1e-5
+    fd = np.array([(problem.evaluate(x + h * e, 1)[1] - problem.evaluate(x - h * e, 1)[1]) / (2 * h) for e in np.eye(x.size)])
+    scale = np.abs(hess).max()
+    assert np.abs(hess - fd).max() < 1e-6 * scale
+    assert np.abs(hess_mp - hess).max() < 1e-10 * scale
+
+
+def test_batched_evaluation_equals_one_at_a_time():
+    problem = A.Problem((A.Target(3.0, 0, 1.0), A.Target(3.0, 1, 1.0)), "h1")
+    x = np.log(np.array([[8.0, 1.5, 0.4, 0.1], [6.0, 1.0, 0.3, 0.08], [9.0, 9.0, 0.3, 0.08]]))
+    _, total, grad, hess, _ = problem.evaluate_batch(x, 2)
+    for k in range(2):
+        eps, g, hh, _ = problem.evaluate(x[k], 2)
+        assert total[k] == pytest.approx(sum(eps), rel=1e-14)
+        assert np.allclose(grad[k], g, rtol=1e-12, atol=1e-18) and np.allclose(hess[k], hh, rtol=1e-12, atol=1e-18)
+    assert total[2] == np.inf  # two equal exponents: a singular Gram matrix
