@@ -157,15 +157,17 @@ def objective(log_alpha: np.ndarray, nls, norm: str = "l2") -> tuple[float, np.n
 
 def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80, extended: bool = False,
             rtol: float | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Damped Newton minimisation of Σε from every row of z0 (S, N) at once; (ε (S,), z (S, N)).
+    """Trust-region Newton minimisation of Σε from every row of z0 (S, N) at once; (ε (S,), z).
 
-    Step: −V (|Λ| + λ max|Λ|)⁻¹ Vᵀ g with H = V Λ Vᵀ, capped at MAX_STEP in each coordinate;
-    accepted when ε falls (then λ /= 3), else λ *= 8. A row stops when the step's predicted
-    decrease is below RTOL ε, when λ exceeds LAMBDA_MAX (ε no longer falls within rounding), or
-    (after KEEP_AFTER iterations) when its ε is more than DROP_FACTOR above the best row's.
-    ``transform(z) → (x, ∂x/∂z, d)`` optimises other variables z with x(z), d the diagonal of
-    Σ_i g_i ∂²x_i/∂z_j² divided by g (a callable of g). ``extended``: every evaluation in
-    34-digit arithmetic (Problem.evaluate_mp; ε rounded to float only after the comparison).
+    The model is gᵀs + ½ sᵀ|H|s with |H| = V|Λ|Vᵀ (the absolute eigenvalues of the exact
+    Hessian, so that saddle points repel), minimised within the trust radius (``_trust_step``);
+    the radius shrinks when ε rose or fell by less than a quarter of the predicted decrease and
+    grows when it fell as predicted (J. Nocedal, S. J. Wright, Numerical Optimization, 2nd ed.,
+    Springer 2006, ch. 4). A row stops when the predicted decrease is below ``rtol`` ε, when its
+    step or trust radius falls below XTOL, or (after KEEP_AFTER iterations) when its ε is more
+    than DROP_FACTOR above the best row's. ``transform(z) → (x, ∂x/∂z, second)`` optimises
+    other variables z with x(z); second(g) is the diagonal of Σ_i g_i ∂²x_i/∂z_j².
+    ``extended``: every evaluation in ball arithmetic (Problem.evaluate_ball, 113 bits).
     """
     rtol = RTOL if rtol is None else rtol
 
@@ -174,7 +176,7 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
             return problem.evaluate_batch(x, 2)[1:4]
         fs, gs, hs = [], [], []
         for row in x:
-            out = problem.evaluate_mp(row, order=2)
+            out = problem.evaluate_ball(row, order=2)
             if out is None:
                 fs.append(math.inf), gs.append(np.zeros(row.size)), hs.append(np.eye(row.size))
             else:
@@ -195,46 +197,91 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
     noise = 0.0 if extended else 1e-14 * math.fsum(problem.norm2)
     z = np.array(z0, dtype=float)
     f, g, h = evaluate(z)
-    lam = np.full(len(z), LAMBDA_START)
+    radius = np.full(len(z), RADIUS_START)
     active = np.isfinite(f)
     for iteration in range(max_iter):
         if iteration >= KEEP_AFTER and active.any():
             active &= f <= DROP_FACTOR * f[np.isfinite(f)].min()
+        if iteration >= 2 and transform is None:
+            # a row that has run into a better row's minimum (sorted ln α within SAME) stops
+            order = np.argsort(f, kind="stable")
+            srt = -np.sort(-z, axis=1)
+            for pos, k in enumerate(order):
+                if active[k] and any(np.max(np.abs(srt[k] - srt[j])) < SAME for j in order[:pos]):
+                    active[k] = False
         idx = np.flatnonzero(active)
         if idx.size == 0:
             break
         w, v = np.linalg.eigh(h[idx])
-        wabs = np.abs(w)
-        damp = wabs + lam[idx, None] * wabs.max(axis=1, keepdims=True)
-        step = -np.einsum("kij,kj->ki", v, np.einsum("kji,kj->ki", v, g[idx]) / damp)
-        big = np.abs(step).max(axis=1)
-        step *= np.minimum(1.0, MAX_STEP / np.maximum(big, 1e-300))[:, None]
-        pred = -(np.einsum("ki,ki->k", g[idx], step) + 0.5 * np.einsum("ki,kij,kj->k", step, h[idx], step))
+        wabs = np.maximum(np.abs(w), 1e-300)
+        gt = np.einsum("kji,kj->ki", v, g[idx])  # Vᵀg
+        step_t, _ = _trust_step(gt, wabs, radius[idx])
+        step = np.einsum("kij,kj->ki", v, step_t)
+        pred = -(np.einsum("ki,ki->k", gt, step_t) + 0.5 * np.einsum("ki,ki->k", wabs * step_t, step_t))
         # converged: a step below XTOL, or a predicted decrease below rtol ε; that last (Newton)
         # step is still taken if ε does not rise beyond rounding (its decrease may be below it)
-        tiny = ~(pred > rtol * f[idx])
+        tiny = ~(pred > np.maximum(rtol * f[idx], noise))
         done = tiny | (np.abs(step).max(axis=1) < XTOL)
         active[idx[done]] = False
-        ft, gt, ht = evaluate(z[idx] + step)
-        better = (ft < f[idx]) | (tiny & (ft <= f[idx] + noise))
-        acc, rej = idx[better], idx[~better]
+        ft, gt_new, ht = evaluate(z[idx] + step)
+        actual = f[idx] - ft
+        better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
+        rho = np.where(pred > 0, actual / np.where(pred > 0, pred, 1.0), 0.0)
+        length = np.linalg.norm(step_t, axis=1)
+        shrink = ~better | (rho < 0.25)
+        grow = better & (rho > 0.75) & (length > 0.8 * radius[idx])
+        radius[idx[shrink]] = 0.25 * length[shrink]
+        radius[idx[grow]] = np.minimum(2.0 * radius[idx[grow]], MAX_STEP)
+        acc = idx[better]
         z[acc] += step[better]
-        f[acc], g[acc], h[acc] = ft[better], gt[better], ht[better]
-        lam[acc] = np.maximum(lam[acc] / 3.0, LAMBDA_MIN)
-        lam[rej] *= 8.0
-        active[rej[lam[rej] > LAMBDA_MAX]] = False
+        f[acc], g[acc], h[acc] = ft[better], gt_new[better], ht[better]
+        active[idx[radius[idx] < XTOL]] = False
     return f, z
 
 
-MAX_STEP = 1.0  # largest change of any ln α in one step
+def _trust_step(gt: np.ndarray, w: np.ndarray, radius: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Minimiser of the model gᵀs + ½ sᵀ|H|s within ‖s‖ ≤ radius, in the eigenbasis of H (rows:
+    gradient components gt, |eigenvalues| w > 0): s = −gt/(w + μ) with μ ≥ 0 the root of
+    1/‖s(μ)‖ = 1/radius (J. J. Moré, D. C. Sorensen, SIAM J. Sci. Stat. Comput. 4, 553, 1983;
+    Newton's method on that nearly linear function). Returns (s, μ)."""
+    mu = np.zeros(len(gt))
+    step = -gt / w
+    norm = np.linalg.norm(step, axis=1)
+    out = norm > radius
+    for _ in range(30):
+        if not out.any():
+            break
+        d = w[out] + mu[out, None]
+        s_ = -gt[out] / d
+        n_ = np.linalg.norm(s_, axis=1)
+        dn = -np.sum(s_ * s_ / d, axis=1) / n_  # d‖s‖/dμ
+        phi = 1.0 / n_ - 1.0 / radius[out]
+        mu_new = np.maximum(mu[out] - phi / (-dn / (n_ * n_)), 0.5 * mu[out])
+        conv = np.abs(n_ - radius[out]) < 1e-3 * radius[out]
+        mu[out] = mu_new
+        idx = np.flatnonzero(out)
+        out[idx[conv]] = False
+    step = -gt / (w + mu[:, None])
+    norm = np.linalg.norm(step, axis=1)
+    over = norm > radius * 1.001
+    step[over] *= (radius[over] / norm[over])[:, None]
+    return step, mu
+
+
+MAX_STEP = 2.0  # largest trust radius (2-norm of the change of ln α)
+RADIUS_START = 0.5
 RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
 XTOL = 1e-10  # or: the largest change of ln α in its last step
-LAMBDA_START, LAMBDA_MIN, LAMBDA_MAX = 1e-3, 1e-12, 1e6
 KEEP_AFTER, DROP_FACTOR = 8, 30.0  # rows far above the best are dropped after KEEP_AFTER steps
+SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
 # Σε / Σ‖φ‖² below which the optimum is finished and evaluated in 34-digit arithmetic: in double
 # precision ε carries an absolute error of ~1e-16–1e-14 (measured against the mpmath evaluation).
-MP_BELOW = 1e-8
-MP_CANDIDATES, MP_KEEP = 100.0, 3  # candidates within this factor of the best ε, at most this many
+MP_BELOW = 1e-5
+MP_KEEP = 3  # runs that start the constrained fit
+# below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ rounding)
+EXT_ALL_BELOW = 1e-12
+PREVIOUS_FINISHED_BELOW = 1e-10  # the continuation starts from the finished N − 1 fit below this
+EXT_ITER, EXT_RTOL = 400, 1e-15  # iterations and predicted-decrease tolerance in ball arithmetic
 
 
 def _even_tempered(n_gauss: int, centre: float, log_ratio: float) -> np.ndarray:
@@ -274,7 +321,7 @@ ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))  # N =
 MIN_RATIO = 1.1
 
 
-def _constrained_fit(problem: Problem, starts: list[np.ndarray]) -> tuple[float, np.ndarray]:
+def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool = False) -> tuple[float, np.ndarray]:
     """Minimise ε over ln α with every neighbouring ratio ≥ MIN_RATIO: the gaps between
     neighbouring ln α are written ln MIN_RATIO + u_k², an unconstrained problem in (x₀, u)."""
     floor = math.log(MIN_RATIO)
@@ -298,7 +345,8 @@ def _constrained_fit(problem: Problem, starts: list[np.ndarray]) -> tuple[float,
 
         return x, jac, second
 
-    f, z = _newton(problem, z0, transform, max_iter=400)
+    f, z = _newton(problem, z0, transform, max_iter=400 if not extended else 60, extended=extended,
+                   rtol=1e-10 if extended else None)
     best = int(np.argmin(f))
     return float(f[best]), transform(z[best : best + 1])[0][0]
 
@@ -306,50 +354,73 @@ def _constrained_fit(problem: Problem, starts: list[np.ndarray]) -> tuple[float,
 @lru_cache(maxsize=None)
 def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
     """Best ln α (descending, double precision) over the deterministic starts, whether MIN_RATIO
-    was binding, and the distinct candidates within MP_CANDIDATES of the best (for the
+    was binding, and the distinct runs that respect MIN_RATIO, the best first (for the
     extended-precision finish)."""
     problem = _problem(targets, norm)
-    previous = None if n_gauss == 1 else np.array(_search(targets, norm, n_gauss - 1)[0])
+    previous = None
+    if n_gauss > 1:
+        # continuation from the N − 1 search; where its ε is below EXT_ALL_BELOW (double
+        # precision cannot place it), from the N − 1 fit finished in ball arithmetic
+        prev_x, _, prev_f = _search(targets, norm, n_gauss - 1)[:3]
+        tiny = prev_f < PREVIOUS_FINISHED_BELOW * math.fsum(problem.norm2)
+        previous = np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0] if tiny else prev_x)
     starts = _starts(n_gauss, targets, previous)
     f, x = _newton(problem, np.array(starts))
     x = -np.sort(-x, axis=1)
-    best_f, best_x = math.inf, None
+    best_f, best_x, merged = math.inf, None, []
     for fk, xk in zip(f, x):
         if not math.isfinite(fk):
             continue
         if n_gauss > 1 and np.min(-np.diff(xk)) < math.log(MIN_RATIO):
-            continue  # two exponents running together mimic an r^(l+2) Gaussian (6s6p, N = 3)
+            merged.append((fk, xk))  # two exponents running together mimic an r^(l+2) Gaussian
+            continue
         if fk < best_f * (1 - 1e-12):
             best_f, best_x = float(fk), xk
+    if merged and min(fk for fk, _ in merged) < best_f:
+        # ε falls further as two exponents merge (6s6p N = 3; h1 6s N = 8): the best fit with
+        # every ratio ≥ MIN_RATIO, started from those runs, competes with the interior minima
+        fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:MP_KEEP])
+        if fc < best_f * (1 - 1e-12):
+            return tuple(float(v) for v in xc), True, fc, ()
     if best_x is not None:
-        keep = [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0]) if fk <= best_f * MP_CANDIDATES]
+        keep = [best_x] + [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0])]
         distinct = []
         for xk in keep:
             if (n_gauss == 1 or np.min(-np.diff(xk)) >= math.log(MIN_RATIO)) and not any(np.max(np.abs(xk - y)) < 1e-2 for y in distinct):
                 distinct.append(xk)
-        return tuple(float(v) for v in best_x), False, tuple(tuple(float(v) for v in xk) for xk in distinct[:MP_KEEP])
-    _, xc = _constrained_fit(problem, starts)
-    return tuple(float(v) for v in xc), True, ()
+        return tuple(float(v) for v in best_x), False, best_f, tuple(tuple(float(v) for v in xk) for xk in distinct)
+    fc, xc = _constrained_fit(problem, starts)
+    return tuple(float(v) for v in xc), True, fc, ()
 
 
 @lru_cache(maxsize=None)
 def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     """(ln α descending, constrained, ε per target, optimal coefficients per target) of the fit."""
     problem = _problem(targets, norm)
-    x, constrained, candidates = _search(targets, norm, n_gauss)
+    x, constrained, _, candidates = _search(targets, norm, n_gauss)
     x = np.array(x)
     eps, _, _, coefs = problem.evaluate(x, order=0)
-    if math.fsum(eps) < MP_BELOW * math.fsum(problem.norm2) and not constrained:
-        # ε is near the double-precision floor: the best few candidates are converged again
-        # with every evaluation in 34-digit arithmetic
-        f, z = _newton(problem, np.array(candidates), max_iter=60, extended=True, rtol=1e-10)
-        best = int(np.argmin(f))
-        out = problem.evaluate_mp(z[best], order=0)
-        if out is not None and f[best] <= float(sum(problem.evaluate_mp(x, order=0)[0])):
-            order = np.argsort(-z[best], kind="stable")
-            x = z[best][order]
-            eps = [float(e) for e in out[0]]
-            coefs = [c[order] for c in out[3]]
+    if math.fsum(eps) < MP_BELOW * math.fsum(problem.norm2) and constrained:
+        fc, xc = _constrained_fit(problem, [x], extended=True)
+        out = problem.evaluate_ball(xc, order=0)
+        if out is not None and fc <= sum(problem.evaluate_ball(x, order=0)[0]):
+            x, eps, coefs = xc, out[0], out[3]
+    elif math.fsum(eps) < MP_BELOW * math.fsum(problem.norm2):
+        # ε near the double-precision floor: Newton again with every evaluation in ball
+        # arithmetic, from the best run, or (ε < EXT_ALL_BELOW, where double precision cannot
+        # rank the runs) from every distinct run
+        rows = list(candidates[:1])
+        if math.fsum(eps) < EXT_ALL_BELOW * math.fsum(problem.norm2):
+            previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
+            rows = list(candidates) + [tuple(v) for v in _starts(n_gauss, targets, previous)]
+        f, z = _newton(problem, np.array(rows), max_iter=EXT_ITER, extended=True, rtol=EXT_RTOL)
+        z = -np.sort(-z, axis=1)
+        ok = [k for k in range(len(z)) if math.isfinite(f[k]) and (n_gauss == 1 or np.min(-np.diff(z[k])) >= math.log(MIN_RATIO))]
+        if ok:
+            best = min(ok, key=lambda k: (f[k], k))
+            out = problem.evaluate_ball(z[best], order=0)
+            if out is not None:
+                x, eps, coefs = z[best], out[0], out[3]
     return tuple(float(v) for v in x), constrained, tuple(float(e) for e in eps), tuple(tuple(c) for c in coefs)
 
 
