@@ -7,15 +7,16 @@ minimising ε = ‖φ − Σ_k c_k g_k‖² in the chosen norm; subshells fitted
 the objective is Σ ε. For fixed α the optimal c solve a linear problem, so only x = ln α is
 optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413, 1973).
 Everything is in closed form (stobuilder.expansion.analytic: ε, its gradient and its exact
-Hessian from analytic STO–Gaussian integrals; no quadrature grid). The search is a damped
-Newton method on the absolute-value Hessian (|λ| of each eigenvalue, so saddle points repel;
-Levenberg–Marquardt-style damping with step acceptance on ε), run in double precision for all
+Hessian from analytic STO–Gaussian integrals; no quadrature grid). The search is a trust-region
+Newton method on the absolute-value Hessian (``_newton``), run in double precision for all
 deterministic starts at once (one batched evaluation per iteration). Starts: continuation from
 the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
 (K. Ruedenberg, R. C. Raffenetti, R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973:
-α_k = α₀ β^k). In double precision ε = ‖φ‖² − sᵀG⁻¹s carries an absolute rounding error of
-~1e-16–1e-14; where ε is small against that (ε < MP_BELOW), the optimum is finished by Newton
-steps in 34-digit arithmetic (mpmath) and ε and the coefficients are evaluated there too.
+α_k = α₀ β^k). Double precision places an optimum only to the rounding level of the Gram form
+(ε ± ~1e-14), so every fit is finished by the same Newton method with every evaluation in
+113-bit ball arithmetic (python-flint), and its ε and coefficients are evaluated there; where ε
+itself is below EXT_ALL_BELOW, double precision cannot even rank the runs, and all of them are
+finished that way.
 """
 
 from __future__ import annotations
@@ -272,14 +273,14 @@ MAX_STEP = 2.0  # largest trust radius (2-norm of the change of ln α)
 RADIUS_START = 0.5
 RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
 XTOL = 1e-10  # or: the largest change of ln α in its last step
-KEEP_AFTER, DROP_FACTOR = 8, 30.0  # rows far above the best are dropped after KEEP_AFTER steps
+KEEP_AFTER, DROP_FACTOR = 5, 3.0  # rows far above the best are dropped after KEEP_AFTER steps
 SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
 # Σε / Σ‖φ‖² below which the optimum is finished and evaluated in 34-digit arithmetic: in double
 # precision ε carries an absolute error of ~1e-16–1e-14 (measured against the mpmath evaluation).
-MP_BELOW = 1e-5
-MP_KEEP = 3  # runs that start the constrained fit
+CONSTRAINED_STARTS = 3  # runs that start the constrained fit
 # below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ rounding)
 EXT_ALL_BELOW = 1e-12
+NEAR_BOUND = 0.5  # ln of the ratio above MIN_RATIO below which the bounded finish is tried too
 PREVIOUS_FINISHED_BELOW = 1e-10  # the continuation starts from the finished N − 1 fit below this
 EXT_ITER, EXT_RTOL = 400, 1e-15  # iterations and predicted-decrease tolerance in ball arithmetic
 
@@ -306,7 +307,7 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
             starts.append(np.sort(np.concatenate([previous, [(previous[k] + previous[k + 1]) / 2]]))[::-1])
     n_mean = sum(t.n_eff / t.zeta for t in targets) / len(targets)
     base = -2.0 * math.log(n_mean) - 1.0
-    for log_ratio, shift in ET_STARTS if n_gauss == 1 else ET_STARTS[:3] if n_gauss <= 6 else ET_STARTS[:1]:
+    for log_ratio, shift in ET_STARTS if n_gauss == 1 else ET_STARTS[:3] if n_gauss <= 2 else ET_STARTS[:1]:
         starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
     return starts
 
@@ -345,8 +346,8 @@ def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool 
 
         return x, jac, second
 
-    f, z = _newton(problem, z0, transform, max_iter=400 if not extended else 60, extended=extended,
-                   rtol=1e-10 if extended else None)
+    f, z = _newton(problem, z0, transform, max_iter=EXT_ITER if extended else 400, extended=extended,
+                   rtol=EXT_RTOL if extended else None)
     best = int(np.argmin(f))
     return float(f[best]), transform(z[best : best + 1])[0][0]
 
@@ -379,7 +380,7 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
     if merged and min(fk for fk, _ in merged) < best_f:
         # ε falls further as two exponents merge (6s6p N = 3; h1 6s N = 8): the best fit with
         # every ratio ≥ MIN_RATIO, started from those runs, competes with the interior minima
-        fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:MP_KEEP])
+        fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:CONSTRAINED_STARTS])
         if fc < best_f * (1 - 1e-12):
             return tuple(float(v) for v in xc), True, fc, ()
     if best_x is not None:
@@ -400,28 +401,39 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     x, constrained, _, candidates = _search(targets, norm, n_gauss)
     x = np.array(x)
     eps, _, _, coefs = problem.evaluate(x, order=0)
-    if math.fsum(eps) < MP_BELOW * math.fsum(problem.norm2) and constrained:
-        fc, xc = _constrained_fit(problem, [x], extended=True)
-        out = problem.evaluate_ball(xc, order=0)
-        if out is not None and fc <= sum(problem.evaluate_ball(x, order=0)[0]):
-            x, eps, coefs = xc, out[0], out[3]
-    elif math.fsum(eps) < MP_BELOW * math.fsum(problem.norm2):
-        # ε near the double-precision floor: Newton again with every evaluation in ball
-        # arithmetic, from the best run, or (ε < EXT_ALL_BELOW, where double precision cannot
-        # rank the runs) from every distinct run
-        rows = list(candidates[:1])
-        if math.fsum(eps) < EXT_ALL_BELOW * math.fsum(problem.norm2):
-            previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
-            rows = list(candidates) + [tuple(v) for v in _starts(n_gauss, targets, previous)]
-        f, z = _newton(problem, np.array(rows), max_iter=EXT_ITER, extended=True, rtol=EXT_RTOL)
-        z = -np.sort(-z, axis=1)
-        ok = [k for k in range(len(z)) if math.isfinite(f[k]) and (n_gauss == 1 or np.min(-np.diff(z[k])) >= math.log(MIN_RATIO))]
-        if ok:
-            best = min(ok, key=lambda k: (f[k], k))
-            out = problem.evaluate_ball(z[best], order=0)
-            if out is not None:
-                x, eps, coefs = z[best], out[0], out[3]
+    # double precision places the optimum only to its rounding level (ε ± ~1e-14): every fit
+    # is finished with every evaluation in ball arithmetic, from the best run, or (ε <
+    # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
+    # from the starts of the finished N − 1 fit
+    rows = [tuple(x)]
+    if math.fsum(eps) < EXT_ALL_BELOW * math.fsum(problem.norm2):
+        previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
+        fs, zs = _newton(problem, np.array(_starts(n_gauss, targets, previous)))
+        for zk in list(candidates) + [tuple(v) for fk, v in zip(fs, -np.sort(-zs, axis=1)) if math.isfinite(fk)]:
+            if not any(np.max(np.abs(np.array(zk) - np.array(y))) < SAME for y in rows):
+                rows.append(tuple(zk))
+    f, z = _newton(problem, np.array(rows), max_iter=EXT_ITER, extended=True, rtol=EXT_RTOL)
+    z = -np.sort(-z, axis=1)
+    fine = [k for k in range(len(z)) if math.isfinite(f[k]) and (n_gauss == 1 or np.min(-np.diff(z[k])) >= math.log(MIN_RATIO))]
+    fx, xx = (f[min(fine, key=lambda k: (f[k], k))], z[min(fine, key=lambda k: (f[k], k))]) if fine else (math.inf, x)
+    if n_gauss > 1 and (not fine or np.min(-np.diff(xx)) < math.log(MIN_RATIO) + NEAR_BOUND):
+        # the same from there with every ratio ≥ MIN_RATIO: a run creeping towards two merging
+        # exponents ends on that bound instead of wherever the iterations stop
+        fc, xc = _constrained_fit(problem, [xx if fine else x], extended=True)
+        if fc < fx:
+            fx, xx = fc, xc
+    out = problem.evaluate_ball(xx, order=0) if math.isfinite(fx) else None
+    if out is not None and sum(out[0]) <= sum(problem.evaluate_ball(x, order=0)[0]):
+        x, eps, coefs = np.array(xx), out[0], out[3]
+        constrained = n_gauss > 1 and float(np.min(-np.diff(x))) - math.log(MIN_RATIO) < 1e-8
     return tuple(float(v) for v in x), constrained, tuple(float(e) for e in eps), tuple(tuple(c) for c in coefs)
+
+
+def clear_caches() -> None:
+    """Forget every fit computed in this process (benchmarks and reproducibility tests)."""
+    _fit_log_alpha.cache_clear()
+    _search.cache_clear()
+    _problem.cache_clear()
 
 
 def fit_sto(
