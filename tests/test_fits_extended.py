@@ -32,7 +32,7 @@ from stobuilder.expansion import fit as F
 from stobuilder.expansion import fit_sto, library_families, lookup
 from stobuilder.expansion import library as L
 from stobuilder.expansion.integrals import gaussian_overlap, sto_gaussian_overlap
-from stobuilder.expansion.residual import Problem, Target
+from sampled_residual import Problem, Target, gaussian_blocks
 
 H_EXACT = -0.5  # hartree, exact non-relativistic H atom (physical law)
 HE_ZETA = 27 / 16  # [SO] ch. 3, variational single-STO He
@@ -171,7 +171,7 @@ def test_sampled_overlaps_match_independent_integrals(n_eff, l):
     Gradshteyn & Ryzhik 3.462.1, is not needed: SciPy's hyperu is too coarse, tests/test_expansion.py)."""
     alpha = np.array([3000.0, 20.0, 1.3, 0.2, 0.011])
     problem = Problem((Target(n_eff, l, 1.0),), "l2")
-    a, _ = __import__("stobuilder.expansion.residual", fromlist=["gaussian_blocks"]).gaussian_blocks(
+    a, _ = gaussian_blocks(
         l, alpha, problem.r, problem.sw, False, 1.0
     )
     s_grid = a.T @ problem.b[0]
@@ -242,11 +242,10 @@ def test_h1_error_against_pyscf_kinetic_integrals():
 
 
 def test_fits_reproducible_bit_for_bit_and_library_entries_regenerate():
-    F._fit_log_alpha.cache_clear()
-    F._problem.cache_clear()
-    for fam, n, norm in ((["1s"], 12, "l2"), (["2s", "2p"], 7, "h1"), (["4f"], 9, "l2")):
+    F.clear_caches()
+    for fam, n, norm in ((["1s"], 12, "l2"), (["2s", "2p"], 7, "h1"), (["4f"], 9, "l2"), (["6s"], 12, "l2")):
         a = fit_sto(fam, n, norm)
-        F._fit_log_alpha.cache_clear()
+        F.clear_caches()
         assert fit_sto(fam, n, norm) == a
         assert lookup(fam, n, norm) == a  # the shipped entry is this very fit
 

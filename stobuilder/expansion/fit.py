@@ -4,14 +4,19 @@ Method: W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969) 
 J. Chem. Phys. 52, 431 (1970). A normalised STO φ = N r^(n−1) e^(−ζr) Y_lm (ζ = 1 bohr⁻¹ for the
 first subshell of a fit) is expanded in normalised Gaussians g_k = N_k r^l e^(−α_k r²) Y_lm by
 minimising ε = ‖φ − Σ_k c_k g_k‖² in the chosen norm; subshells fitted jointly share the α_k and
-the objective is Σ ε. For fixed α the optimal c solve a linear least-squares problem, so only
-x = ln α is optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10,
-413, 1973) by Levenberg–Marquardt (MINPACK through scipy.optimize.least_squares) on the sampled
-residual of stobuilder.expansion.residual, which keeps ε free of the cancellation of
-1 − sᵀG⁻¹s, followed by Newton steps on its gradient. Starts are deterministic: continuation
-from the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
+the objective is Σ ε. For fixed α the optimal c solve a linear problem, so only x = ln α is
+optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413, 1973).
+Everything is in closed form (stobuilder.expansion.analytic: ε, its gradient and its exact
+Hessian from analytic STO–Gaussian integrals; no quadrature grid). The search is a trust-region
+Newton method on the absolute-value Hessian (``_newton``), run in double precision for all
+deterministic starts at once (one batched evaluation per iteration). Starts: continuation from
+the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
 (K. Ruedenberg, R. C. Raffenetti, R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973:
-α_k = α₀ β^k); every start is screened with a few iterations and the best few are converged.
+α_k = α₀ β^k). Double precision places an optimum only to the rounding level of the Gram form
+(ε ± ~1e-14), so every fit is finished by the same Newton method with every evaluation in
+113-bit ball arithmetic (python-flint), and its ε and coefficients are evaluated there; where ε
+itself is below EXT_ALL_BELOW, double precision cannot even rank the runs, and all of them are
+finished that way.
 """
 
 from __future__ import annotations
@@ -22,19 +27,18 @@ from functools import lru_cache
 from typing import Iterable, Mapping
 
 import numpy as np
-from scipy.optimize import least_squares
 
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
+from .analytic import Problem, Target
 from .integrals import gaussian_overlap
-from .residual import STEP, Problem, Target
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2", "h1")
 MAX_N = 6
 MAX_L = 3
 # Version of the fitting algorithm: part of every cache key (a change invalidates cached fits).
-ALGORITHM = "vp-lm-newton-1"
+ALGORITHM = "vp-closed-form-newton-2"
 
 
 @dataclass(frozen=True)
@@ -46,7 +50,7 @@ class Fit:
     subshells : labels sorted by (n, l), e.g. ("3s", "3p", "3d"); they share the exponents.
     gaussians : number of primitives N.
     norm : the fit criterion: "l2" least squares, "h1" the Sobolev norm ‖·‖² + ‖∇·‖² (gradient
-        measured in units of the first subshell's 1/ζ, see stobuilder.expansion.residual).
+        measured in units of the first subshell's 1/ζ, see stobuilder.expansion.analytic).
     exponents : α_k in bohr⁻² at ζ = 1, descending.
     coefficients : label → c_k for normalised primitives (order of ``exponents``), rescaled so
         that the contraction has L² norm exactly 1 (the optimum of either norm is not normalised:
@@ -139,102 +143,146 @@ def targets_for(labels: tuple[str, ...], n_eff: Mapping[str, float], zeta_ratio:
 
 
 @lru_cache(maxsize=64)
-def _problem(targets: tuple[Target, ...], norm: str, step: float = STEP) -> Problem:
-    return Problem(targets, norm, step)
+def _problem(targets: tuple[Target, ...], norm: str) -> Problem:
+    return Problem(targets, norm)
 
 
 def objective(log_alpha: np.ndarray, nls, norm: str = "l2") -> tuple[float, np.ndarray]:
-    """Σ ε over the subshells (n, l) at ζ = 1 and its gradient with respect to ln α_k (2 Jᵀr)."""
+    """Σ ε over the subshells (n, l) at ζ = 1 and its gradient with respect to ln α_k."""
     targets = tuple(Target(float(n), l, 1.0) for n, l in nls)
-    out = _problem(targets, norm).solve(np.asarray(log_alpha, dtype=float))
+    out = _problem(targets, norm).evaluate(np.asarray(log_alpha, dtype=float), order=1)
     if out is None:
         return 1e3, np.zeros_like(log_alpha)
-    res, jac, _, _ = out
-    return float(res @ res), 2.0 * (jac.T @ res)
+    return math.fsum(out[0]), out[1]
 
 
-def _least_squares(problem: Problem, x0: np.ndarray, tol: float, max_nfev: int, transform=None):
-    """Levenberg–Marquardt (MINPACK) on the sampled residual; residual and Jacobian share one solve.
+def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80, extended: bool = False,
+            rtol: float | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Trust-region Newton minimisation of Σε from every row of z0 (S, N) at once; (ε (S,), z).
 
-    ``transform(z) → (x, ∂x/∂z)`` maps other variables z to ln α (the constrained fit).
-    A numerically singular G gives a residual worse than no fit, which the method steps back from.
+    The model is gᵀs + ½ sᵀ|H|s with |H| = V|Λ|Vᵀ (the absolute eigenvalues of the exact
+    Hessian, so that saddle points repel), minimised within the trust radius (``_trust_step``);
+    the radius shrinks when ε rose or fell by less than a quarter of the predicted decrease and
+    grows when it fell as predicted (J. Nocedal, S. J. Wright, Numerical Optimization, 2nd ed.,
+    Springer 2006, ch. 4). A row stops when the predicted decrease is below ``rtol`` ε, when its
+    step or trust radius falls below XTOL, or (after KEEP_AFTER iterations) when its ε is more
+    than DROP_FACTOR above the best row's. ``transform(z) → (x, ∂x/∂z, second)`` optimises
+    other variables z with x(z); second(g) is the diagonal of Σ_i g_i ∂²x_i/∂z_j².
+    ``extended``: every evaluation in ball arithmetic (Problem.evaluate_ball, 113 bits).
     """
-    size = sum(b.size for b in problem.b)
-    fallback = (np.concatenate(problem.b) * 10.0, None)
-    memo: dict[bytes, tuple] = {}
+    rtol = RTOL if rtol is None else rtol
 
-    def both(z):
-        key = z.tobytes()
-        if key not in memo:
-            memo.clear()
-            x, dxdz = (z, None) if transform is None else transform(z)
-            out = problem.solve(x)
-            memo[key] = fallback if out is None else (out[0], out[1] if dxdz is None else out[1] @ dxdz)
-        return memo[key]
+    def batch(x):
+        if not extended:
+            return problem.evaluate_batch(x, 2)[1:4]
+        fs, gs, hs = [], [], []
+        for row in x:
+            out = problem.evaluate_ball(row, order=2)
+            if out is None:
+                fs.append(math.inf), gs.append(np.zeros(row.size)), hs.append(np.eye(row.size))
+            else:
+                fs.append(float(sum(out[0]))), gs.append(out[1]), hs.append(out[2])
+        return np.array(fs), np.array(gs), np.array(hs)
 
-    def jac(z):
-        j = both(z)[1]
-        return np.zeros((size, z.size)) if j is None else j
+    def evaluate(z):
+        if transform is None:
+            return batch(z)
+        x, jac, second = transform(z)
+        f, g, h = batch(x)
+        gz = np.einsum("sij,si->sj", jac, g)
+        hz = np.einsum("sij,sik,skl->sjl", jac, h, jac)
+        hz[:, np.arange(z.shape[1]), np.arange(z.shape[1])] += second(g)
+        return f, gz, hz
 
-    res = least_squares(lambda z: both(z)[0], x0, jac=jac, method="lm", xtol=tol, ftol=tol, gtol=tol, max_nfev=max_nfev)
-    return res.x
-
-
-def _evaluate(problem: Problem, x: np.ndarray) -> float:
-    lo, hi = problem.bounds
-    if not (np.all(x > lo) and np.all(x < hi)):
-        return math.inf  # outside the range the quadrature grid is made for
-    out = problem.solve(x, jacobian=False)
-    return math.inf if out is None else math.fsum(out[3])
-
-
-def _gradient(problem: Problem, x: np.ndarray) -> np.ndarray | None:
-    out = problem.solve(x)
-    return None if out is None else out[1].T @ out[0]  # ∇(½ Σε) = Jᵀr (Golub–Pereyra Jacobian)
-
-
-def _polish(problem: Problem, x: np.ndarray, steps: int = 6, h: float = 1e-5) -> np.ndarray:
-    """Newton steps on ∇(½ Σε) = Jᵀr with a Hessian from central differences of that gradient.
-
-    Levenberg–Marquardt stops on the relative decrease of ε, which in the flattest direction of
-    a fit leaves ln α off by ~1e-8, and Gauss–Newton converges only linearly here (the residual
-    is not small against the smallest singular value of J); Newton converges on the gradient,
-    which the sampled residual resolves to ~1e-19. Steps are taken while |∇| shrinks.
-    """
-    grad = _gradient(problem, x)
-    if grad is None:
-        return x
-    hess = np.empty((x.size, x.size))
-    for k in range(x.size):
-        e = np.zeros_like(x)
-        e[k] = h
-        up, down = _gradient(problem, x + e), _gradient(problem, x - e)
-        if up is None or down is None:
-            return x
-        hess[k] = (up - down) / (2 * h)
-    w, v = np.linalg.eigh(0.5 * (hess + hess.T))
-    if w.min() <= 0:
-        return x  # not a minimum's neighbourhood: keep the LM result
-    norm = float(np.linalg.norm(grad))
-    for _ in range(steps):
-        step = v @ ((v.T @ grad) / w)
-        if not np.max(np.abs(step)) < 0.01:
+    # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in 34 digits)
+    noise = 0.0 if extended else 1e-14 * math.fsum(problem.norm2)
+    z = np.array(z0, dtype=float)
+    f, g, h = evaluate(z)
+    radius = np.full(len(z), RADIUS_START)
+    active = np.isfinite(f)
+    for iteration in range(max_iter):
+        if iteration >= KEEP_AFTER and active.any():
+            active &= f <= DROP_FACTOR * f[np.isfinite(f)].min()
+        if iteration >= 2 and transform is None:
+            # a row that has run into a better row's minimum (sorted ln α within SAME) stops
+            order = np.argsort(f, kind="stable")
+            srt = -np.sort(-z, axis=1)
+            for pos, k in enumerate(order):
+                if active[k] and any(np.max(np.abs(srt[k] - srt[j])) < SAME for j in order[:pos]):
+                    active[k] = False
+        idx = np.flatnonzero(active)
+        if idx.size == 0:
             break
-        trial = x - step
-        trial_grad = _gradient(problem, trial)
-        if trial_grad is None:
-            break
-        trial_norm = float(np.linalg.norm(trial_grad))
-        if not trial_norm < norm:
-            break
-        x, grad, norm = trial, trial_grad, trial_norm
-    return x
+        w, v = np.linalg.eigh(h[idx])
+        wabs = np.maximum(np.abs(w), 1e-300)
+        gt = np.einsum("kji,kj->ki", v, g[idx])  # Vᵀg
+        step_t, _ = _trust_step(gt, wabs, radius[idx])
+        step = np.einsum("kij,kj->ki", v, step_t)
+        pred = -(np.einsum("ki,ki->k", gt, step_t) + 0.5 * np.einsum("ki,ki->k", wabs * step_t, step_t))
+        # converged: a step below XTOL, or a predicted decrease below rtol ε; that last (Newton)
+        # step is still taken if ε does not rise beyond rounding (its decrease may be below it)
+        tiny = ~(pred > np.maximum(rtol * f[idx], noise))
+        done = tiny | (np.abs(step).max(axis=1) < XTOL)
+        active[idx[done]] = False
+        ft, gt_new, ht = evaluate(z[idx] + step)
+        actual = f[idx] - ft
+        better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
+        rho = np.where(pred > 0, actual / np.where(pred > 0, pred, 1.0), 0.0)
+        length = np.linalg.norm(step_t, axis=1)
+        shrink = ~better | (rho < 0.25)
+        grow = better & (rho > 0.75) & (length > 0.8 * radius[idx])
+        radius[idx[shrink]] = 0.25 * length[shrink]
+        radius[idx[grow]] = np.minimum(2.0 * radius[idx[grow]], MAX_STEP)
+        acc = idx[better]
+        z[acc] += step[better]
+        f[acc], g[acc], h[acc] = ft[better], gt_new[better], ht[better]
+        active[idx[radius[idx] < XTOL]] = False
+    return f, z
 
 
-def _local_fit(problem: Problem, x0: np.ndarray, tol: float = 1e-8, max_nfev: int = 400) -> tuple[float, np.ndarray]:
-    """Levenberg–Marquardt in ln α from one start; ε and the sorted ln α."""
-    x = np.sort(_least_squares(problem, np.asarray(x0, dtype=float), tol, max_nfev))[::-1]
-    return _evaluate(problem, x), x
+def _trust_step(gt: np.ndarray, w: np.ndarray, radius: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Minimiser of the model gᵀs + ½ sᵀ|H|s within ‖s‖ ≤ radius, in the eigenbasis of H (rows:
+    gradient components gt, |eigenvalues| w > 0): s = −gt/(w + μ) with μ ≥ 0 the root of
+    1/‖s(μ)‖ = 1/radius (J. J. Moré, D. C. Sorensen, SIAM J. Sci. Stat. Comput. 4, 553, 1983;
+    Newton's method on that nearly linear function). Returns (s, μ)."""
+    mu = np.zeros(len(gt))
+    step = -gt / w
+    norm = np.linalg.norm(step, axis=1)
+    out = norm > radius
+    for _ in range(30):
+        if not out.any():
+            break
+        d = w[out] + mu[out, None]
+        s_ = -gt[out] / d
+        n_ = np.linalg.norm(s_, axis=1)
+        dn = -np.sum(s_ * s_ / d, axis=1) / n_  # d‖s‖/dμ
+        phi = 1.0 / n_ - 1.0 / radius[out]
+        mu_new = np.maximum(mu[out] - phi / (-dn / (n_ * n_)), 0.5 * mu[out])
+        conv = np.abs(n_ - radius[out]) < 1e-3 * radius[out]
+        mu[out] = mu_new
+        idx = np.flatnonzero(out)
+        out[idx[conv]] = False
+    step = -gt / (w + mu[:, None])
+    norm = np.linalg.norm(step, axis=1)
+    over = norm > radius * 1.001
+    step[over] *= (radius[over] / norm[over])[:, None]
+    return step, mu
+
+
+MAX_STEP = 2.0  # largest trust radius (2-norm of the change of ln α)
+RADIUS_START = 0.5
+RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
+XTOL = 1e-10  # or: the largest change of ln α in its last step
+KEEP_AFTER, DROP_FACTOR = 5, 3.0  # rows far above the best are dropped after KEEP_AFTER steps
+SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
+# Σε / Σ‖φ‖² below which the optimum is finished and evaluated in 34-digit arithmetic: in double
+# precision ε carries an absolute error of ~1e-16–1e-14 (measured against the mpmath evaluation).
+CONSTRAINED_STARTS = 3  # runs that start the constrained fit
+# below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ rounding)
+EXT_ALL_BELOW = 1e-12
+NEAR_BOUND = 0.5  # ln of the ratio above MIN_RATIO below which the bounded finish is tried too
+PREVIOUS_FINISHED_BELOW = 1e-10  # the continuation starts from the finished N − 1 fit below this
+EXT_ITER, EXT_RTOL = 400, 1e-15  # iterations and predicted-decrease tolerance in ball arithmetic
 
 
 def _even_tempered(n_gauss: int, centre: float, log_ratio: float) -> np.ndarray:
@@ -245,7 +293,7 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
     """Deterministic starting points in ln α: continuation from the N−1 fit (a new tight, a new
     diffuse exponent, a new exponent in each gap up to N = 6, in the GAPS widest gaps beyond)
     and even-tempered sets (their centre from the STO's extent, α ~ 1/⟨r⟩²): all of ET_STARTS for
-    N = 1, the first 3 up to N = 6, the first beyond (fewer change no library fit; measured)."""
+    N = 1, the first 3 up to N = 6, the first beyond."""
     starts = []
     if previous is not None:
         ext = np.concatenate([[previous[0] + 1.5], previous, [previous[-1] - 1.5]])
@@ -259,7 +307,7 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
             starts.append(np.sort(np.concatenate([previous, [(previous[k] + previous[k + 1]) / 2]]))[::-1])
     n_mean = sum(t.n_eff / t.zeta for t in targets) / len(targets)
     base = -2.0 * math.log(n_mean) - 1.0
-    for log_ratio, shift in ET_STARTS if n_gauss == 1 else ET_STARTS[:3] if n_gauss <= 6 else ET_STARTS[:1]:
+    for log_ratio, shift in ET_STARTS if n_gauss == 1 else ET_STARTS[:3] if n_gauss <= 2 else ET_STARTS[:1]:
         starts.append(_even_tempered(n_gauss, base + shift, log_ratio * (n_gauss > 1)))
     return starts
 
@@ -274,73 +322,118 @@ ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))  # N =
 MIN_RATIO = 1.1
 
 
-def _constrained_fit(problem: Problem, x0: np.ndarray) -> tuple[float, np.ndarray]:
+def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool = False) -> tuple[float, np.ndarray]:
     """Minimise ε over ln α with every neighbouring ratio ≥ MIN_RATIO: the gaps between
     neighbouring ln α are written ln MIN_RATIO + u_k², an unconstrained problem in (x₀, u)."""
-    x0 = np.sort(np.asarray(x0, dtype=float))[::-1]
     floor = math.log(MIN_RATIO)
-    u0 = np.sqrt(np.maximum(-np.diff(x0) - floor, 1e-4))
-    z0 = np.concatenate([[x0[0]], u0])
-    size = len(z0)
-
-    def to_x(z):
-        return z[0] - np.concatenate([[0.0], np.cumsum(floor + z[1:] ** 2)])
-
+    z0 = []
+    for x0 in starts:
+        x0 = np.sort(np.asarray(x0, dtype=float))[::-1]
+        z0.append(np.concatenate([[x0[0]], np.sqrt(np.maximum(-np.diff(x0) - floor, 1e-4))]))
+    z0 = np.array(z0)
+    size = z0.shape[1]
     lower = np.tril(np.ones((size, size)))
 
-    def transform(z):  # ∂x_i/∂x₀ = 1, ∂x_i/∂u_j = −2 u_j for 1 ≤ j ≤ i
-        m = -lower * (2.0 * z)[None, :]
-        m[:, 0] = 1.0
-        return to_x(z), m
+    def transform(z):  # x_i = z₀ − Σ_(1≤j≤i) (floor + z_j²)
+        x = z[:, :1] - np.concatenate([np.zeros((len(z), 1)), np.cumsum(floor + z[:, 1:] ** 2, axis=1)], axis=1)
+        jac = -lower[None, :, :] * (2.0 * z)[:, None, :]
+        jac[:, :, 0] = 1.0
 
-    z = _least_squares(problem, z0, 1e-15, 2000, transform=transform)
-    x = to_x(z)
-    return _evaluate(problem, x), x
+        def second(g):  # ∂²x_i/∂z_j² = −2 for 1 ≤ j ≤ i
+            out = -2.0 * np.cumsum(g[:, ::-1], axis=1)[:, ::-1]
+            out[:, 0] = 0.0
+            return out
+
+        return x, jac, second
+
+    f, z = _newton(problem, z0, transform, max_iter=EXT_ITER if extended else 400, extended=extended,
+                   rtol=EXT_RTOL if extended else None)
+    best = int(np.argmin(f))
+    return float(f[best]), transform(z[best : best + 1])[0][0]
 
 
 @lru_cache(maxsize=None)
-def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int) -> tuple[tuple[float, ...], bool]:
-    """Best ln α (descending) over the deterministic starts, and whether MIN_RATIO was binding."""
+def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
+    """Best ln α (descending, double precision) over the deterministic starts, whether MIN_RATIO
+    was binding, and the distinct runs that respect MIN_RATIO, the best first (for the
+    extended-precision finish)."""
     problem = _problem(targets, norm)
-    coarse = _problem(targets, norm, SCREEN_STEP)  # the screening needs ε to ~1e-9 relative only
-    previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
+    previous = None
+    if n_gauss > 1:
+        # continuation from the N − 1 search; where its ε is below EXT_ALL_BELOW (double
+        # precision cannot place it), from the N − 1 fit finished in ball arithmetic
+        prev_x, _, prev_f = _search(targets, norm, n_gauss - 1)[:3]
+        tiny = prev_f < PREVIOUS_FINISHED_BELOW * math.fsum(problem.norm2)
+        previous = np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0] if tiny else prev_x)
     starts = _starts(n_gauss, targets, previous)
-    # Screening: every start is taken a short way (loose tolerance); the best SCREEN_KEEP distinct
-    # candidates are then converged fully.
-    screened = []
-    for x0 in starts:
-        f, x = _local_fit(coarse, x0, tol=SCREEN_TOL, max_nfev=SCREEN_NFEV)
-        # Two exponents running together mimic an r^(l+2) Gaussian: ε can keep falling towards
-        # that limit (seen for 6s6p with N = 3); such solutions are set aside (constrained fit).
-        if math.isfinite(f):
-            screened.append((f, x))
-    screened.sort(key=lambda item: item[0])
-    best_f, best_x, tried = math.inf, None, []
-    for _, x0 in screened:
-        if any(np.max(np.abs(x0 - y)) < 1e-2 for y in tried):
-            continue  # the same minimum as a candidate already converged
-        tried.append(x0)
-        f, x = _local_fit(problem, x0)
-        if n_gauss > 1 and np.min(-np.diff(x)) < math.log(MIN_RATIO):
+    f, x = _newton(problem, np.array(starts))
+    x = -np.sort(-x, axis=1)
+    best_f, best_x, merged = math.inf, None, []
+    for fk, xk in zip(f, x):
+        if not math.isfinite(fk):
             continue
-        if f < best_f * (1 - 1e-12):
-            best_f, best_x = f, x
-        if (best_x is not None and len(tried) >= SCREEN_KEEP) or len(tried) >= 3 * SCREEN_KEEP:
-            break
+        if n_gauss > 1 and np.min(-np.diff(xk)) < math.log(MIN_RATIO):
+            merged.append((fk, xk))  # two exponents running together mimic an r^(l+2) Gaussian
+            continue
+        if fk < best_f * (1 - 1e-12):
+            best_f, best_x = float(fk), xk
+    if merged and min(fk for fk, _ in merged) < best_f:
+        # ε falls further as two exponents merge (6s6p N = 3; h1 6s N = 8): the best fit with
+        # every ratio ≥ MIN_RATIO, started from those runs, competes with the interior minima
+        fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:CONSTRAINED_STARTS])
+        if fc < best_f * (1 - 1e-12):
+            return tuple(float(v) for v in xc), True, fc, ()
     if best_x is not None:
-        x = np.sort(_polish(problem, best_x))[::-1]
-        return tuple(x if _evaluate(problem, x) <= best_f * (1 + 1e-12) else best_x), False
-    for x0 in [x for _, x in screened[: SCREEN_KEEP + 1]] or starts[: SCREEN_KEEP + 1]:
-        f, x = _constrained_fit(problem, x0)
-        if f < best_f * (1 - 1e-12):
-            best_f, best_x = f, x
-    return tuple(best_x), True
+        keep = [best_x] + [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0])]
+        distinct = []
+        for xk in keep:
+            if (n_gauss == 1 or np.min(-np.diff(xk)) >= math.log(MIN_RATIO)) and not any(np.max(np.abs(xk - y)) < 1e-2 for y in distinct):
+                distinct.append(xk)
+        return tuple(float(v) for v in best_x), False, best_f, tuple(tuple(float(v) for v in xk) for xk in distinct)
+    fc, xc = _constrained_fit(problem, starts)
+    return tuple(float(v) for v in xc), True, fc, ()
 
 
-SCREEN_TOL = 1e-7  # relative tolerance of the screening runs
-SCREEN_NFEV = 12  # their evaluation budget
-SCREEN_KEEP = 3  # candidates converged fully
-SCREEN_STEP = 0.12  # quadrature step of the screening grid (ranking needs ε to ~1e-9 relative only)
+@lru_cache(maxsize=None)
+def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
+    """(ln α descending, constrained, ε per target, optimal coefficients per target) of the fit."""
+    problem = _problem(targets, norm)
+    x, constrained, _, candidates = _search(targets, norm, n_gauss)
+    x = np.array(x)
+    eps, _, _, coefs = problem.evaluate(x, order=0)
+    # double precision places the optimum only to its rounding level (ε ± ~1e-14): every fit
+    # is finished with every evaluation in ball arithmetic, from the best run, or (ε <
+    # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
+    # from the starts of the finished N − 1 fit
+    rows = [tuple(x)]
+    if math.fsum(eps) < EXT_ALL_BELOW * math.fsum(problem.norm2):
+        previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
+        fs, zs = _newton(problem, np.array(_starts(n_gauss, targets, previous)))
+        for zk in list(candidates) + [tuple(v) for fk, v in zip(fs, -np.sort(-zs, axis=1)) if math.isfinite(fk)]:
+            if not any(np.max(np.abs(np.array(zk) - np.array(y))) < SAME for y in rows):
+                rows.append(tuple(zk))
+    f, z = _newton(problem, np.array(rows), max_iter=EXT_ITER, extended=True, rtol=EXT_RTOL)
+    z = -np.sort(-z, axis=1)
+    fine = [k for k in range(len(z)) if math.isfinite(f[k]) and (n_gauss == 1 or np.min(-np.diff(z[k])) >= math.log(MIN_RATIO))]
+    fx, xx = (f[min(fine, key=lambda k: (f[k], k))], z[min(fine, key=lambda k: (f[k], k))]) if fine else (math.inf, x)
+    if n_gauss > 1 and (not fine or np.min(-np.diff(xx)) < math.log(MIN_RATIO) + NEAR_BOUND):
+        # the same from there with every ratio ≥ MIN_RATIO: a run creeping towards two merging
+        # exponents ends on that bound instead of wherever the iterations stop
+        fc, xc = _constrained_fit(problem, [xx if fine else x], extended=True)
+        if fc < fx:
+            fx, xx = fc, xc
+    out = problem.evaluate_ball(xx, order=0) if math.isfinite(fx) else None
+    if out is not None and sum(out[0]) <= sum(problem.evaluate_ball(x, order=0)[0]):
+        x, eps, coefs = np.array(xx), out[0], out[3]
+        constrained = n_gauss > 1 and float(np.min(-np.diff(x))) - math.log(MIN_RATIO) < 1e-8
+    return tuple(float(v) for v in x), constrained, tuple(float(e) for e in eps), tuple(tuple(c) for c in coefs)
+
+
+def clear_caches() -> None:
+    """Forget every fit computed in this process (benchmarks and reproducibility tests)."""
+    _fit_log_alpha.cache_clear()
+    _search.cache_clear()
+    _problem.cache_clear()
 
 
 def fit_sto(
@@ -361,7 +454,7 @@ def fit_sto(
         Number N of primitives, 1 … 12.
     norm : str
         "l2": least squares (Hehre, Stewart & Pople 1969); "h1": Sobolev norm with the gradient
-        term, ∫|φ−χ|² + ζ₁⁻² ∫|∇φ−∇χ|² (see stobuilder.expansion.residual).
+        term, ∫|φ−χ|² + ζ₁⁻² ∫|∇φ−∇χ|² (see stobuilder.expansion.analytic).
     n_eff : dict label → float, optional
         Effective principal quantum number n* (1 ≤ n* ≤ 8) of the radial form r^(n*−1) e^(−ζr),
         e.g. Slater's 3.7, 4.0, 4.2 (J. C. Slater, Phys. Rev. 36, 57, 1930); default n.
@@ -384,12 +477,11 @@ def fit_sto(
         raise InputError(f"zeta_ratio of the first subshell {labels[0]} must be 1 (the others are relative to it)")
     r_map = {k: v for k, v in r_map.items() if v != 1.0}
     targets = targets_for(labels, n_map, r_map)
-    log_alpha, constrained = _fit_log_alpha(targets, norm, int(gaussians))
-    x = np.array(log_alpha)
-    alpha = np.exp(x)
-    _, _, coefs, eps = _problem(targets, norm).solve(x, jacobian=False)
+    log_alpha, constrained, eps, coefs = _fit_log_alpha(targets, norm, int(gaussians))
+    alpha = np.exp(np.array(log_alpha))
     coefficients, error = {}, {}
     for label, t, c, e in zip(labels, targets, coefs, eps):
+        c = np.array(c)
         norm2 = float(c @ gaussian_overlap(t.l, alpha) @ c)
         coefficients[label] = tuple(float(v) for v in c / math.sqrt(norm2))
         error[label] = float(e)

@@ -13,7 +13,7 @@ from scipy.special import gammaln
 
 from ..elements import parse_subshell_label
 from .fit import Fit
-from .residual import sto_norm
+from .analytic import sto_norm
 
 NORM_TITLES = {"l2": "least squares (L2)", "h1": "Sobolev H1 (value and gradient)"}
 

@@ -1,4 +1,7 @@
-"""The fit residual φ − Σ c_k g_k sampled on a radial quadrature grid, and its Jacobian.
+"""An independent reference for the tests: the fit residual φ − Σ c_k g_k sampled on a radial
+quadrature grid, and its Jacobian. (The package's fits use closed forms only,
+stobuilder.expansion.analytic; this module shares no integrals with it. It was the fit loop of
+versions up to ALGORITHM "vp-lm-newton-1".)
 
 Why sampled: the least-squares error of a good fit is tiny (ε ≈ 1e-9 at N = 12), and the
 Gram-matrix form ε = 1 − sᵀG⁻¹s loses it to cancellation in double precision (absolute floor
