@@ -73,6 +73,9 @@ def sto_h1_norm2(n_eff: float, l: int, zeta: float, scale: float) -> float:
     return 1.0 + grad2 / (scale * scale)
 
 
+CF_BASE, CF_SLOPE = 40, 250.0  # tail length of the continued fraction: nu_max + BASE + SLOPE √α/ζ
+
+
 def integrals_vec(nu_max: int, alpha: np.ndarray, zeta: float) -> np.ndarray:
     """I_1 … I_nu_max (rows) at every α, integer ν: the recurrences of stobuilder.expansion.integrals
     vectorised over α (upward for α ≥ 0.3 ζ², the continued fraction downwards below)."""
@@ -92,9 +95,12 @@ def integrals_vec(nu_max: int, alpha: np.ndarray, zeta: float) -> np.ndarray:
     down = ~up
     if down.any():
         ad = alpha[down]
-        top = nu_max + 40 + int(250.0 * math.sqrt(float(ad.max())) / zeta)
+        top = nu_max + CF_BASE + int(CF_SLOPE * math.sqrt(float(ad.max())) / zeta)
         two_a = 2.0 * ad
+        # tail start: the fixed point r₀ of r = top/(ζ + 2αr) with its first correction for the
+        # slow variation of r_ν with ν, −2αr₀/(ζ + 4αr₀)² (own derivation, checked in the tests)
         ratio = (-zeta + np.sqrt(zeta * zeta + 8.0 * ad * top)) / (4.0 * ad)
+        ratio -= 2.0 * ad * ratio / (zeta + 4.0 * ad * ratio) ** 2
         # r_ν = M_ν(r_(ν+1)) with the Möbius map M_ν = [[0, ν], [2α, ζ]]: the tail ν = nu_max …
         # top − 1 is composed as a product of positive matrices (pairwise, rescaled; no
         # cancellation), padded with identities to a power of two

@@ -273,7 +273,7 @@ MAX_STEP = 2.0  # largest trust radius (2-norm of the change of ln α)
 RADIUS_START = 0.5
 RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
 XTOL = 1e-10  # or: the largest change of ln α in its last step
-KEEP_AFTER, DROP_FACTOR = 5, 3.0  # rows far above the best are dropped after KEEP_AFTER steps
+KEEP_AFTER, DROP_FACTOR = 5, 1.5  # rows far above the best are dropped after KEEP_AFTER steps
 SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
 # Σε / Σ‖φ‖² below which the optimum is finished and evaluated in 34-digit arithmetic: in double
 # precision ε carries an absolute error of ~1e-16–1e-14 (measured against the mpmath evaluation).
