@@ -701,6 +701,7 @@ class Problem:
 
 
 BALL_BITS = 113  # working precision of the ball evaluation (34 decimal digits)
+_BALL_TOL = 2.0 ** -BALL_BITS
 
 
 def _integrals_ball(nu_max: int, log_a: float, zeta: float):
@@ -715,15 +716,16 @@ def _integrals_ball(nu_max: int, log_a: float, zeta: float):
         while True:
             ctx.prec = prec
             ab, zb = arb(log_a).exp(), arb(zeta)
+            half_inv = 1 / (2 * ab)
             w = zb / (2 * ab.sqrt())
             rows = [(arb.pi() / ab).sqrt() / 2 * w.erfc() * (w * w).exp()]
-            rows.append((1 - zb * rows[0]) / (2 * ab))
+            rows.append((1 - zb * rows[0]) * half_inv)
             for nu in range(1, nu_max - 1):
-                rows.append((nu * rows[nu - 1] - zb * rows[nu]) / (2 * ab))
+                rows.append((rows[nu - 1] * nu - zb * rows[nu]) * half_inv)
             rows = rows[:nu_max]
-            tol = arb(2) ** (-BALL_BITS)
-            if all(v.rad() < abs(v.mid()) * tol for v in rows) or prec > 4000:
-                return [arb(v.mid()) for v in rows]
+            # the recurrence's error bound grows with ν: the last row is the worst
+            if rows[-1].rad() < abs(rows[-1].mid()) * _BALL_TOL or prec > 4000:
+                return rows
             prec *= 2
     finally:
         ctx.prec = saved
