@@ -200,16 +200,22 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
     f, g, h = evaluate(z)
     radius = np.full(len(z), RADIUS_START)
     active = np.isfinite(f)
+    converged = np.zeros(len(z), dtype=bool)
+    last_pred = np.full(len(z), np.inf)
     for iteration in range(max_iter):
         if iteration >= KEEP_AFTER and active.any():
             active &= f <= DROP_FACTOR * f[np.isfinite(f)].min()
-        if iteration >= 2 and transform is None:
+            if converged.any():
+                # a row above a converged one that, at its present rate, would need more than
+                # CRAWL steps even to come down to it (it is creeping along a valley)
+                f_best = f[converged].min()
+                active &= ~((f > f_best) & (last_pred * CRAWL < f - f_best))
+        if iteration >= 2 and transform is None and len(z) > 1:
             # a row that has run into a better row's minimum (sorted ln α within SAME) stops
-            order = np.argsort(f, kind="stable")
             srt = -np.sort(-z, axis=1)
-            for pos, k in enumerate(order):
-                if active[k] and any(np.max(np.abs(srt[k] - srt[j])) < SAME for j in order[:pos]):
-                    active[k] = False
+            near = np.abs(srt[:, None, :] - srt[None, :, :]).max(axis=2) < SAME
+            rank = np.argsort(np.argsort(f, kind="stable"), kind="stable")
+            active &= ~(near & (rank[None, :] < rank[:, None])).any(axis=1)
         idx = np.flatnonzero(active)
         if idx.size == 0:
             break
@@ -224,6 +230,8 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         tiny = ~(pred > np.maximum(rtol * f[idx], noise))
         done = tiny | (np.abs(step).max(axis=1) < XTOL)
         active[idx[done]] = False
+        converged[idx[done]] = True
+        last_pred[idx] = pred
         ft, gt_new, ht = evaluate(z[idx] + step)
         actual = f[idx] - ft
         better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
@@ -275,6 +283,7 @@ RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
 XTOL = 1e-10  # or: the largest change of ln α in its last step
 KEEP_AFTER, DROP_FACTOR = 5, 1.5  # rows far above the best are dropped after KEEP_AFTER steps
 SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
+CRAWL = 20  # see _newton: rows that would need more steps than this to reach a converged row stop
 # Σε / Σ‖φ‖² below which the optimum is finished and evaluated in 34-digit arithmetic: in double
 # precision ε carries an absolute error of ~1e-16–1e-14 (measured against the mpmath evaluation).
 CONSTRAINED_STARTS = 3  # runs that start the constrained fit
