@@ -1,6 +1,6 @@
 """The closed-form fit objective (stobuilder.expansion.analytic) against the independent sampled
-residual of stobuilder.expansion.residual (trapezoidal rule in ln r, no shared integrals) and
-against its own extended-precision evaluation."""
+residual of tests/sampled_residual.py (trapezoidal rule in ln r, no shared integrals), against
+finite differences, and against its own evaluations in mpmath and in Arb ball arithmetic."""
 
 import math
 
@@ -49,7 +49,11 @@ def test_closed_form_error_and_gradient_match_the_sampled_residual(targets, norm
 @pytest.mark.parametrize("targets", CASES)
 def test_exact_hessian_matches_finite_differences_of_the_gradient(targets, norm):
     """The closed-form Hessian of Σε against central differences of the closed-form gradient
-    (common practice, no source), in double and in 34-digit arithmetic."""
+    (common practice, no source), in double and in 34-digit arithmetic. Bounds: central
+    differences with h = 1e-5 carry O(h²) ≈ 1e-10 relative truncation plus the gradient's
+    rounding (~1e-15) / h ≈ 1e-10 of the scale, so 1e-6 leaves room; the double Hessian carries
+    the Gram form's absolute rounding (~1e-14) against entries of size ~1e-3 here, so 1e-10 of
+    the scale (measured 1.4e-13 relative)."""
     x = np.log(np.array([10.0, 2.0, 0.6, 0.24, 0.1, 0.05]))
     problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     _, _, hess, _ = problem.evaluate(x, order=2)
@@ -62,6 +66,10 @@ def test_exact_hessian_matches_finite_differences_of_the_gradient(targets, norm)
 
 
 def test_batched_evaluation_equals_one_at_a_time():
+    """A row evaluated in a batch against the same row alone. They need not be bit-equal: the
+    continued fraction for I_ν runs to a length set by the largest small α of the whole batch
+    (one more tail term changes the last bits), so the bounds are the double rounding level
+    (common practice, no source); a singular row is reported as +inf without disturbing others."""
     problem = A.Problem((A.Target(3.0, 0, 1.0), A.Target(3.0, 1, 1.0)), "h1")
     x = np.log(np.array([[8.0, 1.5, 0.4, 0.1], [6.0, 1.0, 0.3, 0.08], [9.0, 9.0, 0.3, 0.08]]))
     _, total, grad, hess, _ = problem.evaluate_batch(x, 2)
@@ -125,3 +133,20 @@ def test_library_optimum_is_stationary_for_the_independent_sampled_residual(fam,
     tol = 1e-9 * np.max(np.abs(grad)) + 1e-15
     assert on_bound.any() and abs(grad.sum()) < tol
     assert np.all(np.abs(d_gap[~on_bound]) < tol) and np.all(-d_gap[on_bound] < 0)
+
+
+@pytest.mark.parametrize("norm", ["l2", "h1"])
+@pytest.mark.parametrize("targets", [((4.2, 2, 1.0),), ((3.7, 3, 1.0),), ((4.2, 0, 1.0), (4.2, 1, 0.8))])
+def test_ball_equals_mpmath_for_non_integer_n(targets, norm):
+    """Arb (hypgeom_u, downward recurrence) against mpmath (hyperu, upward recurrence), both at
+    34 digits, for n* whose ν = n* + l + 2 is not exact in binary (4.2 + 4, 3.7 + 5; Slater's
+    n* from J. C. Slater, Phys. Rev. 36, 57, 1930): equal after rounding to double, to 2 ulp
+    (measured: identical; common practice, no source). Before ν was formed in ball arithmetic,
+    the 6d ε of a [6s,6p,6d] n* = 4.2 fit was off by 9e-4 relative here."""
+    problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
+    x = np.log(np.geomspace(30.0, 0.01, 8))
+    eps_mp, grad_mp, _, _ = problem.evaluate_mp(x, order=1)
+    eps_ball, grad_ball, _, _ = problem.evaluate_ball(x, order=1)
+    for e_mp, e_ball in zip(eps_mp, eps_ball):
+        assert abs(float(e_mp) - e_ball) <= 4.5e-16 * abs(float(e_mp))
+    assert np.allclose(grad_mp, grad_ball, rtol=4.5e-16, atol=0)

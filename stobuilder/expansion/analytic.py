@@ -21,9 +21,12 @@ Precision. In double precision ε = ‖φ‖² − sᵀG⁻¹s carries an absolu
 evaluations), and so do its gradient and Hessian: enough to search, not enough to place an
 optimum whose ε is ~1e-15 (or its flattest direction to better than ~1e-5 in ln α).
 ``evaluate_ball`` evaluates the same closed forms in Arb ball arithmetic (python-flint;
-F. Johansson, IEEE Trans. Comput. 66, 1281, 2017) at 113 bits, the I_ν at a working precision
-raised until Arb's own error bound is below 2^-113; ``evaluate_mp`` does the same in mpmath at
-MP_DIGITS digits and serves as the independent check of the other two (tests).
+F. Johansson, IEEE Trans. Comput. 66, 1281, 2017) at 113 bits, every I_ν (integer ν by the
+recurrences, non-integer ν from Arb's hypgeom_u) at a working precision raised until Arb's own
+error bound is below 2^-113; the linear algebra uses Arb's midpoint solver, so the results are
+accurate to about that level without being rigorous enclosures. ``evaluate_mp`` does the same in
+mpmath at MP_DIGITS digits (non-integer ν from mpmath's hyperu) and serves as the independent
+check of the other two (tests).
 
 Gradient and Hessian (variable projection, G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10,
 413, 1973): with c = G⁻¹s optimal, ∂ε/∂x_k = −2 c_k ∂s_k/∂x_k + 2 c_k Σ_j c_j ∂G_kj/∂x_k
@@ -34,6 +37,7 @@ Gradient and Hessian (variable projection, G. H. Golub, V. Pereyra, SIAM J. Nume
 from __future__ import annotations
 
 import math
+import threading
 from dataclasses import dataclass
 
 import numpy as np
@@ -160,8 +164,10 @@ class _Double:
 
     @staticmethod
     def checked(g):
-        """(g', valid): which Gram matrices of g (S, N, N) are positive definite with
-        √cond ≤ 1/MIN_RCOND (by their Cholesky factor); g' has the others replaced by the identity."""
+        """(g', valid): which Gram matrices of g (S, N, N) are positive definite with the smallest
+        Cholesky diagonal ≥ MIN_RCOND × the largest (that ratio bounds cond(G) from below by its
+        inverse square: a cheap guard against near-dependent primitives); g' has the others
+        replaced by the identity."""
         valid = np.ones(g.shape[0], dtype=bool)
         try:
             low = np.linalg.cholesky(g)
@@ -300,8 +306,6 @@ class _Ball:
         return out
 
     def matmul(self, a, b):
-        if b.ndim == a.ndim - 1 + 0 and b.shape[-1] == 1:
-            pass
         return np.array([self._back(self._mat(ak) * self._mat(bk)) for ak, bk in zip(a, b)], dtype=object)
 
 
@@ -565,21 +569,19 @@ class Problem:
                     cache[t.zeta] = integrals_vec(top, alpha, t.zeta)
                 out.append(cache[t.zeta][int(m) - 1 : int(m) + 5])
             else:
-                out.append(np.array([self._nonint_column(m, float(a), t.zeta) for a in alpha]).T)
+                out.append(np.array([self._nonint_column(t, float(a)) for a in alpha]).T)
         return out
 
-    def _nonint_column(self, nu: float, a: float, zeta: float) -> tuple[float, ...]:
-        """I_ν … I_(ν+5) at one α for non-integer ν (mpmath hyperu, 24 digits), cached per (ν, α, ζ):
-        a fit re-evaluates many exponents unchanged (line searches, the N − 1 exponents)."""
-        key = (nu, a, zeta)
+    def _nonint_column(self, t: Target, a: float) -> tuple[float, ...]:
+        """I_m … I_(m+5), m = n* + l + 2, at one α for non-integer n* (``_nonint_arb`` at 64 bits,
+        rounded), cached per (n*, l, α, ζ): a fit re-evaluates many exponents unchanged."""
+        key = (t.n_eff, t.l, a, t.zeta)
         col = self._nonint_cache.get(key)
         if col is None:
-            import mpmath as mp
-
             if len(self._nonint_cache) > 200000:
                 self._nonint_cache.clear()
-            with mp.workdps(24):
-                col = tuple(float(v) for v in integrals_nonint_mp(nu, 6, a, zeta))
+            with _ARB_LOCK:
+                col = tuple(float(v.mid()) for v in _nonint_arb(t.n_eff, t.l, a, t.zeta, 64, log=False))
             self._nonint_cache[key] = col
         return col
 
@@ -654,15 +656,20 @@ class Problem:
                     None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
 
     def evaluate_ball(self, log_alpha: np.ndarray, order: int = 1):
-        """As ``evaluate`` in Arb ball arithmetic (python-flint) at BALL_BITS bits: ε as float
-        pairs are not needed, so everything is returned rounded to float (ε is resolved to
-        ~1e-30 before rounding). The integer-ν integrals use the upward recurrence at a working
-        precision raised until Arb's error bound is below 2^-BALL_BITS relative."""
-        from flint import arb, ctx
-
+        """As ``evaluate`` in Arb ball arithmetic (python-flint) at BALL_BITS bits, everything
+        returned rounded to float (ε is resolved to ~1e-30 absolute before rounding). The I_ν come
+        at a working precision raised until Arb's error bound is below 2^-BALL_BITS relative
+        (``_integrals_ball``, ``_nonint_arb``); the linear algebra uses Arb's midpoint solver, so
+        the results are accurate to about that bound but are not rigorous enclosures."""
         x = np.asarray(log_alpha, dtype=float)
         if not self.inside(x):
             return None
+        with _ARB_LOCK:
+            return self._evaluate_ball_locked(x, order)
+
+    def _evaluate_ball_locked(self, x: np.ndarray, order: int):
+        from flint import arb, ctx
+
         saved = ctx.prec
         try:
             ctx.prec = BALL_BITS
@@ -679,7 +686,7 @@ class Problem:
                         by_zeta[t.zeta] = [_integrals_ball(top, float(v), t.zeta) for v in x]
                     cols = [col[m - 1 : m + 5] for col in by_zeta[t.zeta]]
                 else:
-                    cols = [self._nonint_ball(t.n_eff + t.l + 2, float(v), t.zeta) for v in x]
+                    cols = [_nonint_arb(t.n_eff, t.l, float(v), t.zeta, BALL_BITS) for v in x]
                 ints.append([np.array([[col[j] for col in cols]], dtype=object) for j in range(6)])
             eps, total, grad, hess, coefs, valid = _assemble(ops, self, xb, ints, order)
             if not valid[0]:
@@ -690,18 +697,46 @@ class Problem:
         finally:
             ctx.prec = saved
 
-    def _nonint_ball(self, nu: float, log_a: float, zeta: float):
-        """I_ν … I_(ν+5) for non-integer ν at α = e^log_a: the mpmath closed form at 40 digits, as arb."""
-        import mpmath as mp
-        from flint import arb
-
-        with mp.workdps(40):
-            vals = integrals_nonint_mp(nu, 6, mp.exp(mp.mpf(log_a)), zeta)
-            return [arb(mp.nstr(v, 40)) for v in vals]
-
 
 BALL_BITS = 113  # working precision of the ball evaluation (34 decimal digits)
+# python-flint's working precision (ctx.prec) is global to the process, threads included: every
+# use of it holds this lock
+_ARB_LOCK = threading.RLock()
 _BALL_TOL = 2.0 ** -BALL_BITS
+
+
+def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int, log: bool = True):
+    """I_m … I_(m+5) for m = n* + l + 2 (n* not an integer) as arb, at α = e^a (``log``) or α = a:
+    the two highest from the closed form Γ(ν)(4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)) (Gradshteyn & Ryzhik
+    3.462.1; Arb's hypgeom_u), the others by the recurrence downwards,
+    I_ν = (2α I_(ν+2) + ζ I_(ν+1))/ν, whose terms are all positive; ν is formed in ball
+    arithmetic from n* and l. The working precision is raised until Arb's error bound on every
+    value is below 2^-bits relative."""
+    from flint import arb, ctx
+
+    saved = ctx.prec
+    prec = bits + 64
+    try:
+        while True:
+            ctx.prec = prec
+            ab = arb(a).exp() if log else arb(a)
+            zb, m = arb(zeta), arb(n_eff) + (l + 2)
+            four_a = 4 * ab
+            w = zb * zb / four_a
+
+            def closed(nu):
+                return nu.gamma() * four_a ** (-nu / 2) * w.hypgeom_u(nu / 2, arb(0.5))
+
+            rows = [None] * 6
+            rows[5], rows[4] = closed(m + 5), closed(m + 4)
+            for j in range(3, -1, -1):
+                rows[j] = (2 * ab * rows[j + 2] + zb * rows[j + 1]) / (m + j)
+            tol = arb(2) ** (-bits)
+            if all(v.rad() < abs(v.mid()) * tol for v in rows) or prec > 4000:
+                return rows
+            prec *= 2
+    finally:
+        ctx.prec = saved
 
 
 def _integrals_ball(nu_max: int, log_a: float, zeta: float):

@@ -197,7 +197,7 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         return f, gz, hz
 
     # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in ball arithmetic;
-    # measured: ≤ 7.5e-15 × ‖φ‖² against the ball evaluation)
+    # measured up to ~1e-14 × ‖φ‖² against the ball evaluation)
     noise = 0.0 if extended else 1e-14 * math.fsum(problem.norm2)
     z = np.array(z0, dtype=float)
     f, g, h = evaluate(z)
@@ -207,7 +207,10 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
     last_pred = np.full(len(z), np.inf)
     for iteration in range(max_iter):
         if iteration >= KEEP_AFTER and active.any():
-            active &= f <= DROP_FACTOR * f[np.isfinite(f)].min()
+            # (differences, not ratios: in double precision ε near a tiny optimum can come out
+            # slightly negative)
+            f_min = f[np.isfinite(f)].min()
+            active &= f - f_min <= (DROP_FACTOR - 1.0) * max(abs(f_min), noise)
             if converged.any():
                 # a row above a converged one that, at its present rate, would need more than
                 # CRAWL steps even to come down to it (it is creeping along a valley)
@@ -223,7 +226,8 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         if idx.size == 0:
             break
         w, v = np.linalg.eigh(h[idx])
-        wabs = np.maximum(np.abs(w), 1e-300)
+        wabs = np.abs(w)
+        wabs = np.maximum(wabs, np.maximum(1e-24 * wabs.max(axis=1, keepdims=True), 1e-300))
         gt = np.einsum("kji,kj->ki", v, g[idx])  # Vᵀg
         step_t, _ = _trust_step(gt, wabs, radius[idx])
         step = np.einsum("kij,kj->ki", v, step_t)
@@ -235,7 +239,11 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         active[idx[done]] = False
         converged[idx[done]] = True
         last_pred[idx] = pred
+        bad_step = ~np.isfinite(step).all(axis=1)
+        step[bad_step] = 0.0
+        pred[bad_step] = 0.0
         ft, gt_new, ht = evaluate(z[idx] + step)
+        ft[bad_step] = np.inf  # a failed model step counts as a rejected one
         actual = f[idx] - ft
         better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
         rho = np.where(pred > 0, actual / np.where(pred > 0, pred, 1.0), 0.0)
@@ -385,16 +393,16 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
         if n_gauss > 1 and np.min(-np.diff(xk)) < math.log(MIN_RATIO):
             merged.append((fk, xk))  # two exponents running together mimic an r^(l+2) Gaussian
             continue
-        if fk < best_f * (1 - 1e-12):
+        if best_x is None or fk < best_f - 1e-12 * abs(best_f):
             best_f, best_x = float(fk), xk
     if merged and min(fk for fk, _ in merged) < best_f:
         # ε falls further as two exponents merge (6s6p N = 3; h1 6s N = 8): the best fit with
         # every ratio ≥ MIN_RATIO, started from those runs, competes with the interior minima
         fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:CONSTRAINED_STARTS])
-        if fc < best_f * (1 - 1e-12):
+        if best_x is None or fc < best_f - 1e-12 * abs(best_f):
             return tuple(float(v) for v in xc), True, fc, ()
     if best_x is not None:
-        keep = [best_x] + [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0])]
+        keep = [best_x] + [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0]) if math.isfinite(fk)]
         distinct = []
         for xk in keep:
             if (n_gauss == 1 or np.min(-np.diff(xk)) >= math.log(MIN_RATIO)) and not any(np.max(np.abs(xk - y)) < 1e-2 for y in distinct):
@@ -410,7 +418,8 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     problem = _problem(targets, norm)
     x, constrained, _, candidates = _search(targets, norm, n_gauss)
     x = np.array(x)
-    eps, _, _, coefs = problem.evaluate(x, order=0)
+    first = problem.evaluate(x, order=0)
+    eps, coefs = (first[0], first[3]) if first is not None else ([math.inf], None)
     # double precision places the optimum only to its rounding level (ε ± ~1e-14): every fit
     # is finished with every evaluation in ball arithmetic, from the best run, or (ε <
     # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
@@ -433,9 +442,14 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
         if fc < fx:
             fx, xx = fc, xc
     out = problem.evaluate_ball(xx, order=0) if math.isfinite(fx) else None
-    if out is not None and sum(out[0]) <= sum(problem.evaluate_ball(x, order=0)[0]):
+    here = problem.evaluate_ball(x, order=0)
+    if out is not None and (here is None or sum(out[0]) <= sum(here[0])):
         x, eps, coefs = np.array(xx), out[0], out[3]
         constrained = n_gauss > 1 and float(np.min(-np.diff(x))) - math.log(MIN_RATIO) < 1e-8
+    elif here is not None:
+        eps, coefs = here[0], here[3]  # the search's point, evaluated in ball arithmetic too
+    else:
+        raise RuntimeError(f"fit of {targets} with N = {n_gauss}: no exponent set with a regular Gram matrix")
     return tuple(float(v) for v in x), constrained, tuple(float(e) for e in eps), tuple(tuple(c) for c in coefs)
 
 
