@@ -655,7 +655,7 @@ class Problem:
             return ([e[0] for e in eps], None if grad is None else tofloat(grad[0]),
                     None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
 
-    def evaluate_ball(self, log_alpha: np.ndarray, order: int = 1):
+    def evaluate_ball(self, log_alpha: np.ndarray, order: int = 1, with_total: bool = False):
         """As ``evaluate`` in Arb ball arithmetic (python-flint) at BALL_BITS bits, everything
         returned rounded to float (ε is resolved to ~1e-30 absolute before rounding). The I_ν come
         at a working precision raised until Arb's error bound is below 2^-BALL_BITS relative
@@ -665,9 +665,9 @@ class Problem:
         if not self.inside(x):
             return None
         with _ARB_LOCK:
-            return self._evaluate_ball_locked(x, order)
+            return self._evaluate_ball_locked(x, order, with_total)
 
-    def _evaluate_ball_locked(self, x: np.ndarray, order: int):
+    def _evaluate_ball_locked(self, x: np.ndarray, order: int, with_total: bool):
         from flint import arb, ctx
 
         saved = ctx.prec
@@ -692,8 +692,12 @@ class Problem:
             if not valid[0]:
                 return None
             tofloat = np.vectorize(lambda v: float(v.mid()), otypes=[float])
-            return ([float(e[0].mid()) for e in eps], None if grad is None else tofloat(grad[0]),
-                    None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
+            out = ([float(e[0].mid()) for e in eps], None if grad is None else tofloat(grad[0]),
+                   None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
+            if with_total:  # Σε as a pair (high, low) of doubles, for comparisons finer than an ulp
+                high = float(total[0].mid())
+                out = out + ((high, float((total[0] - high).mid())),)
+            return out
         finally:
             ctx.prec = saved
 
