@@ -215,6 +215,12 @@ class _Extended:
     def const(self, v):
         return self.mp.mpf(v)
 
+    def log(self, v):
+        return self.mp.log(v)
+
+    def lgamma(self, v):
+        return self.mp.loggamma(v)
+
     def _factor_one(self, g):
         size = g.shape[0]
         low = np.full((size, size), self.mp.mpf(0), dtype=object)
@@ -268,6 +274,14 @@ class _Ball:
     def const(self, v):
         return self.arb(v)
 
+    @staticmethod
+    def log(v):
+        return v.log()
+
+    @staticmethod
+    def lgamma(v):
+        return v.lgamma()
+
     def _mat(self, m):
         return self.arb_mat(m.tolist())
 
@@ -315,7 +329,7 @@ def _gram_shared(ops, x):
     return q, q * 2 - 1, q * (1 - q) * 4
 
 
-def _gram_parts(ops, x, alpha, l: int, h1: bool, scale, order: int, shared=None):
+def _gram_parts(ops, x, alpha, p, h1: bool, scale, order: int, shared=None):
     """G and its partial derivatives in x = ln α for normalised Gaussians of angular momentum l
     (batched: x has shape (S, N), the results (S, N, N)).
 
@@ -324,10 +338,10 @@ def _gram_parts(ops, x, alpha, l: int, h1: bool, scale, order: int, shared=None)
     H¹ multiplies by 1 + κh, h = αβ/(α+β), κ = 4p/ζ₁² (∂₁h = h(1−q), ∂₂h = hq,
     ∂₁²h = h(1−q)(1−2q), ∂₁∂₂h = 2hq(1−q)).
     Returns (G, A = ∂₁G, B = ∂₁²G, C = ∂₁∂₂G), the last three None below the ``order`` asked.
-    (Arrays stand left of extended-precision scalars: mpmath's own operators would first try,
-    slowly, to convert the array.)
+    ``p`` = l + 3/2 (exact in binary, as are p/2, p²/4), or an array of shape (L, 1, 1, 1) for
+    several l at once (the results then (L, S, N, N)). (Arrays stand left of extended-precision
+    scalars: mpmath's own operators would first try, slowly, to convert the array.)
     """
-    p = l + 1.5  # exact in binary, as are p/2, p²/4
     q, t, base = shared if shared is not None else _gram_shared(ops, x)
     g = base ** (p / 2)
     a = t * g * (-p / 2) if order >= 1 else None
@@ -394,7 +408,7 @@ def _assemble(ops, problem: "Problem", x, ints_per_target, order: int):
     scale = ops.const(problem.scale)
     for t, norm2, ints in zip(problem.targets, problem.norm2_of(ops), ints_per_target):
         if t.l not in grams:
-            g, a, b, c = _gram_parts(ops, x, alpha, t.l, problem.h1, scale, order, shared)
+            g, a, b, c = _gram_parts(ops, x, alpha, t.l + 1.5, problem.h1, scale, order, shared)
             solve, ok = ops.factor(g)
             valid &= ok
             grams[t.l] = (a, b, c, solve)
@@ -435,20 +449,8 @@ def _assemble_double(problem: "Problem", x: np.ndarray, ints: np.ndarray, order:
     alpha = np.exp(x)
     k = problem.arrays
     q, t, base = _gram_shared(_DOUBLE, x)
-    p = k["p_l"][:, None, None, None]  # (L, 1, 1, 1)
-    g = base[None] ** (p / 2)
-    a = t[None] * g * (-p / 2) if order >= 1 else None
-    b = (t[None] * t[None] * (p * p / 4) - (1 - t[None] * t[None]) * (p / 4)) * g if order >= 2 else None
-    c = -b if order >= 2 else None
-    if problem.h1:
-        kh = (alpha[:, :, None] * (1 - q))[None] * (4 * p) / (problem.scale * problem.scale)
-        f = kh + 1
-        if order >= 2:
-            b = b * f + a * kh * (1 - q) * 2 + g * kh * (1 - q) * (1 - q * 2)
-            c = c * f + a * kh * q - a * kh * (1 - q) + g * kh * q * (1 - q) * 2
-        if order >= 1:
-            a = a * f + g * kh * (1 - q)
-        g = g * f
+    g, a, b, c = _gram_parts(_DOUBLE, x, alpha, k["p_l"][:, None, None, None], problem.h1, problem.scale, order,
+                             (q, t, base))
     n_l, n_s = g.shape[0], g.shape[1]
     gm, ok = _Double.checked(g.reshape(n_l * n_s, size, size))
     valid = ok.reshape(n_l, n_s).all(axis=0)
@@ -517,25 +519,16 @@ class Problem:
 
     # ------------------------------------------------------------------ helpers per backend
     def norm2_of(self, ops):
+        """‖φ‖² per target in the backend's arithmetic (``sto_h1_norm2``'s closed form)."""
         if ops is _DOUBLE:
             return self.norm2
-        if isinstance(ops, _Ball):
-            arb = ops.arb
-            out = []
-            for t in self.targets:
-                if not self.h1:
-                    out.append(arb(1))
-                    continue
-                a, n, z, sc2 = arb(t.n_eff) - 1 - t.l, arb(t.n_eff), arb(t.zeta), arb(self.scale) ** 2
-                out.append(1 + (a * a * 4 * z * z / (2 * n * (2 * n - 1)) - 2 * a * z * z / n + z * z) / sc2)
-            return out
-        mp = ops.mp
+        c = ops.const
         out = []
         for t in self.targets:
             if not self.h1:
-                out.append(mp.mpf(1))
+                out.append(c(1))
                 continue
-            a, n, z, sc2 = mp.mpf(t.n_eff) - 1 - t.l, mp.mpf(t.n_eff), mp.mpf(t.zeta), mp.mpf(self.scale) ** 2
+            a, n, z, sc2 = c(t.n_eff) - 1 - t.l, c(t.n_eff), c(t.zeta), c(self.scale) ** 2
             out.append(1 + (a * a * 4 * z * z / (2 * n * (2 * n - 1)) - 2 * a * z * z / n + z * z) / sc2)
         return out
 
@@ -545,17 +538,11 @@ class Problem:
         if ops is _DOUBLE:
             return np.exp((x + math.log(2.0)) * (p / 2) + (0.5 * math.log(2.0) - 0.5 * float(gammaln(p)))
                           + math.log(sto_norm(t.n_eff, t.zeta)))
-        if isinstance(ops, _Ball):
-            arb = ops.arb
-            n, pa = arb(t.n_eff), arb(p)
-            log_const = ((n + 0.5) * (2 * arb(t.zeta)).log() - (2 * n + 1).lgamma() / 2
-                         + (arb(2).log() - pa.lgamma()) / 2 + arb(2).log() * (pa / 2))
-            return ops.exp(x * (pa / 2) + log_const)
-        mp = ops.mp
-        n = mp.mpf(t.n_eff)
-        log_const = ((n + mp.mpf(1) / 2) * mp.log(2 * mp.mpf(t.zeta)) - mp.loggamma(2 * n + 1) / 2
-                     + (mp.log(2) - mp.loggamma(mp.mpf(p))) / 2 + mp.log(2) * (mp.mpf(p) / 2))
-        return ops.exp(x * (mp.mpf(p) / 2) + log_const)
+        c, log, lgamma = ops.const, ops.log, ops.lgamma
+        n, pa = c(t.n_eff), c(p)
+        log_const = ((n + c(1) / 2) * log(2 * c(t.zeta)) - lgamma(2 * n + 1) / 2
+                     + (log(c(2)) - lgamma(pa)) / 2 + log(c(2)) * (pa / 2))
+        return ops.exp(x * (pa / 2) + log_const)
 
     def _integrals(self, alpha: np.ndarray) -> list[np.ndarray]:
         """Per target (double): rows I_m … I_(m+5) with m = n* + l + 2."""

@@ -419,16 +419,14 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
 def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     """(ln α descending, constrained, ε per target, optimal coefficients per target) of the fit."""
     problem = _problem(targets, norm)
-    x, constrained, _, candidates = _search(targets, norm, n_gauss)
+    x, constrained, search_f, candidates = _search(targets, norm, n_gauss)
     x = np.array(x)
-    first = problem.evaluate(x, order=0)
-    eps, coefs = (first[0], first[3]) if first is not None else ([math.inf], None)
     # double precision places the optimum only to its rounding level (ε ± ~1e-14): every fit
     # is finished with every evaluation in ball arithmetic, from the best run, or (ε <
     # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
     # from the starts of the finished N − 1 fit
     rows = [tuple(x)]
-    if math.fsum(eps) < EXT_ALL_BELOW * math.fsum(problem.norm2):
+    if search_f < EXT_ALL_BELOW * math.fsum(problem.norm2):
         previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
         fs, zs = _newton(problem, np.array(_starts(n_gauss, targets, previous)))
         for zk in list(candidates) + [tuple(v) for fk, v in zip(fs, -np.sort(-zs, axis=1)) if math.isfinite(fk)]:
