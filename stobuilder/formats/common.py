@@ -176,6 +176,13 @@ def no_repeats(records, lines: Lines) -> None:
         seen[symbol] = line
 
 
+def parsed_elements(records, lines: Lines) -> list[ParsedElement]:
+    """One ParsedElement per record (symbol, shells, (first, last) line span, line of the
+    symbol), after ``no_repeats``: the common end of the line-based parsers."""
+    no_repeats(records, lines)
+    return [ParsedElement(s, tuple(sh), (span,)) for s, sh, span, _ in records]
+
+
 def file_basis(elements: list[ParsedElement], lines: Lines) -> Basis:
     """A Basis with rule "file" from elements read from a text."""
     if not elements:

@@ -22,8 +22,8 @@ from .common import (
     file_basis,
     general_contractions,
     merge_lines,
-    no_repeats,
     number,
+    parsed_elements,
     provenance_lines,
     read_float,
     read_int,
@@ -95,8 +95,7 @@ def parse(text: str) -> tuple[list[ParsedElement], Lines]:
         if l == 0:
             raise lines.error(n0, f"entry of {symbol} has no blocks")
         records.append((symbol, shells, (n0 - 1, last), n0))
-    no_repeats(records, lines)
-    return [ParsedElement(s, tuple(sh), (span,)) for s, sh, span, _ in records], lines
+    return parsed_elements(records, lines), lines
 
 
 def read(text: str) -> Basis:

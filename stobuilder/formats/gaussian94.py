@@ -17,8 +17,8 @@ from .common import (
     file_basis,
     make_shell,
     merge_lines,
-    no_repeats,
     number,
+    parsed_elements,
     provenance_lines,
     read_float,
     read_int,
@@ -95,8 +95,7 @@ def parse(text: str, code: str = NAME, header: tuple[str, ...] = ()) -> tuple[li
                     coefs[j].append(nums[1 + j])
             shells.extend(make_shell(l, exps, c, n, lines) for l, c in zip(ls, coefs))
         records.append((symbol, shells, (n0 - 1, n), n0))
-    no_repeats(records, lines)
-    return [ParsedElement(s, tuple(sh), (span,)) for s, sh, span, _ in records], lines
+    return parsed_elements(records, lines), lines
 
 
 def read(text: str) -> Basis:

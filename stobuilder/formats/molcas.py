@@ -23,8 +23,8 @@ from .common import (
     file_basis,
     general_contractions,
     merge_lines,
-    no_repeats,
     number,
+    parsed_elements,
     provenance_lines,
     read_float,
     read_int,
@@ -118,8 +118,7 @@ def parse(text: str) -> tuple[list[ParsedElement], Lines]:
             for v in tokens[1:4]:
                 read_float(v, m, lines, "coordinate")
         records.append((symbol, shells, (n0 - 1, m), n0))
-    no_repeats(records, lines)
-    return [ParsedElement(s, tuple(sh), (span,)) for s, sh, span, _ in records], lines
+    return parsed_elements(records, lines), lines
 
 
 def read(text: str) -> Basis:
