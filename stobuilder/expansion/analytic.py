@@ -503,7 +503,12 @@ class Problem:
         self.bounds = (math.log(ALPHA_MIN * zmin * zmin), math.log(ALPHA_MAX * zmax * zmax))
         self.norm2 = [sto_h1_norm2(t.n_eff, t.l, t.zeta, self.scale) if self.h1 else 1.0 for t in targets]
         self.integer = [float(t.n_eff).is_integer() for t in targets]
-        self._tables = {t: _NonintTable(t.n_eff, t.l, t.zeta) for t, i in zip(targets, self.integer) if not i}
+        # one table per (n*, ζ), for the highest l among those targets (the lower l by recurrence)
+        tops: dict[tuple[float, float], list[int]] = {}
+        for t, i in zip(targets, self.integer):
+            if not i:
+                tops.setdefault((t.n_eff, t.zeta), []).append(t.l)
+        self._tables = {key: (_NonintTable(key[0], max(ls), key[1]), min(ls)) for key, ls in tops.items()}
         ls = sorted({t.l for t in targets})
         self.arrays = {
             "p_l": np.array([l + 1.5 for l in ls]),
@@ -546,7 +551,7 @@ class Problem:
 
     def _integrals(self, alpha: np.ndarray, log_alpha: np.ndarray) -> list[np.ndarray]:
         """Per target (double): rows I_m … I_(m+5) with m = n* + l + 2 at α = exp(ln α) (both given)."""
-        cache: dict[float, np.ndarray] = {}
+        cache: dict = {}  # ζ → integer-ν rows; (n*, ζ) → non-integer rows
         out = []
         for t, integer in zip(self.targets, self.integer):
             m = t.n_eff + t.l + 2
@@ -556,7 +561,11 @@ class Problem:
                     cache[t.zeta] = integrals_vec(top, alpha, t.zeta)
                 out.append(cache[t.zeta][int(m) - 1 : int(m) + 5])
             else:
-                out.append(self._tables[t].columns(log_alpha, alpha))
+                table, l_min = self._tables[(t.n_eff, t.zeta)]
+                key = (t.n_eff, t.zeta)
+                if key not in cache:
+                    cache[key] = table.columns(log_alpha, alpha, l_min)
+                out.append(cache[key][t.l - l_min : t.l - l_min + 6])
         return out
 
     def inside(self, log_alpha) -> np.ndarray:
@@ -690,10 +699,10 @@ TABLE_BITS = 128
 
 
 class _NonintTable:
-    """I_m … I_(m+5) (m = n* + l + 2, n* not an integer) in double precision for the batched
-    evaluation: ln I_(m+4) and ln I_(m+5) as Chebyshev polynomials of x = ln α on each piece
-    [k, k + 1) (built on first use), the lower four by the downward recurrence of ``_nonint_arb``
-    (positive terms). A piece costs 2 (TABLE_DEGREE + 1) closed forms in Arb at TABLE_BITS bits,
+    """I_ν for non-integer n* in double precision for the batched evaluation: with m = n* + l + 2
+    for the highest l of the fit, ln I_(m+4) and ln I_(m+5) as Chebyshev polynomials of
+    x = ln α on each piece [k, k + 1) (built on first use), every lower ν (down to the lowest
+    l's m) by the downward recurrence of ``_nonint_arb`` (positive terms). A piece costs 2 (TABLE_DEGREE + 1) closed forms in Arb at TABLE_BITS bits,
     at Chebyshev nodes formed in ball arithmetic (nodes rounded to double would cost ~1e-14 in
     the values: ln I changes by (ν+1)/2 per unit of x); the coefficients come from the discrete
     cosine transform in Arb, rounded to double, stored as I = E · exp(p(t)) with E = e^(c₀)
@@ -732,8 +741,9 @@ class _NonintTable:
                 ctx.prec = saved
         return np.array(big_e), np.array(coefs)
 
-    def columns(self, log_alpha: np.ndarray, alpha: np.ndarray) -> np.ndarray:
-        """I_m … I_(m+5) (rows) at every ln α (and α = exp(ln α))."""
+    def columns(self, log_alpha: np.ndarray, alpha: np.ndarray, l_min: int | None = None) -> np.ndarray:
+        """I_ν (rows) for ν = n* + l_min + 2 … n* + l + 7 at every ln α (and α = exp(ln α)); l_min
+        defaults to the table's l (six rows)."""
         k = np.floor(log_alpha).astype(int)
         for key in np.unique(k):
             if int(key) not in self.pieces:
@@ -747,9 +757,11 @@ class _NonintTable:
         for n in range(TABLE_DEGREE, 0, -1):  # Clenshaw
             b1, b2 = 2.0 * t * b1 - b2 + coefs[:, :, n], b1
         values = big_e * np.exp(t * b1 - b2 + coefs[:, :, 0])
-        m = self.n_eff + self.l + 2
-        rows = [None] * 4 + [values[:, 0], values[:, 1]]
-        for j in range(3, -1, -1):
+        low = self.l if l_min is None else l_min
+        m = self.n_eff + low + 2
+        count = self.l - low + 6
+        rows = [None] * (count - 2) + [values[:, 0], values[:, 1]]
+        for j in range(count - 3, -1, -1):
             rows[j] = (2.0 * alpha * rows[j + 2] + self.zeta * rows[j + 1]) / (m + j)
         return np.array(rows)
 
