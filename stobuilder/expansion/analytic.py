@@ -2,12 +2,13 @@
 ln α, L² or H¹ norm, in double precision (batched over exponent sets) or in ball arithmetic.
 
 Every quantity is an analytic integral: Gaussian–Gaussian overlaps are powers, STO–Gaussian
-overlaps are the radial integrals I_ν(α, ζ) = ∫_0^∞ r^(ν−1) e^(−αr² − ζr) dr of
-stobuilder.expansion.integrals (erfcx with stable recurrences, dI_ν/dα = −I_(ν+2)); for a
-non-integer n* the two lowest I_ν come from the confluent hypergeometric closed form
-Γ(ν) (4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)) (I. S. Gradshteyn, I. M. Ryzhik, Table of Integrals, 7th ed.,
-2007, 3.462.1) evaluated in mpmath, the others by the recurrence 2α I_(ν+2) = ν I_ν − ζ I_(ν+1)
-in extended precision. No quadrature grid is used.
+overlaps are the radial integrals I_ν(α, ζ) = ∫_0^∞ r^(ν−1) e^(−αr² − ζr) dr (dI_ν/dα =
+−I_(ν+2)): for integer ν from erfc and the recurrence 2α I_(ν+2) = ν I_ν − ζ I_(ν+1) (as in
+stobuilder.expansion.integrals), for a non-integer n* from the confluent hypergeometric closed
+form Γ(ν) (4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)) (I. S. Gradshteyn, I. M. Ryzhik, Table of Integrals, 7th
+ed., 2007, 3.462.1) and the recurrence, in extended precision; the double-precision evaluation
+interpolates them (``RadialTable``: Chebyshev pieces in ln α computed in Arb, ~1e-15 relative).
+No quadrature grid is used.
 
 Norms. "l2": ∫ |φ − χ|² dτ (W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657,
 1969). "h1": ∫ |φ − χ|² dτ + ζ₁⁻² ∫ |∇φ − ∇χ|² dτ, ζ₁ the exponent of the first subshell (the
@@ -17,8 +18,9 @@ Gaussian r^l (g/r^l)' = −2αr g, for the STO r^l (φ/r^l)' = φ ((n* − 1 −
 inner product is again a sum of I_ν.
 
 Precision. In double precision ε = ‖φ‖² − sᵀG⁻¹s carries an absolute rounding error of
-~1e-16–1e-14 (the cancellation of two numbers near ‖φ‖²; measured against the extended
-evaluations), and so do its gradient and Hessian: enough to search, not enough to place an
+~1e-16–1e-15 (the cancellation of two numbers near ‖φ‖², with G, s and the prefactors accurate
+to a few ulp; measured against the extended evaluations), its gradient ~1e-15 and its Hessian
+~1e-14: enough to search, not enough to place an
 optimum whose ε is ~1e-15 (or its flattest direction to better than ~1e-5 in ln α).
 ``evaluate_ball`` evaluates the same closed forms in Arb ball arithmetic (python-flint;
 F. Johansson, IEEE Trans. Comput. 66, 1281, 2017) at 113 bits, every I_ν (integer ν by the
@@ -39,12 +41,13 @@ from __future__ import annotations
 import math
 import threading
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 from scipy.linalg import cho_factor, cho_solve
-from scipy.special import erfcx, gammaln
+from scipy.special import gammaln
 
-from .integrals import _SWITCH, radial_integrals_mp
+from .integrals import radial_integrals_mp
 
 # Range of the exponents a fit may use, bohr⁻² at ζ = 1 (scaled by ζ_min², ζ_max² of a fit):
 # no fit of the library comes near either end (they span 4e-3 … 7e3).
@@ -77,64 +80,6 @@ def sto_h1_norm2(n_eff: float, l: int, zeta: float, scale: float) -> float:
     return 1.0 + grad2 / (scale * scale)
 
 
-CF_BASE, CF_SLOPE = 40, 250.0  # tail length of the continued fraction: nu_max + BASE + SLOPE √α/ζ
-
-
-def integrals_vec(nu_max: int, alpha: np.ndarray, zeta: float) -> np.ndarray:
-    """I_1 … I_nu_max (rows) at every α, integer ν: the recurrences of stobuilder.expansion.integrals
-    vectorised over α (upward for α ≥ 0.3 ζ², the continued fraction downwards below)."""
-    out = np.empty((nu_max, alpha.size))
-    i1 = 0.5 * np.sqrt(np.pi / alpha) * erfcx(zeta / (2.0 * np.sqrt(alpha)))
-    up = alpha >= _SWITCH * zeta * zeta
-    if up.any():
-        au = alpha[up]
-        two_au = 2.0 * au
-        rows = out[:, up]
-        rows[0] = i1[up]
-        if nu_max > 1:
-            rows[1] = (1.0 - zeta * rows[0]) / two_au
-        for nu in range(1, nu_max - 1):
-            rows[nu + 1] = (nu * rows[nu - 1] - zeta * rows[nu]) / two_au
-        out[:, up] = rows
-    down = ~up
-    if down.any():
-        ad = alpha[down]
-        top = nu_max + CF_BASE + int(CF_SLOPE * math.sqrt(float(ad.max())) / zeta)
-        two_a = 2.0 * ad
-        # tail start: the fixed point r₀ of r = top/(ζ + 2αr) with its first correction for the
-        # slow variation of r_ν with ν, −2αr₀/(ζ + 4αr₀)² (own derivation, checked in the tests)
-        ratio = (-zeta + np.sqrt(zeta * zeta + 8.0 * ad * top)) / (4.0 * ad)
-        ratio -= 2.0 * ad * ratio / (zeta + 4.0 * ad * ratio) ** 2
-        # r_ν = M_ν(r_(ν+1)) with the Möbius map M_ν = [[0, ν], [2α, ζ]]: the tail ν = nu_max …
-        # top − 1 is composed as a product of positive matrices (pairwise, rescaled; no
-        # cancellation), padded with identities to a power of two
-        count = top - nu_max
-        width = 1 << max(0, (count - 1).bit_length())
-        # entries (m00, m01, m10, m11) of each map, shape (α, term); identities beyond the tail
-        m00 = np.zeros((ad.size, width))
-        m01 = np.zeros((ad.size, width))
-        m10 = np.zeros((ad.size, width))
-        m11 = np.ones((ad.size, width))
-        m00[:, count:] = 1.0
-        m01[:, :count] = np.arange(nu_max, top, dtype=float)[None, :]
-        m10[:, :count] = two_a[:, None]
-        m11[:, :count] = zeta
-        while m00.shape[1] > 1:
-            a00, a01, a10, a11 = m00[:, 0::2], m01[:, 0::2], m10[:, 0::2], m11[:, 0::2]
-            b00, b01, b10, b11 = m00[:, 1::2], m01[:, 1::2], m10[:, 1::2], m11[:, 1::2]
-            m11 = a10 * b01 + a11 * b11
-            m00, m01, m10 = (a00 * b00 + a01 * b10) / m11, (a00 * b01 + a01 * b11) / m11, (a10 * b00 + a11 * b10) / m11
-            m11 = np.ones_like(m11)
-        ratio = (m00[:, 0] * ratio + m01[:, 0]) / (m10[:, 0] * ratio + m11[:, 0])
-        rows = np.empty((nu_max, ad.size))
-        rows[0] = i1[down]
-        for nu in range(nu_max - 1, 0, -1):
-            ratio = nu / (zeta + two_a * ratio)
-            rows[nu] = ratio
-        out[:, down] = np.cumprod(rows, axis=0)
-    return out
-
-
 def integrals_nonint_mp(nu: float, count: int, a, zeta):
     """I_ν … I_(ν+count−1) at one α for real ν in mpmath (current precision): the closed form
     Γ(ν)(4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)) for the first two, the recurrence upwards for the rest."""
@@ -157,6 +102,7 @@ class _Double:
     """Double-precision backend of ``_assemble``: numpy floats, batched LAPACK."""
 
     exp = staticmethod(np.exp)
+    sqrt = staticmethod(np.sqrt)
 
     @staticmethod
     def const(v):
@@ -211,6 +157,7 @@ class _Extended:
 
         self.mp = mp
         self.exp = np.frompyfunc(mp.exp, 1, 1)
+        self.sqrt = np.frompyfunc(mp.sqrt, 1, 1)
 
     def const(self, v):
         return self.mp.mpf(v)
@@ -270,6 +217,7 @@ class _Ball:
 
         self.arb, self.arb_mat = arb, arb_mat
         self.exp = np.frompyfunc(lambda v: v.exp(), 1, 1)
+        self.sqrt = np.frompyfunc(lambda v: v.sqrt(), 1, 1)
 
     def const(self, v):
         return self.arb(v)
@@ -323,38 +271,70 @@ class _Ball:
         return np.array([self._back(self._mat(ak) * self._mat(bk)) for ak, bk in zip(a, b)], dtype=object)
 
 
-def _gram_shared(ops, x):
-    """The l-independent parts of the Gram matrices: q = α/(α+β), T = 2q − 1, sech² = 4q(1−q)."""
-    q = 1 / (ops.exp(x[:, None, :] - x[:, :, None]) + 1)
-    return q, q * 2 - 1, q * (1 - q) * 4
+@lru_cache(maxsize=None)
+def _pairs(size: int) -> tuple[np.ndarray, np.ndarray]:
+    """Row and column indices above the diagonal of an N × N matrix (``np.triu_indices`` order)."""
+    return np.triu_indices(size, 1)
+
+
+def _symmetric(ops, upper, diagonal, size: int, lower=None):
+    """(S, N, N) from the values above the diagonal (S, N(N−1)/2, ``_pairs`` order), ``lower``
+    below it (default the same: a symmetric matrix) and a constant diagonal."""
+    iu, ju = _pairs(size)
+    out = np.empty((upper.shape[0], size, size), dtype=upper.dtype)
+    out[:, iu, ju] = upper
+    out[:, ju, iu] = upper if lower is None else lower
+    out[:, np.arange(size), np.arange(size)] = ops.const(diagonal)
+    return out
+
+
+def _gram_shared(ops, x, alpha):
+    """The l-independent parts of the Gram matrices, from α = e^x (no exponential per pair, each
+    pair formed once): q = α/(α+β), its complement q̄ = β/(α+β) (the transpose of q, not 1 − q,
+    which loses digits where q is near 1), T = q − q̄, sech² = 4 q q̄, and sech((x − y)/2) =
+    2√(αβ)/(α+β) above the diagonal (S, N(N−1)/2)."""
+    size = x.shape[1]
+    iu, ju = _pairs(size)
+    a_i, a_j = alpha[:, iu], alpha[:, ju]
+    total = a_i + a_j
+    q = _symmetric(ops, a_i / total, 0.5, size, a_j / total)
+    qc = np.swapaxes(q, 1, 2)
+    root = ops.sqrt(alpha)
+    sech_upper = root[:, iu] * root[:, ju] * 2 / total
+    return q, qc, q - qc, q * qc * 4, sech_upper
 
 
 def _gram_parts(ops, x, alpha, p, h1: bool, scale, order: int, shared=None):
     """G and its partial derivatives in x = ln α for normalised Gaussians of angular momentum l
     (batched: x has shape (S, N), the results (S, N, N)).
 
-    L²: G(x, y) = sech((x − y)/2)^p, p = l + 3/2; with q = α/(α+β) and T = tanh((x−y)/2) = 2q − 1:
+    L²: G(x, y) = sech((x − y)/2)^p, p = l + 3/2; with q = α/(α+β), q̄ = 1 − q and T = tanh((x−y)/2) = q − q̄:
     ∂₁G = −(p/2) T G, ∂₁²G = [(p²/4) T² − (p/4)(1 − T²)] G, ∂₁∂₂G = −∂₁²G.
     H¹ multiplies by 1 + κh, h = αβ/(α+β), κ = 4p/ζ₁² (∂₁h = h(1−q), ∂₂h = hq,
-    ∂₁²h = h(1−q)(1−2q), ∂₁∂₂h = 2hq(1−q)).
+    ∂₁²h = h(1−q)(1−2q), ∂₁∂₂h = 2hq(1−q); 1 − q is q̄ and 1 − 2q is −T).
     Returns (G, A = ∂₁G, B = ∂₁²G, C = ∂₁∂₂G), the last three None below the ``order`` asked.
     ``p`` = l + 3/2 (exact in binary, as are p/2, p²/4), or an array of shape (L, 1, 1, 1) for
     several l at once (the results then (L, S, N, N)). (Arrays stand left of extended-precision
     scalars: mpmath's own operators would first try, slowly, to convert the array.)
     """
-    q, t, base = shared if shared is not None else _gram_shared(ops, x)
-    g = base ** (p / 2)
+    q, qc, t, base, sech_upper = shared if shared is not None else _gram_shared(ops, x, alpha)
+    # G = sech^p = sech^(l+1) √sech (no power with a fractional exponent)
+    if isinstance(p, float):  # one l: formed above the diagonal only
+        g = _symmetric(ops, sech_upper ** int(p - 0.5) * ops.sqrt(sech_upper), 1, x.shape[1])
+    else:  # double precision, several l at once (p of shape (L, 1, 1, 1))
+        sech = _symmetric(ops, sech_upper, 1, x.shape[1])
+        g = sech ** (p - 0.5) * np.sqrt(sech)
     a = t * g * (-p / 2) if order >= 1 else None
     b = (t * t * (p * p / 4) - (1 - t * t) * (p / 4)) * g if order >= 2 else None
     c = -b if order >= 2 else None
     if h1:
-        kh = alpha[:, :, None] * (1 - q) * (4 * p) / (scale * scale)  # κ h
+        kh = alpha[:, :, None] * qc * (4 * p) / (scale * scale)  # κ h
         f = kh + 1
         if order >= 2:
-            b = b * f + a * kh * (1 - q) * 2 + g * kh * (1 - q) * (1 - q * 2)
-            c = c * f + a * kh * q - a * kh * (1 - q) + g * kh * q * (1 - q) * 2
+            b = b * f + a * kh * qc * 2 - g * kh * qc * t
+            c = c * f + a * kh * q - a * kh * qc + g * kh * q * qc * 2
         if order >= 1:
-            a = a * f + g * kh * (1 - q)
+            a = a * f + g * kh * qc
         g = g * f
     return g, a, b, c
 
@@ -401,7 +381,7 @@ def _assemble(ops, problem: "Problem", x, ints_per_target, order: int):
     diag = np.arange(size)
     alpha = ops.exp(x)
     grams: dict[int, tuple] = {}
-    shared = _gram_shared(ops, x)
+    shared = _gram_shared(ops, x, alpha)
     eps, coefs = [], []
     grad = hess = None
     valid = np.ones(x.shape[0], dtype=bool)
@@ -437,6 +417,33 @@ def _assemble(ops, problem: "Problem", x, ints_per_target, order: int):
     return eps, total, grad, hess, coefs, valid
 
 
+def _log_prefactor_pair(t: Target) -> tuple[float, float]:
+    """(p/2) ln 2 + ln N_STO + ½ ln 2 − ½ ln Γ(p) (p = l + 3/2) as hi + lo, from mpmath at 40 digits."""
+    import mpmath as mp
+
+    with mp.workdps(40):
+        n, p = mp.mpf(t.n_eff), mp.mpf(t.l) + mp.mpf(3) / 2
+        v = ((n + mp.mpf(1) / 2) * mp.log(2 * mp.mpf(t.zeta)) - mp.loggamma(2 * n + 1) / 2
+             + (mp.log(2) - mp.loggamma(p)) / 2 + p / 2 * mp.log(2))
+        hi = float(v)
+        return hi, float(v - hi)
+
+
+def _exp_affine(x: np.ndarray, h, c_hi, c_lo) -> np.ndarray:
+    """exp(h x + c) to a few ulp for |h x + c| up to ~100 (np.exp of the rounded argument would be
+    off by |h x + c| ulp): h = p/2 has at most 4 significant bits, so h x is exact as the sum
+    of the two halves of x (T. J. Dekker, Numer. Math. 18, 224, 1971), the sum with c = c_hi +
+    c_lo is formed with its rounding error (Knuth's TwoSum), and exp(hi + lo) = exp(hi)(1 + lo)."""
+    big = x * 134217729.0  # 2^27 + 1: Dekker's split
+    x_hi = big - (big - x)
+    prod = x * h
+    err = (x_hi * h - prod) + (x - x_hi) * h
+    total = prod + c_hi
+    back = total - prod
+    err = err + (prod - (total - back)) + (c_hi - back) + c_lo
+    return np.exp(total) * (1.0 + err)
+
+
 _DOUBLE = _Double()
 
 
@@ -448,9 +455,9 @@ def _assemble_double(problem: "Problem", x: np.ndarray, ints: np.ndarray, order:
     diag = np.arange(size)
     alpha = np.exp(x)
     k = problem.arrays
-    q, t, base = _gram_shared(_DOUBLE, x)
+    shared = _gram_shared(_DOUBLE, x, alpha)
     g, a, b, c = _gram_parts(_DOUBLE, x, alpha, k["p_l"][:, None, None, None], problem.h1, problem.scale, order,
-                             (q, t, base))
+                             shared)
     n_l, n_s = g.shape[0], g.shape[1]
     gm, ok = _Double.checked(g.reshape(n_l * n_s, size, size))
     valid = ok.reshape(n_l, n_s).all(axis=0)
@@ -458,7 +465,7 @@ def _assemble_double(problem: "Problem", x: np.ndarray, ints: np.ndarray, order:
     li = k["l_index"]  # target → its l group
     gt = gm.reshape(n_l, n_s, size, size)[li]  # (T, S, N, N), identity where not valid
     pt = k["p_t"][:, None, None]  # (T, 1, 1)
-    pre = np.exp((x[None] + math.log(2.0)) * (pt / 2) + k["log_const"][:, None, None])
+    pre = _exp_affine(x[None], pt / 2, k["pre_hi"][:, None, None], k["pre_lo"][:, None, None])
     i0, i1, i2, i3, i4, i5 = (ints[:, j] for j in range(6))
     s = pre * i0
     s1 = s * (pt / 2) - alpha[None] * pre * i2 if order >= 1 else None
@@ -503,12 +510,12 @@ class Problem:
         self.bounds = (math.log(ALPHA_MIN * zmin * zmin), math.log(ALPHA_MAX * zmax * zmax))
         self.norm2 = [sto_h1_norm2(t.n_eff, t.l, t.zeta, self.scale) if self.h1 else 1.0 for t in targets]
         self.integer = [float(t.n_eff).is_integer() for t in targets]
-        # one table per (n*, ζ), for the highest l among those targets (the lower l by recurrence)
+        # one table of I_ν per (n*, ζ), for the highest l among those targets (the lower l by
+        # the downward recurrence)
         tops: dict[tuple[float, float], list[int]] = {}
-        for t, i in zip(targets, self.integer):
-            if not i:
-                tops.setdefault((t.n_eff, t.zeta), []).append(t.l)
-        self._tables = {key: (_NonintTable(key[0], max(ls), key[1]), min(ls)) for key, ls in tops.items()}
+        for t in targets:
+            tops.setdefault((t.n_eff, t.zeta), []).append(t.l)
+        self._tables = {key: (radial_table(key[0], max(ls), key[1]), min(ls)) for key, ls in tops.items()}
         ls = sorted({t.l for t in targets})
         self.arrays = {
             "p_l": np.array([l + 1.5 for l in ls]),
@@ -521,6 +528,10 @@ class Problem:
             "log_const": np.array([math.log(sto_norm(t.n_eff, t.zeta)) + 0.5 * math.log(2.0)
                                    - 0.5 * float(gammaln(t.l + 1.5)) for t in targets]),
         }
+        # ln(N_STO N_k) − (p/2) ln α = (p/2) ln 2 + log_const as a double-double (hi, lo)
+        pairs = [_log_prefactor_pair(t) for t in targets]
+        self.arrays["pre_hi"] = np.array([hi for hi, _ in pairs])
+        self.arrays["pre_lo"] = np.array([lo for _, lo in pairs])
 
     # ------------------------------------------------------------------ helpers per backend
     def norm2_of(self, ops):
@@ -550,22 +561,16 @@ class Problem:
         return ops.exp(x * (pa / 2) + log_const)
 
     def _integrals(self, alpha: np.ndarray, log_alpha: np.ndarray) -> list[np.ndarray]:
-        """Per target (double): rows I_m … I_(m+5) with m = n* + l + 2 at α = exp(ln α) (both given)."""
-        cache: dict = {}  # ζ → integer-ν rows; (n*, ζ) → non-integer rows
+        """Per target (double, from the tables): rows I_m … I_(m+5) with m = n* + l + 2 at
+        α = exp(ln α) (both given)."""
+        cache: dict[tuple[float, float], np.ndarray] = {}
         out = []
-        for t, integer in zip(self.targets, self.integer):
-            m = t.n_eff + t.l + 2
-            if integer:
-                if t.zeta not in cache:
-                    top = max(int(u.n_eff) + u.l + 7 for u, i in zip(self.targets, self.integer) if i and u.zeta == t.zeta)
-                    cache[t.zeta] = integrals_vec(top, alpha, t.zeta)
-                out.append(cache[t.zeta][int(m) - 1 : int(m) + 5])
-            else:
-                table, l_min = self._tables[(t.n_eff, t.zeta)]
-                key = (t.n_eff, t.zeta)
-                if key not in cache:
-                    cache[key] = table.columns(log_alpha, alpha, l_min)
-                out.append(cache[key][t.l - l_min : t.l - l_min + 6])
+        for t in self.targets:
+            key = (t.n_eff, t.zeta)
+            table, l_min = self._tables[key]
+            if key not in cache:
+                cache[key] = table.columns(log_alpha, alpha, l_min)
+            out.append(cache[key][t.l - l_min : t.l - l_min + 6])
         return out
 
     def inside(self, log_alpha) -> np.ndarray:
@@ -692,25 +697,59 @@ _ARB_LOCK = threading.RLock()
 _BALL_TOL = 2.0 ** -BALL_BITS
 
 
-# Pieces of the tables of I_ν for non-integer n*: unit width in ln α, Chebyshev degree (the error
-# is at the rounding level, ~1e-15 relative, from degree 12 on: measured, see the tests)
+# Pieces of the tables of I_ν: unit width in ln α, Chebyshev degree (the error is at the
+# rounding level, ~1e-15 relative, from degree 12 on: measured, see the tests), working precision
 TABLE_DEGREE = 14
 TABLE_BITS = 128
 
 
-class _NonintTable:
-    """I_ν for non-integer n* in double precision for the batched evaluation: with m = n* + l + 2
-    for the highest l of the fit, ln I_(m+4) and ln I_(m+5) as Chebyshev polynomials of
-    x = ln α on each piece [k, k + 1) (built on first use), every lower ν (down to the lowest
-    l's m) by the downward recurrence of ``_nonint_arb`` (positive terms). A piece costs 2 (TABLE_DEGREE + 1) closed forms in Arb at TABLE_BITS bits,
-    at Chebyshev nodes formed in ball arithmetic (nodes rounded to double would cost ~1e-14 in
-    the values: ln I changes by (ν+1)/2 per unit of x); the coefficients come from the discrete
-    cosine transform in Arb, rounded to double, stored as I = E · exp(p(t)) with E = e^(c₀)
-    so that |p| stays small. Replaces one pair of closed forms per exponent and evaluation."""
+class RadialTable:
+    """I_ν(α) = ∫ r^(ν−1) e^(−αr² − ζr) dr in double precision for the batched evaluation.
+
+    With m = n* + l + 2 for the highest l of a fit, ln I_(m+4) and ln I_(m+5) are Chebyshev
+    polynomials of x = ln α on each piece [k, k + 1) (built on first use), every lower ν (down to
+    the lowest l's m) follows by the downward recurrence I_ν = (2α I_(ν+2) + ζ I_(ν+1))/ν, whose
+    terms are all positive. A piece costs TABLE_DEGREE + 1 evaluations in Arb (integer ν: I_1
+    from erfc and the upward recurrence; otherwise the closed form with hypgeom_u, both at a
+    working precision raised until Arb's error bound is below 2^-(TABLE_BITS − 40)), at Chebyshev
+    nodes formed in ball arithmetic (nodes rounded to double would cost ~1e-14: ln I changes by
+    ~(ν+1)/2 per unit of x); the coefficients come from the discrete cosine transform in Arb,
+    rounded to double, and are stored as I = E · exp(p(t)) with E = e^(c₀), so |p| stays small.
+    The double-precision recurrences this replaces lost up to 1.4e-12 relative at ν = 17 near
+    α = ζ² (measured against Arb); the tables are within ~1e-15 everywhere (tests). Tables are
+    shared by every fit of the process (``radial_table``)."""
 
     def __init__(self, n_eff: float, l: int, zeta: float):
         self.n_eff, self.l, self.zeta = n_eff, l, zeta
+        self.integer = float(n_eff).is_integer()
         self.pieces: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # k → (E (2,), coefficients (2, D+1))
+        self._stacked = None  # (k_first, E, coefficients) of the pieces k_first … as arrays
+
+    def _node(self, k: int, angle_index: int, size: int):
+        """ln I_(m+4), ln I_(m+5) at the node x = k + (1 + cos θ)/2 as arb (precision raised as needed)."""
+        from flint import arb, ctx
+
+        prec = TABLE_BITS
+        while True:
+            ctx.prec = prec
+            angle = arb.pi() * (2 * angle_index + 1) / (2 * size)
+            a = (arb(k) + (1 + angle.cos()) / 2).exp()
+            zb = arb(self.zeta)
+            m = arb(self.n_eff) + (self.l + 2)
+            if self.integer:
+                top = int(self.n_eff) + self.l + 7
+                rows = [(arb.pi() / a).sqrt() / 2 * (zb / (2 * a.sqrt())).erfc() * (zb * zb / (4 * a)).exp()]
+                rows.append((1 - zb * rows[0]) / (2 * a))
+                for nu in range(1, top - 1):
+                    rows.append((rows[nu - 1] * nu - zb * rows[nu]) / (2 * a))
+                values = [rows[top - 2], rows[top - 1]]
+            else:
+                four_a = 4 * a
+                w = zb * zb / four_a
+                values = [nu.gamma() * four_a ** (-nu / 2) * w.hypgeom_u(nu / 2, arb(0.5)) for nu in (m + 4, m + 5)]
+            if all(v.rad() < abs(v.mid()) * arb(2) ** (40 - TABLE_BITS) for v in values) or prec > 4000:
+                return [v.log() for v in values]
+            prec *= 2
 
     def _piece(self, k: int) -> tuple[np.ndarray, np.ndarray]:
         from flint import arb, ctx
@@ -719,15 +758,9 @@ class _NonintTable:
         with _ARB_LOCK:
             saved = ctx.prec
             try:
+                values = [self._node(k, j, size) for j in range(size)]
                 ctx.prec = TABLE_BITS
-                zb, m = arb(self.zeta), arb(self.n_eff) + (self.l + 2)
                 angles = [arb.pi() * (2 * j + 1) / (2 * size) for j in range(size)]
-                values = []
-                for angle in angles:
-                    four_a = 4 * (arb(k) + (1 + angle.cos()) / 2).exp()
-                    w = zb * zb / four_a
-                    values.append([(nu.gamma() * four_a ** (-nu / 2) * w.hypgeom_u(nu / 2, arb(0.5))).log()
-                                   for nu in (m + 4, m + 5)])
                 big_e, coefs = [], []
                 for q in range(2):
                     c = [sum((values[j][q] * (angles[j] * n).cos() for j in range(size)), arb(0)) * 2 / size
@@ -745,12 +778,23 @@ class _NonintTable:
         """I_ν (rows) for ν = n* + l_min + 2 … n* + l + 7 at every ln α (and α = exp(ln α)); l_min
         defaults to the table's l (six rows)."""
         k = np.floor(log_alpha).astype(int)
-        for key in np.unique(k):
-            if int(key) not in self.pieces:
-                self.pieces[int(key)] = self._piece(int(key))
-        keys = sorted(self.pieces)
-        big_e = np.array([self.pieces[key][0] for key in keys])[np.searchsorted(keys, k)]  # (M, 2)
-        coefs = np.array([self.pieces[key][1] for key in keys])[np.searchsorted(keys, k)]  # (M, 2, D+1)
+        stacked = self._stacked
+        if stacked is None or k.min() < stacked[0] or k.max() >= stacked[0] + len(stacked[1]):
+            for key in range(int(k.min()), int(k.max()) + 1):
+                if key not in self.pieces:
+                    self.pieces.setdefault(key, self._piece(key))
+            # the pieces as arrays indexed by k − k_first (a gap in the keys never occurs: every
+            # piece between the lowest and highest is built)
+            first, last = min(self.pieces), max(self.pieces)
+            for key in range(first, last + 1):
+                if key not in self.pieces:
+                    self.pieces.setdefault(key, self._piece(key))
+            stacked = (first, np.array([self.pieces[key][0] for key in range(first, last + 1)]),
+                       np.array([self.pieces[key][1] for key in range(first, last + 1)]))
+            self._stacked = stacked
+        where = k - stacked[0]
+        big_e = stacked[1][where]  # (M, 2)
+        coefs = stacked[2][where]  # (M, 2, D+1)
         t = (2.0 * (log_alpha - k) - 1.0)[:, None]
         b1 = np.zeros((len(k), 2))
         b2 = np.zeros((len(k), 2))
@@ -764,6 +808,19 @@ class _NonintTable:
         for j in range(count - 3, -1, -1):
             rows[j] = (2.0 * alpha * rows[j + 2] + self.zeta * rows[j + 1]) / (m + j)
         return np.array(rows)
+
+
+_TABLES: dict[tuple[float, int, float], RadialTable] = {}
+
+
+def radial_table(n_eff: float, l: int, zeta: float) -> RadialTable:
+    """The process-wide table of I_ν for (n*, highest l, ζ) (created on first use)."""
+    key = (float(n_eff), int(l), float(zeta))
+    table = _TABLES.get(key)
+    if table is None:
+        with _ARB_LOCK:
+            table = _TABLES.setdefault(key, RadialTable(*key))
+    return table
 
 
 def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int, log: bool = True):
