@@ -178,13 +178,26 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
     """
     rtol = RTOL if rtol is None else rtol
 
-    def batch(x):
-        """(ε, gradient, Hessian, the part of ε below its double: zero in double precision).
-        ``extended``: ε and gradient in ball arithmetic, the Hessian (the model only) in double
-        precision for all rows at once (~1e-14 absolute: the steps barely change, a ball
-        evaluation costs half as much without it)."""
+    def in_z(z, x_parts, with_hessian):
+        """ε, gradient and (if asked) Hessian with respect to z from those with respect to x."""
+        f, g, h, lo = x_parts
+        if transform is None:
+            return f, g, h, lo
+        x, jac, second = transform(z)
+        gz = np.einsum("sij,si->sj", jac, g)
+        hz = None
+        if with_hessian:
+            hz = np.einsum("sij,sik,skl->sjl", jac, h, jac)
+            hz[:, np.arange(z.shape[1]), np.arange(z.shape[1])] += second(g)
+        return f, gz, hz, lo
+
+    def evaluate(z, with_hessian=True):
+        """(ε, gradient, Hessian or None, the part of ε below its double: zero in double
+        precision) at the rows of z. ``extended``: ε and gradient in ball arithmetic; the Hessian
+        (the model only) is ``model_hessian``'s, asked for where a step was taken."""
+        x = z if transform is None else transform(z)[0]
         if not extended:
-            return (*problem.evaluate_batch(x, 2)[1:4], np.zeros(len(x)))
+            return in_z(z, (*problem.evaluate_batch(x, 2)[1:4], np.zeros(len(x))), True)
         fs, gs, lows = [], [], []
         for row in x:
             out = problem.evaluate_ball(row, order=1, with_total=True)
@@ -192,17 +205,15 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
                 fs.append(math.inf), gs.append(np.zeros(row.size)), lows.append(0.0)
             else:
                 fs.append(out[4][0]), gs.append(out[1]), lows.append(out[4][1])
-        return np.array(fs), np.array(gs), problem.evaluate_batch(x, 2)[3], np.array(lows)
+        f, g, _, lo = in_z(z, (np.array(fs), np.array(gs), None, np.array(lows)), False)
+        return f, g, model_hessian(z) if with_hessian else None, lo
 
-    def evaluate(z):
-        if transform is None:
-            return batch(z)
-        x, jac, second = transform(z)
-        f, g, h, lo = batch(x)
-        gz = np.einsum("sij,si->sj", jac, g)
-        hz = np.einsum("sij,sik,skl->sjl", jac, h, jac)
-        hz[:, np.arange(z.shape[1]), np.arange(z.shape[1])] += second(g)
-        return f, gz, hz, lo
+    def model_hessian(z):
+        """The Hessian in double precision for all rows at once (~1e-14 absolute: the steps
+        barely change, and a ball evaluation costs half as much without it)."""
+        x = z if transform is None else transform(z)[0]
+        _, _, gd, hd, _ = problem.evaluate_batch(x, 2)
+        return in_z(z, (None, gd, hd, None), True)[2]
 
     # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in ball arithmetic)
     noise = 0.0 if extended else NOISE * math.fsum(problem.norm2)
@@ -249,7 +260,7 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         bad_step = ~np.isfinite(step).all(axis=1)
         step[bad_step] = 0.0
         pred[bad_step] = 0.0
-        ft, gt_new, ht, low_t = evaluate(z[idx] + step)
+        ft, gt_new, ht, low_t = evaluate(z[idx] + step, with_hessian=not extended)
         ft[bad_step] = np.inf  # a failed model step counts as a rejected one
         actual = f[idx] - ft
         # the exact difference (ball arithmetic): a converging step may lower ε by less than an ulp
@@ -278,12 +289,14 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
             small = np.linalg.norm(corr, axis=1) <= CORRECTION_LIMIT * np.linalg.norm(step[fix], axis=1)
             fix, ii, corr = fix[small], ii[small], corr[small]
             if fix.size:
-                fc, gc, hc, lowc = evaluate(z[ii] + step[fix] + corr)
+                fc, gc, hc, lowc = evaluate(z[ii] + step[fix] + corr, with_hessian=not extended)
                 act_c = np.where(np.isfinite(fc), f[ii] - fc + (low[ii] - lowc), -np.inf)
                 ok = act_c > 0.25 * pred[fix]
                 k = fix[ok]
                 step[k] += corr[ok]
-                ft[k], gt_new[k], ht[k], low_t[k] = fc[ok], gc[ok], hc[ok], lowc[ok]
+                ft[k], gt_new[k], low_t[k] = fc[ok], gc[ok], lowc[ok]
+                if not extended:
+                    ht[k] = hc[ok]
                 actual[k] = act_c[ok]
                 better[k] = True
                 rho[k] = act_c[ok] / pred[k]
@@ -294,7 +307,9 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         radius[idx[grow]] = np.minimum(2.0 * radius[idx[grow]], MAX_STEP)
         acc = idx[better]
         z[acc] += step[better]
-        f[acc], g[acc], h[acc], low[acc] = ft[better], gt_new[better], ht[better], low_t[better]
+        f[acc], g[acc], low[acc] = ft[better], gt_new[better], low_t[better]
+        if acc.size:
+            h[acc] = ht[better] if not extended else model_hessian(z[acc])
         active[idx[radius[idx] < XTOL]] = False
     return f, z
 
