@@ -62,6 +62,56 @@ def test_radial_tables_match_ball_arithmetic(n_eff, l, zeta):
         assert np.max(np.abs(low / _arb_columns(n_eff, 0, x, zeta) - 1)) < 3e-15
 
 
+@pytest.mark.parametrize("n_eff,l,zeta", [(4.2, 1, 1.0), (3.7, 3, 1.0), (4.2, 0, 0.6)])
+def test_ball_tables_match_the_closed_form_at_higher_precision(n_eff, l, zeta, monkeypatch):
+    """The ball evaluation's tables for non-integer n* (Chebyshev pieces at 192 bits) against the
+    closed form (Gradshteyn & Ryzhik 3.462.1, Arb's hypgeom_u) at 320 bits: within 1e-35
+    relative over the exponent range of fits (measured ≤ 3e-37; common practice, no source: far
+    below the 2^-113 ≈ 1e-34 the ball evaluation works at); a piece whose series has not
+    converged falls back to the closed form (forced here with degree 8)."""
+    from flint import arb, ctx
+
+    xs = [-7.3, -5.5, -2.01, -0.5, 0.0, 1.7, 4.4, 9.9]
+    with A._ARB_LOCK:
+        saved = ctx.prec
+        try:
+            table = A._BallTable(n_eff, l, zeta)
+            for x in xs:
+                cols = table.columns(x)
+                ref = A._nonint_arb(n_eff, l, x, zeta, 320)
+                ctx.prec = 320
+                assert all(abs(float(((c - r) / r).mid())) < 1e-35 for c, r in zip(cols, ref))
+            monkeypatch.setattr(A, "BALL_TABLE_DEGREE", 8)
+            coarse = A._BallTable(n_eff, l, zeta)
+            for x in xs[:3]:
+                assert coarse.columns(x) is not None and coarse.pieces[math.floor(x)] is None
+                ctx.prec = 320
+                direct = A._nonint_arb(n_eff, l, x, zeta, A.BALL_BITS)
+                assert all(c.mid() == d.mid() for c, d in zip(coarse.columns(x), direct))
+        finally:
+            ctx.prec = saved
+
+
+def test_hypergeometric_u_at_the_midpoint_encloses_the_interval_value():
+    """U(a, ½, w) evaluated at w's midpoint and widened by the propagated error overlaps Arb's own
+    evaluation on the interval and is no wider (common practice, no source: the widening is an
+    upper bound; both carry Arb's own loss at w ~ 100, ~40 bits at 128)."""
+    from flint import arb, ctx
+
+    with A._ARB_LOCK:
+        saved = ctx.prec
+        try:
+            ctx.prec = 128
+            for x in (-6.0, -2.5, 0.3, 5.0):
+                w = 1 / (4 * arb(x).exp())
+                for a in (arb(5.6), arb(3.35) + 2):
+                    fast, slow = A._u_half(a, w), w.hypgeom_u(a, arb(0.5))
+                    assert fast.overlaps(slow)
+                    assert fast.rad() <= 2 * slow.rad() + abs(fast.mid()) * 2.0 ** -120  # not wider either
+        finally:
+            ctx.prec = saved
+
+
 @pytest.mark.parametrize("norm", ["l2", "h1"])
 @pytest.mark.parametrize("targets", CASES)
 def test_closed_form_error_and_gradient_match_the_sampled_residual(targets, norm):
