@@ -62,32 +62,46 @@ def test_radial_tables_match_ball_arithmetic(n_eff, l, zeta):
         assert np.max(np.abs(low / _arb_columns(n_eff, 0, x, zeta) - 1)) < 3e-15
 
 
-@pytest.mark.parametrize("n_eff,l,zeta", [(4.2, 1, 1.0), (3.7, 3, 1.0), (4.2, 0, 0.6)])
-def test_ball_tables_match_the_closed_form_at_higher_precision(n_eff, l, zeta, monkeypatch):
-    """The ball evaluation's tables for non-integer n* (Chebyshev pieces at 192 bits) against the
-    closed form (Gradshteyn & Ryzhik 3.462.1, Arb's hypgeom_u) at 320 bits: within 1e-35
-    relative over the exponent range of fits (measured ≤ 3e-37; common practice, no source: far
-    below the 2^-113 ≈ 1e-34 the ball evaluation works at); a piece whose series has not
-    converged falls back to the closed form (forced here with degree 8)."""
-    from flint import arb, ctx
+def _closed_ball(n_eff, l, x, zeta, bits, l_min):
+    """I_ν for ν = n* + l_min + 2 … n* + l + 7 from the closed forms (erfc and the recurrence for
+    integer n*, hypgeom_u otherwise; Gradshteyn & Ryzhik 3.462.1) at ``bits``."""
+    if float(n_eff).is_integer():
+        m = int(n_eff) + l_min + 2
+        return A._integrals_ball(int(n_eff) + l + 7, x, zeta)[m - 1:] if bits == A.BALL_BITS else None
+    low = A._nonint_arb(n_eff, l_min, x, zeta, bits)
+    return low[: l - l_min] + A._nonint_arb(n_eff, l, x, zeta, bits)
+
+
+@pytest.mark.parametrize("n_eff,l,zeta,l_min", [(4.2, 1, 1.0, 1), (3.7, 3, 1.0, 0), (4.2, 0, 0.6, 0), (6.0, 1, 1.0, 0),
+                                                (3.0, 2, 0.4, 1)])
+def test_ball_tables_match_the_closed_forms(n_eff, l, zeta, l_min, monkeypatch):
+    """The ball evaluation's tables of I_ν (Chebyshev pieces at 192 bits) against the closed
+    forms over the exponent range of fits: non-integer n* against hypgeom_u at 320 bits within
+    1e-35 relative (measured ≤ 3e-37), integer n* against erfc and the recurrence at 113 bits
+    within 1e-33 (that reference's own bound is 2^-113 ≈ 1e-34; common practice, no source);
+    a piece whose series has not converged falls back to those closed forms (forced here with
+    degree 8)."""
+    from flint import ctx
 
     xs = [-7.3, -5.5, -2.01, -0.5, 0.0, 1.7, 4.4, 9.9]
+    integer = float(n_eff).is_integer()
     with A._ARB_LOCK:
         saved = ctx.prec
         try:
             table = A._BallTable(n_eff, l, zeta)
             for x in xs:
-                cols = table.columns(x)
-                ref = A._nonint_arb(n_eff, l, x, zeta, 320)
+                cols = table.columns(x, l_min)
+                ref = _closed_ball(n_eff, l, x, zeta, A.BALL_BITS if integer else 320, l_min)
                 ctx.prec = 320
-                assert all(abs(float(((c - r) / r).mid())) < 1e-35 for c, r in zip(cols, ref))
+                assert len(cols) == len(ref) == l - l_min + 6
+                assert all(abs(float(((c - r) / r).mid())) < (1e-33 if integer else 1e-35) for c, r in zip(cols, ref))
             monkeypatch.setattr(A, "BALL_TABLE_DEGREE", 8)
             coarse = A._BallTable(n_eff, l, zeta)
             for x in xs[:3]:
-                assert coarse.columns(x) is not None and coarse.pieces[math.floor(x)] is None
-                ctx.prec = 320
-                direct = A._nonint_arb(n_eff, l, x, zeta, A.BALL_BITS)
-                assert all(c.mid() == d.mid() for c, d in zip(coarse.columns(x), direct))
+                values = coarse.columns(x, l_min)
+                assert coarse.pieces[math.floor(x)] is None
+                direct = _closed_ball(n_eff, l, x, zeta, A.BALL_BITS, l_min)
+                assert all(c.mid() == d.mid() for c, d in zip(values, direct))
         finally:
             ctx.prec = saved
 

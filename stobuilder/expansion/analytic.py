@@ -664,19 +664,17 @@ class Problem:
             ops = _Ball()
             xb = np.array([[arb(float(v)) for v in x]], dtype=object)
             alpha = ops.exp(xb)[0]
-            by_zeta: dict[float, list] = {}
+            by_key: dict[tuple[float, float], list] = {}
             ints = []
-            for t, integer in zip(self.targets, self.integer):
-                if integer:
-                    m = int(t.n_eff) + t.l + 2
-                    if t.zeta not in by_zeta:
-                        top = max(int(u.n_eff) + u.l + 7 for u, i in zip(self.targets, self.integer) if i and u.zeta == t.zeta)
-                        by_zeta[t.zeta] = [_integrals_ball(top, float(v), t.zeta) for v in x]
-                    cols = [col[m - 1 : m + 5] for col in by_zeta[t.zeta]]
-                else:
-                    table = _BALL_TABLES.setdefault((t.n_eff, t.l, t.zeta), _BallTable(t.n_eff, t.l, t.zeta))
-                    cols = [table.columns(float(v)) for v in x]
+            for t in self.targets:
+                key = (t.n_eff, t.zeta)
+                l_min = self._tables[key][1]
+                if key not in by_key:  # one table per (n*, ζ), as in ``_integrals``
+                    l_top = self._tables[key][0].l
+                    table = _BALL_TABLES.setdefault((t.n_eff, l_top, t.zeta), _BallTable(t.n_eff, l_top, t.zeta))
+                    by_key[key] = [table.columns(float(v), l_min) for v in x]
                     ctx.prec = BALL_BITS
+                cols = [col[t.l - l_min : t.l - l_min + 6] for col in by_key[key]]
                 ints.append([np.array([[col[j] for col in cols]], dtype=object) for j in range(6)])
             eps, total, grad, hess, coefs, valid = _assemble(ops, self, xb, ints, order)
             if not valid[0]:
@@ -846,10 +844,14 @@ def _chebyshev_piece(n_eff: float, l: int, zeta: float, k: int, degree: int, bit
     size = degree + 1
     values = [_table_node(n_eff, l, zeta, k, j, size, bits) for j in range(size)]
     ctx.prec = bits
-    angles = [arb.pi() * (2 * j + 1) / (2 * size) for j in range(size)]
+    # cos(n θ_j) = T_n(cos θ_j) by the Chebyshev recurrence (one cosine per node)
+    nodes = [(arb.pi() * (2 * j + 1) / (2 * size)).cos() for j in range(size)]
+    basis = [[arb(1)] * size, list(nodes)]
+    for n in range(2, size):
+        basis.append([2 * t * a - b for t, a, b in zip(nodes, basis[-1], basis[-2])])
     out = []
     for q in range(2):
-        c = [sum((values[j][q] * (angles[j] * n).cos() for j in range(size)), arb(0)) * 2 / size for n in range(size)]
+        c = [sum((values[j][q] * basis[n][j] for j in range(size)), arb(0)) * 2 / size for n in range(size)]
         c[0] /= 2
         out.append(c)
     return out
@@ -864,13 +866,14 @@ BALL_TAIL, BALL_TAIL_BITS = 3, 118
 
 
 class _BallTable:
-    """I_m … I_(m+5) (m = n* + l + 2, n* not an integer) in Arb for ``evaluate_ball``: ln I_(m+4)
+    """I_ν in Arb for ``evaluate_ball``: with m = n* + l + 2 for the highest l of a fit, ln I_(m+4)
     and ln I_(m+5) as polynomials in t = 2(x − k) − 1 on each piece [k, k + 1) of x = ln α (the
     Chebyshev series at BALL_TABLE_BITS, converted to the monomial basis and evaluated at that
     precision: the conversion's coefficients grow to ~2^BALL_TABLE_DEGREE, far below the 79
-    spare bits), the lower four by the downward recurrence. Against the closed form at 320 bits
-    within ~3e-37 (tests); an evaluation costs ~3 µs per exponent instead of ~90 µs for two
-    hypgeom_u. Pieces whose series does not converge to 2^-BALL_TAIL_BITS use the closed form."""
+    spare bits), every lower ν by the downward recurrence. Against the closed forms at 320 bits
+    within ~3e-37 (tests); an exponent costs ~3 µs instead of ~90 µs for two hypgeom_u
+    (non-integer n*) or ~13 µs for erfc and the recurrence at a raised precision (integer n*).
+    Pieces whose series does not converge to 2^-BALL_TAIL_BITS use those closed forms."""
 
     def __init__(self, n_eff: float, l: int, zeta: float):
         self.n_eff, self.l, self.zeta = n_eff, l, zeta
@@ -894,22 +897,31 @@ class _BallTable:
             polys.append(poly)
         return tuple(polys)
 
-    def columns(self, log_a: float):
-        """I_m … I_(m+5) as arb at α = e^log_a; the caller holds _ARB_LOCK and restores ctx.prec."""
+    def columns(self, log_a: float, l_min: int | None = None):
+        """I_ν as arb for ν = n* + l_min + 2 … n* + l + 7 at α = e^log_a (l_min defaults to the
+        table's l: six values); the caller holds _ARB_LOCK and restores ctx.prec."""
         from flint import arb, ctx
 
+        low = self.l if l_min is None else l_min
         k = math.floor(log_a)
         if k not in self.pieces:
             self.pieces[k] = self._piece(k)
         piece = self.pieces[k]
-        if piece is None:
-            return _nonint_arb(self.n_eff, self.l, log_a, self.zeta, BALL_BITS)
+        if piece is None:  # the closed forms
+            if float(self.n_eff).is_integer():
+                m = int(self.n_eff) + low + 2
+                return _integrals_ball(int(self.n_eff) + self.l + 7, log_a, self.zeta)[m - 1:]
+            top = _nonint_arb(self.n_eff, self.l, log_a, self.zeta, BALL_BITS)
+            if low == self.l:
+                return top
+            return _nonint_arb(self.n_eff, low, log_a, self.zeta, BALL_BITS)[: self.l - low] + top
         ctx.prec = BALL_TABLE_BITS
         xb = arb(log_a)
         t = 2 * (xb - k) - 1
-        a, zb, m = xb.exp(), arb(self.zeta), arb(self.n_eff) + (self.l + 2)
-        rows = [None] * 4 + [piece[0](t).exp(), piece[1](t).exp()]
-        for j in range(3, -1, -1):
+        a, zb, m = xb.exp(), arb(self.zeta), arb(self.n_eff) + (low + 2)
+        count = self.l - low + 6
+        rows = [None] * (count - 2) + [piece[0](t).exp(), piece[1](t).exp()]
+        for j in range(count - 3, -1, -1):
             rows[j] = (2 * a * rows[j + 2] + zb * rows[j + 1]) / (m + j)
         return rows
 
