@@ -23,10 +23,12 @@ to a few ulp; measured against the extended evaluations), its gradient ~1e-15 an
 ~1e-14: enough to search, not enough to place an
 optimum whose ε is ~1e-15 (or its flattest direction to better than ~1e-5 in ln α).
 ``evaluate_ball`` evaluates the same closed forms in Arb ball arithmetic (python-flint;
-F. Johansson, IEEE Trans. Comput. 66, 1281, 2017) at 113 bits, every I_ν (integer ν by the
-recurrences, non-integer ν from Arb's hypgeom_u) at a working precision raised until Arb's own
-error bound is below 2^-113; the linear algebra uses Arb's midpoint solver, so the results are
-accurate to about that level without being rigorous enclosures. ``evaluate_mp`` does the same in
+F. Johansson, IEEE Trans. Comput. 66, 1281, 2017) at 113 bits, every I_ν from Chebyshev pieces
+computed at 192 bits (``_BallTable``: within ~3e-37 of the closed forms, which it falls back to
+where a series has not converged: integer ν by erfc and the recurrences, non-integer ν from
+Arb's hypgeom_u, at a working precision raised until Arb's own error bound is below 2^-113);
+the linear algebra uses Arb's midpoint solver, so the results are accurate to about that level
+without being rigorous enclosures. ``evaluate_mp`` does the same in
 mpmath at MP_DIGITS digits (non-integer ν from mpmath's hyperu) and serves as the independent
 check of the other two (tests).
 
@@ -646,9 +648,10 @@ class Problem:
     def evaluate_ball(self, log_alpha: np.ndarray, order: int = 1, with_total: bool = False):
         """As ``evaluate`` in Arb ball arithmetic (python-flint) at BALL_BITS bits, everything
         returned rounded to float (ε is resolved to ~1e-30 absolute before rounding). The I_ν come
-        at a working precision raised until Arb's error bound is below 2^-BALL_BITS relative
+        from ``_BallTable`` (~3e-37 relative), or where its series has not converged from the
+        closed forms at a working precision raised until Arb's error bound is below 2^-BALL_BITS
         (``_integrals_ball``, ``_nonint_arb``); the linear algebra uses Arb's midpoint solver, so
-        the results are accurate to about that bound but are not rigorous enclosures."""
+        the results are accurate to about 2^-BALL_BITS but are not rigorous enclosures."""
         x = np.asarray(log_alpha, dtype=float)
         if not self.inside(x):
             return None
