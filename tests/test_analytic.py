@@ -83,7 +83,7 @@ def test_ball_tables_match_the_closed_forms(n_eff, l, zeta, l_min, monkeypatch):
     degree 8)."""
     from flint import ctx
 
-    xs = [-7.3, -5.5, -2.01, -0.5, 0.0, 1.7, 4.4, 9.9]
+    xs = [-7.3, -5.5, -2.01, -0.5, 0.0, 1.7, 4.4, 9.9, 13.8]
     integer = float(n_eff).is_integer()
     with A._ARB_LOCK:
         saved = ctx.prec
@@ -108,8 +108,8 @@ def test_ball_tables_match_the_closed_forms(n_eff, l, zeta, l_min, monkeypatch):
 
 def test_hypergeometric_u_at_the_midpoint_encloses_the_interval_value():
     """U(a, ½, w) evaluated at w's midpoint and widened by the propagated error overlaps Arb's own
-    evaluation on the interval and is no wider (common practice, no source: the widening is an
-    upper bound; both carry Arb's own loss at w ~ 100, ~40 bits at 128)."""
+    evaluation on the interval and is at most twice as wide (common practice, no source: the
+    widening is an upper bound; both carry Arb's own loss at w ~ 100, ~40 bits at 128)."""
     from flint import arb, ctx
 
     with A._ARB_LOCK:
@@ -167,17 +167,16 @@ def test_exact_hessian_matches_finite_differences_of_the_gradient(targets, norm)
 
 
 def test_batched_evaluation_equals_one_at_a_time():
-    """A row evaluated in a batch against the same row alone. They need not be bit-equal: the
-    continued fraction for I_ν runs to a length set by the largest small α of the whole batch
-    (one more tail term changes the last bits), so the bounds are the double rounding level
-    (common practice, no source); a singular row is reported as +inf without disturbing others."""
+    """A row evaluated in a batch against the same row alone: bit-equal (every I_ν comes from the
+    tables, elementwise; measured), so a fit cannot depend on which other starts share its
+    batch; a singular row is reported as +inf without disturbing the others."""
     problem = A.Problem((A.Target(3.0, 0, 1.0), A.Target(3.0, 1, 1.0)), "h1")
     x = np.log(np.array([[8.0, 1.5, 0.4, 0.1], [6.0, 1.0, 0.3, 0.08], [9.0, 9.0, 0.3, 0.08]]))
-    _, total, grad, hess, _ = problem.evaluate_batch(x, 2)
+    eps_all, total, grad, hess, _ = problem.evaluate_batch(x, 2)
     for k in range(2):
-        eps, g, hh, _ = problem.evaluate(x[k], 2)
-        assert total[k] == pytest.approx(sum(eps), rel=1e-14)
-        assert np.allclose(grad[k], g, rtol=1e-12, atol=1e-18) and np.allclose(hess[k], hh, rtol=1e-12, atol=1e-18)
+        alone = problem.evaluate_batch(x[k : k + 1], 2)
+        assert alone[1][0] == total[k] and [e[0] for e in alone[0]] == [e[k] for e in eps_all]
+        assert np.array_equal(alone[2][0], grad[k]) and np.array_equal(alone[3][0], hess[k])
     assert total[2] == np.inf  # two equal exponents: a singular Gram matrix
 
 
@@ -296,3 +295,67 @@ def test_ball_evaluation_is_thread_safe():
     from flint import ctx
 
     assert ctx.prec == 53  # python-flint's default, restored after every evaluation
+
+
+def test_tables_built_from_several_threads_equal_the_serial_ones():
+    """Pieces of the process-wide tables built while three threads evaluate (double precision and
+    ball arithmetic) give the values of tables built in one thread (common practice, no source:
+    a table is an exact function of (n*, l, ζ); n* = 4.35 is used nowhere else, so every piece
+    starts cold)."""
+    import sys
+    from concurrent.futures import ThreadPoolExecutor
+
+    targets = (A.Target(4.35, 0, 1.0), A.Target(4.35, 1, 1.0))
+    xs = [np.log(np.geomspace(300.0 * (1 + 0.05 * k), 0.005 * (1 + 0.05 * k), 6)) for k in range(12)]
+
+    def both(problem, x):
+        return problem.evaluate_batch(x[None, :], 2)[2][0], problem.evaluate_ball(x, order=1)[1]
+
+    problem = A.Problem(targets, "l2")
+    old = sys.getswitchinterval()
+    sys.setswitchinterval(1e-6)
+    try:
+        with ThreadPoolExecutor(3) as pool:
+            threaded = list(pool.map(lambda x: both(problem, x), xs))
+    finally:
+        sys.setswitchinterval(old)
+    for key in [k for k in A._TABLES if k[0] == 4.35] + [k for k in A._BALL_TABLES if k[0] == 4.35]:
+        (A._TABLES if key in A._TABLES else A._BALL_TABLES).pop(key)
+    fresh = A.Problem(targets, "l2")
+    serial = [both(fresh, x) for x in xs]
+    assert all(np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1]) for a, b in zip(threaded, serial))
+
+
+def test_exact_argument_exponential_matches_mpmath():
+    """exp(h x + c) with h = p/2 (l = 0 … 3) and c as a double-double, for |h x + c| up to ~60,
+    against mpmath at 40 digits: within 4 ulp (common practice, no source; np.exp of the rounded
+    argument is off by up to |h x + c| ulp)."""
+    import mpmath as mp
+
+    rng = np.random.default_rng(7)
+    x = rng.uniform(-10.0, 15.0, 200)
+    with mp.workdps(40):
+        for l in range(4):
+            h = (l + 1.5) / 2
+            c = mp.mpf(-3) + mp.log(7) / 3
+            c_hi = float(c)
+            c_lo = float(c - c_hi)
+            got = A._exp_affine(x, h, c_hi, c_lo)
+            ref = np.array([float(mp.exp(mp.mpf(v) * h + c)) for v in x])
+            assert np.max(np.abs(got / ref - 1)) < 4 * 2.0 ** -52
+
+
+def test_finish_stops_at_the_min_ratio_bound():
+    """A ball-arithmetic finish with ``floor`` never accepts a step that brings two exponents
+    closer than the floor, corrected steps included (the review of this finish found corrected
+    steps that did: h1 6p N = 10 crossed ln 1.1 three times). From the h1 6p N = 10 search,
+    whose finished fit lies on the MIN_RATIO bound (fits_h1.json, flagged there)."""
+    from stobuilder.expansion import fit as F
+
+    targets = (A.Target(6.0, 1, 1.0),)
+    x = np.array(F._search(targets, "h1", 10)[0])
+    floor = math.log(F.MIN_RATIO)
+    _, z = F._newton(F._problem(targets, "h1"), x[None, :], max_iter=F.EXT_ITER, extended=True,
+                     rtol=F.EXT_RTOL, floor=floor)
+    assert np.min(-np.diff(-np.sort(-z[0]))) >= floor
+    assert F.fit_sto("6p", 10, "h1").constrained

@@ -46,8 +46,6 @@ from dataclasses import dataclass
 from functools import lru_cache
 
 import numpy as np
-from scipy.linalg import cho_factor, cho_solve
-from scipy.special import gammaln
 
 from .integrals import radial_integrals_mp
 
@@ -293,8 +291,8 @@ def _symmetric(ops, upper, diagonal, size: int, lower=None):
 def _gram_shared(ops, x, alpha):
     """The l-independent parts of the Gram matrices, from α = e^x (no exponential per pair, each
     pair formed once): q = α/(α+β), its complement q̄ = β/(α+β) (the transpose of q, not 1 − q,
-    which loses digits where q is near 1), T = q − q̄, sech² = 4 q q̄, and sech((x − y)/2) =
-    2√(αβ)/(α+β) above the diagonal (S, N(N−1)/2)."""
+    which loses digits where q is near 1), T = q − q̄, and sech((x − y)/2) = 2√(αβ)/(α+β) above
+    the diagonal (S, N(N−1)/2)."""
     size = x.shape[1]
     iu, ju = _pairs(size)
     a_i, a_j = alpha[:, iu], alpha[:, ju]
@@ -303,7 +301,7 @@ def _gram_shared(ops, x, alpha):
     qc = np.swapaxes(q, 1, 2)
     root = ops.sqrt(alpha)
     sech_upper = root[:, iu] * root[:, ju] * 2 / total
-    return q, qc, q - qc, q * qc * 4, sech_upper
+    return q, qc, q - qc, sech_upper
 
 
 def _gram_parts(ops, x, alpha, p, h1: bool, scale, order: int, shared=None):
@@ -319,7 +317,7 @@ def _gram_parts(ops, x, alpha, p, h1: bool, scale, order: int, shared=None):
     several l at once (the results then (L, S, N, N)). (Arrays stand left of extended-precision
     scalars: mpmath's own operators would first try, slowly, to convert the array.)
     """
-    q, qc, t, base, sech_upper = shared if shared is not None else _gram_shared(ops, x, alpha)
+    q, qc, t, sech_upper = shared if shared is not None else _gram_shared(ops, x, alpha)
     # G = sech^p = sech^(l+1) √sech (no power with a fractional exponent)
     if isinstance(p, float):  # one l: formed above the diagonal only
         g = _symmetric(ops, sech_upper ** int(p - 0.5) * ops.sqrt(sech_upper), 1, x.shape[1])
@@ -526,11 +524,9 @@ class Problem:
             "a_t": np.array([t.n_eff - 1.0 - t.l for t in targets]),
             "zeta_t": np.array([t.zeta for t in targets]),
             "norm2": np.array(self.norm2),
-            # ln(N_STO) + ½ ln 2 − ½ ln Γ(p): the constant of ln(N_STO N_k) = (p/2) ln(2α) + …
-            "log_const": np.array([math.log(sto_norm(t.n_eff, t.zeta)) + 0.5 * math.log(2.0)
-                                   - 0.5 * float(gammaln(t.l + 1.5)) for t in targets]),
         }
-        # ln(N_STO N_k) − (p/2) ln α = (p/2) ln 2 + log_const as a double-double (hi, lo)
+        # ln(N_STO N_k) − (p/2) ln α = (p/2) ln 2 + ln N_STO + ½ ln 2 − ½ ln Γ(p) as a
+        # double-double (hi, lo)
         pairs = [_log_prefactor_pair(t) for t in targets]
         self.arrays["pre_hi"] = np.array([hi for hi, _ in pairs])
         self.arrays["pre_lo"] = np.array([lo for _, lo in pairs])
@@ -554,8 +550,8 @@ class Problem:
         """N_STO × N_k per exponent: N_STO = (2ζ)^(n*+½)/√Γ(2n*+1), N_k = √(2 (2α_k)^p / Γ(p))."""
         p = t.l + 1.5
         if ops is _DOUBLE:
-            return np.exp((x + math.log(2.0)) * (p / 2) + (0.5 * math.log(2.0) - 0.5 * float(gammaln(p)))
-                          + math.log(sto_norm(t.n_eff, t.zeta)))
+            i = self.targets.index(t)
+            return _exp_affine(x, p / 2, self.arrays["pre_hi"][i], self.arrays["pre_lo"][i])
         c, log, lgamma = ops.const, ops.log, ops.lgamma
         n, pa = c(t.n_eff), c(p)
         log_const = ((n + c(1) / 2) * log(2 * c(t.zeta)) - lgamma(2 * n + 1) / 2
@@ -700,8 +696,9 @@ _ARB_LOCK = threading.RLock()
 _BALL_TOL = 2.0 ** -BALL_BITS
 
 
-# Pieces of the tables of I_ν: unit width in ln α, Chebyshev degree (the error is at the
-# rounding level, ~1e-15 relative, from degree 12 on: measured, see the tests), working precision
+# Pieces of the tables of I_ν: unit width in ln α, Chebyshev degree (the error reaches the
+# rounding level, ~1e-15 relative, from degree 12 on: measured; the tests check degree 14),
+# working precision
 TABLE_DEGREE = 14
 TABLE_BITS = 128
 
@@ -724,7 +721,6 @@ class RadialTable:
 
     def __init__(self, n_eff: float, l: int, zeta: float):
         self.n_eff, self.l, self.zeta = n_eff, l, zeta
-        self.integer = float(n_eff).is_integer()
         self.pieces: dict[int, tuple[np.ndarray, np.ndarray]] = {}  # k → (E (2,), coefficients (2, D+1))
         self._stacked = None  # (k_first, E, coefficients) of the pieces k_first … as arrays
 
@@ -751,18 +747,17 @@ class RadialTable:
         k = np.floor(log_alpha).astype(int)
         stacked = self._stacked
         if stacked is None or k.min() < stacked[0] or k.max() >= stacked[0] + len(stacked[1]):
-            for key in range(int(k.min()), int(k.max()) + 1):
-                if key not in self.pieces:
-                    self.pieces.setdefault(key, self._piece(key))
-            # the pieces as arrays indexed by k − k_first (a gap in the keys never occurs: every
-            # piece between the lowest and highest is built)
-            first, last = min(self.pieces), max(self.pieces)
-            for key in range(first, last + 1):
-                if key not in self.pieces:
-                    self.pieces.setdefault(key, self._piece(key))
-            stacked = (first, np.array([self.pieces[key][0] for key in range(first, last + 1)]),
-                       np.array([self.pieces[key][1] for key in range(first, last + 1)]))
-            self._stacked = stacked
+            with _ARB_LOCK:  # (other threads may be adding pieces)
+                # every piece from the lowest to the highest k asked for so far, as arrays
+                # indexed by k − k_first
+                first = int(k.min()) if stacked is None else min(int(k.min()), stacked[0])
+                last = int(k.max()) if stacked is None else max(int(k.max()), stacked[0] + len(stacked[1]) - 1)
+                for key in range(first, last + 1):
+                    if key not in self.pieces:
+                        self.pieces[key] = self._piece(key)
+                stacked = (first, np.array([self.pieces[key][0] for key in range(first, last + 1)]),
+                           np.array([self.pieces[key][1] for key in range(first, last + 1)]))
+                self._stacked = stacked
         where = k - stacked[0]
         big_e = stacked[1][where]  # (M, 2)
         coefs = stacked[2][where]  # (M, 2, D+1)
@@ -860,9 +855,10 @@ def _chebyshev_piece(n_eff: float, l: int, zeta: float, k: int, degree: int, bit
     return out
 
 
-# Pieces of the tables of I_ν used by the ball evaluation for non-integer n*: Chebyshev degree
-# and working precision (the last coefficients are ~1e-37 … 1e-56 of ln I, measured; a piece
-# whose last BALL_TAIL coefficients exceed 2^-BALL_TAIL_BITS falls back to the closed form)
+# Pieces of the tables of I_ν used by the ball evaluation: Chebyshev degree and working
+# precision (the last coefficients of ln I are ~1e-37 … 1e-56, measured; a piece whose last
+# BALL_TAIL coefficients exceed 2^-BALL_TAIL_BITS, an absolute error of ln I and so a relative
+# one of I, falls back to the closed forms)
 BALL_TABLE_DEGREE = 36
 BALL_TABLE_BITS = 192
 BALL_TAIL, BALL_TAIL_BITS = 3, 118
@@ -872,8 +868,8 @@ class _BallTable:
     """I_ν in Arb for ``evaluate_ball``: with m = n* + l + 2 for the highest l of a fit, ln I_(m+4)
     and ln I_(m+5) as polynomials in t = 2(x − k) − 1 on each piece [k, k + 1) of x = ln α (the
     Chebyshev series at BALL_TABLE_BITS, converted to the monomial basis and evaluated at that
-    precision: the conversion's coefficients grow to ~2^BALL_TABLE_DEGREE, far below the 79
-    spare bits), every lower ν by the downward recurrence. Against the closed forms at 320 bits
+    precision: the conversion's coefficients grow to ~2^43 at degree 36, below the 79 spare
+    bits), every lower ν by the downward recurrence. Against the closed forms at 320 bits
     within ~3e-37 (tests); an exponent costs ~3 µs instead of ~90 µs for two hypgeom_u
     (non-integer n*) or ~13 µs for erfc and the recurrence at a raised precision (integer n*).
     Pieces whose series does not converge to 2^-BALL_TAIL_BITS use those closed forms."""
@@ -887,7 +883,7 @@ class _BallTable:
 
         coefs = _chebyshev_piece(self.n_eff, self.l, self.zeta, k, BALL_TABLE_DEGREE, BALL_TABLE_BITS)
         tol = arb(2) ** (-BALL_TAIL_BITS)
-        if any(abs(v) > tol * max(abs(c[0]), arb(1)) for c in coefs for v in c[-BALL_TAIL:]):
+        if any(abs(v) > tol for c in coefs for v in c[-BALL_TAIL:]):
             return None
         t = arb_poly([0, 1])
         polys = []
@@ -932,8 +928,8 @@ class _BallTable:
 _BALL_TABLES: dict[tuple[float, int, float], _BallTable] = {}
 
 
-def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int, log: bool = True):
-    """I_m … I_(m+5) for m = n* + l + 2 (n* not an integer) as arb, at α = e^a (``log``) or α = a:
+def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int):
+    """I_m … I_(m+5) for m = n* + l + 2 (n* not an integer) as arb, at α = e^a:
     the two highest from the closed form Γ(ν)(4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)) (Gradshteyn & Ryzhik
     3.462.1; Arb's hypgeom_u), the others by the recurrence downwards,
     I_ν = (2α I_(ν+2) + ζ I_(ν+1))/ν, whose terms are all positive; ν is formed in ball
@@ -946,7 +942,7 @@ def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int, log: boo
     try:
         while True:
             ctx.prec = prec
-            ab = arb(a).exp() if log else arb(a)
+            ab = arb(a).exp()
             zb, m = arb(zeta), arb(n_eff) + (l + 2)
             four_a = 4 * ab
             w = zb * zb / four_a

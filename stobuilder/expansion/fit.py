@@ -266,10 +266,6 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         # the exact difference (ball arithmetic): a converging step may lower ε by less than an ulp
         actual = np.where(np.isfinite(ft), actual + (low[idx] - low_t), actual)
         better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
-        if floor is not None:
-            crossing = better & (np.min(np.abs(np.diff(-np.sort(-(z[idx] + step), axis=1), axis=1)), axis=1) < floor)
-            better &= ~crossing
-            active[idx[crossing]] = False
         rho = np.where(pred > 0, actual / np.where(pred > 0, pred, 1.0), 0.0)
         fix = np.flatnonzero(np.isfinite(ft) & ~tiny & (rho < 0.25) & ~bad_step)
         if fix.size:
@@ -300,6 +296,10 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
                 actual[k] = act_c[ok]
                 better[k] = True
                 rho[k] = act_c[ok] / pred[k]
+        if floor is not None:  # on the step as taken, corrected or not
+            crossing = better & (np.min(np.abs(np.diff(-np.sort(-(z[idx] + step), axis=1), axis=1)), axis=1) < floor)
+            better &= ~crossing
+            active[idx[crossing]] = False
         length = np.linalg.norm(step_t, axis=1)
         shrink = ~better | (rho < 0.25)
         grow = better & (rho > 0.75) & (length > 0.8 * radius[idx])
@@ -437,8 +437,8 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
     problem = _problem(targets, norm)
     previous = None
     if n_gauss > 1:
-        # continuation from the N − 1 search; where its ε is below EXT_ALL_BELOW (double
-        # precision cannot place it), from the N − 1 fit finished in ball arithmetic
+        # continuation from the N − 1 search; where its ε is below PREVIOUS_FINISHED_BELOW
+        # (double precision places it poorly), from the N − 1 fit finished in ball arithmetic
         prev_x, _, prev_f = _search(targets, norm, n_gauss - 1)[:3]
         tiny = prev_f < PREVIOUS_FINISHED_BELOW * math.fsum(problem.norm2)
         previous = np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0] if tiny else prev_x)
@@ -477,8 +477,8 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     problem = _problem(targets, norm)
     x, constrained, search_f, candidates = _search(targets, norm, n_gauss)
     x = np.array(x)
-    # double precision places the optimum only to its rounding level (ε ± ~1e-14): every fit
-    # is finished with every evaluation in ball arithmetic, from the best run, or (ε <
+    # double precision places the optimum only to its rounding level (ε ± ~5e-16): every fit
+    # is finished with ε and its gradient in ball arithmetic, from the best run, or (ε <
     # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
     # from the starts of the finished N − 1 fit
     rows = [tuple(x)]
@@ -513,7 +513,9 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
 
 
 def clear_caches() -> None:
-    """Forget every fit computed in this process (benchmarks and reproducibility tests)."""
+    """Forget every fit computed in this process (benchmarks and reproducibility tests). The
+    tables of I_ν (analytic.radial_table, analytic._BALL_TABLES) stay: they are exact functions
+    of (n*, l, ζ) shared by every fit, and no fit depends on which pieces were built before."""
     _fit_log_alpha.cache_clear()
     _search.cache_clear()
     _problem.cache_clear()
