@@ -768,12 +768,16 @@ class RadialTable:
             b1, b2 = 2.0 * t * b1 - b2 + coefs[:, :, n], b1
         values = big_e * np.exp(t * b1 - b2 + coefs[:, :, 0])
         low = self.l if l_min is None else l_min
-        m = self.n_eff + low + 2
-        count = self.l - low + 6
-        rows = [None] * (count - 2) + [values[:, 0], values[:, 1]]
-        for j in range(count - 3, -1, -1):
-            rows[j] = (2.0 * alpha * rows[j + 2] + self.zeta * rows[j + 1]) / (m + j)
-        return np.array(rows)
+        return np.array(_downward(values[:, 0], values[:, 1], alpha, self.zeta, self.n_eff + low + 2, self.l - low + 6))
+
+
+def _downward(second, top, alpha, zeta, m, count: int) -> list:
+    """I_m … I_(m+count−1) from the two highest, I_(m+count−2) = ``second`` and I_(m+count−1) =
+    ``top``, by I_ν = (2α I_(ν+2) + ζ I_(ν+1))/ν (all terms positive); numpy arrays or arb."""
+    rows = [None] * (count - 2) + [second, top]
+    for j in range(count - 3, -1, -1):
+        rows[j] = (2 * alpha * rows[j + 2] + zeta * rows[j + 1]) / (m + j)
+    return rows
 
 
 _TABLES: dict[tuple[float, int, float], RadialTable] = {}
@@ -917,12 +921,8 @@ class _BallTable:
         ctx.prec = BALL_TABLE_BITS
         xb = arb(log_a)
         t = 2 * (xb - k) - 1
-        a, zb, m = xb.exp(), arb(self.zeta), arb(self.n_eff) + (low + 2)
-        count = self.l - low + 6
-        rows = [None] * (count - 2) + [piece[0](t).exp(), piece[1](t).exp()]
-        for j in range(count - 3, -1, -1):
-            rows[j] = (2 * a * rows[j + 2] + zb * rows[j + 1]) / (m + j)
-        return rows
+        return _downward(piece[0](t).exp(), piece[1](t).exp(), xb.exp(), arb(self.zeta),
+                         arb(self.n_eff) + (low + 2), self.l - low + 6)
 
 
 _BALL_TABLES: dict[tuple[float, int, float], _BallTable] = {}
@@ -950,10 +950,7 @@ def _nonint_arb(n_eff: float, l: int, a: float, zeta: float, bits: int):
             def closed(nu):
                 return nu.gamma() * four_a ** (-nu / 2) * _u_half(nu / 2, w)
 
-            rows = [None] * 6
-            rows[5], rows[4] = closed(m + 5), closed(m + 4)
-            for j in range(3, -1, -1):
-                rows[j] = (2 * ab * rows[j + 2] + zb * rows[j + 1]) / (m + j)
+            rows = _downward(closed(m + 4), closed(m + 5), ab, zb, m, 6)
             tol = arb(2) ** (-bits)
             if all(v.rad() < abs(v.mid()) * tol for v in rows) or prec > 4000:
                 return rows

@@ -178,12 +178,13 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
     """
     rtol = RTOL if rtol is None else rtol
 
-    def in_z(z, x_parts, with_hessian):
-        """ε, gradient and (if asked) Hessian with respect to z from those with respect to x."""
+    def in_z(z, mapped, x_parts, with_hessian):
+        """ε, gradient and (if asked) Hessian with respect to z from those with respect to x
+        (``mapped``: transform(z), or None without a transform)."""
         f, g, h, lo = x_parts
-        if transform is None:
+        if mapped is None:
             return f, g, h, lo
-        x, jac, second = transform(z)
+        _, jac, second = mapped
         gz = np.einsum("sij,si->sj", jac, g)
         hz = None
         if with_hessian:
@@ -195,9 +196,10 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
         """(ε, gradient, Hessian or None, the part of ε below its double: zero in double
         precision) at the rows of z. ``extended``: ε and gradient in ball arithmetic; the Hessian
         (the model only) is ``model_hessian``'s, asked for where a step was taken."""
-        x = z if transform is None else transform(z)[0]
+        mapped = None if transform is None else transform(z)
+        x = z if mapped is None else mapped[0]
         if not extended:
-            return in_z(z, (*problem.evaluate_batch(x, 2)[1:4], np.zeros(len(x))), True)
+            return in_z(z, mapped, (*problem.evaluate_batch(x, 2)[1:4], np.zeros(len(x))), True)
         fs, gs, lows = [], [], []
         for row in x:
             out = problem.evaluate_ball(row, order=1, with_total=True)
@@ -205,15 +207,16 @@ def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80
                 fs.append(math.inf), gs.append(np.zeros(row.size)), lows.append(0.0)
             else:
                 fs.append(out[4][0]), gs.append(out[1]), lows.append(out[4][1])
-        f, g, _, lo = in_z(z, (np.array(fs), np.array(gs), None, np.array(lows)), False)
-        return f, g, model_hessian(z) if with_hessian else None, lo
+        f, g, _, lo = in_z(z, mapped, (np.array(fs), np.array(gs), None, np.array(lows)), False)
+        return f, g, model_hessian(z, mapped) if with_hessian else None, lo
 
-    def model_hessian(z):
+    def model_hessian(z, mapped=None):
         """The Hessian in double precision for all rows at once (~1e-14 absolute: the steps
         barely change, and a ball evaluation costs half as much without it)."""
-        x = z if transform is None else transform(z)[0]
-        _, _, gd, hd, _ = problem.evaluate_batch(x, 2)
-        return in_z(z, (None, gd, hd, None), True)[2]
+        if mapped is None and transform is not None:
+            mapped = transform(z)
+        _, _, gd, hd, _ = problem.evaluate_batch(z if mapped is None else mapped[0], 2)
+        return in_z(z, mapped, (None, gd, hd, None), True)[2]
 
     # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in ball arithmetic)
     noise = 0.0 if extended else NOISE * math.fsum(problem.norm2)
