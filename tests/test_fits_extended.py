@@ -241,13 +241,35 @@ def test_h1_error_against_pyscf_kinetic_integrals():
         assert 2.0 - h @ np.linalg.solve(g, h) == pytest.approx(fit.error["1s"], rel=1e-6)
 
 
-def test_fits_reproducible_bit_for_bit_and_library_entries_regenerate():
-    F.clear_caches()
-    for fam, n, norm in ((["1s"], 12, "l2"), (["2s", "2p"], 7, "h1"), (["4f"], 9, "l2"), (["6s"], 12, "l2")):
+REGENERATED = ((["1s"], 12, "l2"), (["2s", "2p"], 7, "h1"), (["4f"], 9, "l2"), (["6s"], 12, "l2"))
+
+
+def test_fits_bit_for_bit_on_one_machine():
+    """Determinism of one run: the same fit computed twice in this process, caches cleared between,
+    is equal bit for bit (both sides on the same machine; common practice, no source)."""
+    for fam, n, norm in REGENERATED:
+        F.clear_caches()
         a = fit_sto(fam, n, norm)
         F.clear_caches()
         assert fit_sto(fam, n, norm) == a
-        assert lookup(fam, n, norm) == a  # the shipped entry is this very fit
+
+
+def test_library_entries_regenerate_within_tolerance():
+    """The shipped entries were made on another machine: a fit recomputed here equals its entry
+    within the library's tolerances (stobuilder.expansion.regenerate.compare_library: contractions
+    within 1e-12 in L2, ε accordingly), not bit for bit, since the last bits of double-precision
+    results differ between CPUs and numpy builds."""
+    from stobuilder.expansion.library import fit_to_entry
+    from stobuilder.expansion.regenerate import compare_library
+
+    for fam, n, norm in REGENERATED:
+        F.clear_caches()
+        fresh = fit_sto(fam, n, norm)
+        key = ",".join(fam)
+        shipped = {"fits": {key: {str(n): fit_to_entry(lookup(fam, n, norm))}}}
+        regenerated = {"fits": {key: {str(n): fit_to_entry(fresh)}}}
+        result = compare_library(shipped, regenerated)
+        assert result.equal, result.summary("the library tolerances")
 
 
 # ---------------------------------------------------------------------------- unequal ζ, n*

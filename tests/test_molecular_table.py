@@ -44,10 +44,19 @@ def test_first_and_second_row(symbol, derived):
 
 
 def test_shipped_file_is_the_derivation(derived):
-    """The committed JSON equals a fresh derivation (the regeneration command is byte-stable)."""
-    assert table()["elements"] == derived
-    text = regenerate_molecular.render(derived)
-    assert regenerate_molecular.OUTPUT.read_text() == text
+    """The committed JSON equals a fresh derivation on this machine within the table's tolerance
+    (regenerate_molecular.compare_table: ζ to 1e-12 relative, texts exactly); the shipped file was
+    made on another machine, so this is no bit-for-bit comparison."""
+    import json
+
+    fresh = json.loads(regenerate_molecular.render(derived))
+    result = regenerate_molecular.compare_table(table(), fresh)
+    assert result.equal, result.summary(str(regenerate_molecular.TOLERANCE))
+
+
+def test_rendering_is_byte_identical_on_one_machine(derived):
+    """Determinism of one run: rendering the same derivation twice in this process gives the same bytes."""
+    assert regenerate_molecular.render(derived) == regenerate_molecular.render(regenerate_molecular.derive())
 
 
 def test_covers_h_to_i_in_order_of_z_but_y(derived):

@@ -9,6 +9,9 @@ exponents cannot be met: the published fits of Hehre, Stewart & Pople 1969 and P
 differ from the exact least-squares optimum by up to 1.3e-5 in single exponents, so ζ estimated
 from our exact fits is biased by up to ~3e-6; see tests/test_expansion.py.)
 
+``--check`` writes nothing and compares the derivation with the shipped file (stobuilder.tablecheck;
+exit 1 when they differ).
+
 Known transcription defects of the file are handled explicitly (see KNOWN_DEFECTS and
 tests/test_expansion.py for the evidence); the written table says what was done.
 """
@@ -28,6 +31,7 @@ from ..elements import atomic_number
 from ..expansion import lookup
 from ..expansion.library import library_families
 from ..expansion.regenerate import write_atomic
+from ..tablecheck import Comparison, Tolerance, compare, report
 
 COMMAND = "python -m stobuilder.screening.regenerate_molecular"
 OUTPUT = Path(__file__).parent / "data" / "molecular_sto3g.json"
@@ -161,10 +165,27 @@ def render(table: dict) -> str:
     return json.dumps(doc, indent=1, ensure_ascii=True) + "\n"
 
 
+# ζ are rounded to at most six decimals, so a regeneration anywhere gives the same decimals; the
+# comparison still goes through tablecheck (1e-12 relative) like every shipped table's --check.
+TOLERANCE = Tolerance(1e-12)
+
+
+def compare_table(shipped: dict, fresh: dict) -> Comparison:
+    """Compare two parsed tables (``render``'s layout): every ζ to TOLERANCE, every text exactly."""
+    return compare(shipped, fresh, lambda path: TOLERANCE)
+
+
 def main(argv: list[str] | None = None) -> int:
     text = render(derive())
     if argv and "--check" in argv:
-        return 0 if OUTPUT.read_text() == text else 1
+        try:
+            shipped = json.loads(OUTPUT.read_text(encoding="ascii"))
+        except (OSError, ValueError) as exc:
+            print(f"{OUTPUT}: differs: cannot read the shipped file ({exc})")
+            return 1
+        line, status = report(str(OUTPUT), compare_table(shipped, json.loads(text)), f"ζ {TOLERANCE}")
+        print(line)
+        return status
     write_atomic(OUTPUT, text)
     print(f"wrote {OUTPUT}")
     return 0
