@@ -31,8 +31,7 @@ import numpy as np
 
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
-from .analytic import Problem, Target
-from .integrals import gaussian_overlap
+from .analytic import Problem, Target, gaussian_overlap
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2", "h1")
@@ -146,15 +145,6 @@ def targets_for(labels: tuple[str, ...], n_eff: Mapping[str, float], zeta_ratio:
 @lru_cache(maxsize=64)
 def _problem(targets: tuple[Target, ...], norm: str) -> Problem:
     return Problem(targets, norm)
-
-
-def objective(log_alpha: np.ndarray, nls, norm: str = "l2") -> tuple[float, np.ndarray]:
-    """Σ ε over the subshells (n, l) at ζ = 1 and its gradient with respect to ln α_k."""
-    targets = tuple(Target(float(n), l, 1.0) for n, l in nls)
-    out = _problem(targets, norm).evaluate(np.asarray(log_alpha, dtype=float), order=1)
-    if out is None:
-        return 1e3, np.zeros_like(log_alpha)
-    return math.fsum(out[0]), out[1]
 
 
 def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80, extended: bool = False,
@@ -517,8 +507,9 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
 
 def clear_caches() -> None:
     """Forget every fit computed in this process (benchmarks and reproducibility tests). The
-    tables of I_ν (analytic.radial_table, analytic._BALL_TABLES) stay: they are exact functions
-    of (n*, l, ζ) shared by every fit, and no fit depends on which pieces were built before."""
+    tables of I_ν (radial_tables.radial_table, radial_tables.ball_table) stay: they are exact
+    functions of (n*, l, ζ) shared by every fit, and no fit depends on which pieces were built
+    before."""
     _fit_log_alpha.cache_clear()
     _search.cache_clear()
     _problem.cache_clear()
