@@ -355,11 +355,11 @@ def test_finish_stops_at_the_min_ratio_bound():
     steps that did: h1 6p N = 10 crossed ln 1.1 three times). From the h1 6p N = 10 search,
     whose finished fit lies on the MIN_RATIO bound (fits_h1.json, flagged there)."""
     from stobuilder.expansion import fit as F
+    from stobuilder.expansion import newton as NW
 
     targets = (A.Target(6.0, 1, 1.0),)
     x = np.array(F._search(targets, "h1", 10)[0])
     floor = math.log(F.MIN_RATIO)
-    _, z = F._newton(F._problem(targets, "h1"), x[None, :], max_iter=F.EXT_ITER, extended=True,
-                     rtol=F.EXT_RTOL, floor=floor)
+    _, z = NW.newton(F._problem(targets, "h1"), x[None, :], NW.FINISH, extended=True, floor=floor)
     assert np.min(-np.diff(-np.sort(-z[0]))) >= floor
     assert F.fit_sto("6p", 10, "h1").constrained

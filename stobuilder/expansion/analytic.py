@@ -214,7 +214,6 @@ class Problem:
             ctx.prec = BALL_BITS
             ops = BallArithmetic()
             xb = np.array([[arb(float(v)) for v in x]], dtype=object)
-            alpha = ops.exp(xb)[0]
             by_key: dict[tuple[float, float], list] = {}
             ints = []
             for t in self.targets:
