@@ -18,7 +18,7 @@ J. A. C. Weideman, SIAM Review 56, 385, 2014): for e^(−α e^(2t)) the strip is
 the error bound ~ exp(−π²/(2h)) times the size of the integrand on the strip edge. Measured: at
 h = 0.1 the ε of the whole library move by up to 1e-19 absolute (1e-4 relative for ε ~ 1e-15);
 at h = 0.08 by < 1e-23 against h = 0.06; the overlaps agree with the analytic ones of
-stobuilder.expansion.integrals to ~2e-14 relative (the limit set by R_MIN for α ~ 1e6); the
+tests/scalar_integrals.py to ~2e-14 relative (the limit set by R_MIN for α ~ 1e6); the
 extended-precision gradient at the fitted STO-6G 3s3p3d exponents is ~1e-17 (tests).
 
 Norms. "l2": ∫ |φ − χ|² dτ (Hehre, Stewart & Pople 1969). "h1": the Sobolev norm

@@ -7,9 +7,13 @@ import math
 import numpy as np
 import pytest
 
-from stobuilder.expansion import analytic as A
+import mp_objective as M
 import sampled_residual as R
-from stobuilder.expansion.integrals import radial_integrals
+from scalar_integrals import radial_integrals
+from stobuilder.expansion import analytic as A
+from stobuilder.expansion import arithmetic as AR
+from stobuilder.expansion import assembly as AS
+from stobuilder.expansion import radial_tables as T
 
 CASES = [
     ((3.0, 0, 1.0), (3.0, 1, 1.0), (3.0, 2, 1.0)),
@@ -20,7 +24,7 @@ CASES = [
 
 @pytest.mark.parametrize("zeta", [1.0, 0.4, 2.5])
 def test_scalar_recurrences_match_ball_arithmetic(zeta):
-    """stobuilder.expansion.integrals.radial_integrals (double precision, one α at a time) against
+    """tests/scalar_integrals.radial_integrals (double precision, one α at a time) against
     Arb at 113 bits (I_1 from erfc, upward recurrence at a working precision raised until the
     error bound is below 2^-113): within 5e-15 relative for ν ≤ 17 over the whole exponent range
     (measured 4.1e-15, at large α where the upward recurrence costs ~ν ulp and the rounding of
@@ -29,19 +33,19 @@ def test_scalar_recurrences_match_ball_arithmetic(zeta):
     UP_SWITCH (with 250, 2e-14 near α = 3 ζ²)."""
     x = np.linspace(np.log(1e-3 * zeta * zeta), np.log(1e6 * zeta * zeta), 200)
     values = radial_integrals(17, np.exp(x), zeta)
-    with A._ARB_LOCK:
-        ref = np.array([[float(v.mid()) for v in A._integrals_ball(17, float(v), zeta)] for v in x]).T
+    with AR.ARB_LOCK:
+        ref = np.array([[float(v.mid()) for v in T._integrals_ball(17, float(v), zeta)] for v in x]).T
     assert np.max(np.abs(values / ref - 1)) < 5e-15
 
 
 def _arb_columns(n_eff, l, x, zeta):
     """I_m … I_(m+5), m = n* + l + 2, in Arb at e^x: erfc and recurrences (integer n*) or the
     closed form with hypgeom_u (Gradshteyn & Ryzhik 3.462.1)."""
-    with A._ARB_LOCK:
+    with AR.ARB_LOCK:
         if float(n_eff).is_integer():
             m = int(n_eff) + l + 2
-            return np.array([[float(v.mid()) for v in A._integrals_ball(m + 5, float(v), zeta)[m - 1:]] for v in x]).T
-        return np.array([[float(v.mid()) for v in A._nonint_arb(n_eff, l, float(v), zeta, 64)] for v in x]).T
+            return np.array([[float(v.mid()) for v in T._integrals_ball(m + 5, float(v), zeta)[m - 1:]] for v in x]).T
+        return np.array([[float(v.mid()) for v in T._nonint_arb(n_eff, l, float(v), zeta, 64)] for v in x]).T
 
 
 @pytest.mark.parametrize("n_eff,l,zeta", [(3.7, 0, 1.0), (4.2, 3, 1.0), (7.5, 3, 0.3), (1.5, 0, 4.0), (4.2, 1, 1.7),
@@ -53,7 +57,7 @@ def test_radial_tables_match_ball_arithmetic(n_eff, l, zeta):
     of the downward recurrence)."""
     lo, hi = math.log(A.ALPHA_MIN * zeta * zeta), math.log(A.ALPHA_MAX * zeta * zeta)
     x = np.linspace(lo, hi, 97)
-    table = A.RadialTable(n_eff, l, zeta)
+    table = T.RadialTable(n_eff, l, zeta)
     cols = table.columns(x, np.exp(x))
     assert np.max(np.abs(cols / _arb_columns(n_eff, l, x, zeta) - 1)) < 3e-15
     assert np.array_equal(table.columns(x, np.exp(x)), cols)  # the pieces, once built, are reused as they are
@@ -67,9 +71,9 @@ def _closed_ball(n_eff, l, x, zeta, bits, l_min):
     integer n*, hypgeom_u otherwise; Gradshteyn & Ryzhik 3.462.1) at ``bits``."""
     if float(n_eff).is_integer():
         m = int(n_eff) + l_min + 2
-        return A._integrals_ball(int(n_eff) + l + 7, x, zeta)[m - 1:] if bits == A.BALL_BITS else None
-    low = A._nonint_arb(n_eff, l_min, x, zeta, bits)
-    return low[: l - l_min] + A._nonint_arb(n_eff, l, x, zeta, bits)
+        return T._integrals_ball(int(n_eff) + l + 7, x, zeta)[m - 1:] if bits == AR.BALL_BITS else None
+    low = T._nonint_arb(n_eff, l_min, x, zeta, bits)
+    return low[: l - l_min] + T._nonint_arb(n_eff, l, x, zeta, bits)
 
 
 @pytest.mark.parametrize("n_eff,l,zeta,l_min", [(4.2, 1, 1.0, 1), (3.7, 3, 1.0, 0), (4.2, 0, 0.6, 0), (6.0, 1, 1.0, 0),
@@ -85,22 +89,22 @@ def test_ball_tables_match_the_closed_forms(n_eff, l, zeta, l_min, monkeypatch):
 
     xs = [-7.3, -5.5, -2.01, -0.5, 0.0, 1.7, 4.4, 9.9, 13.8]
     integer = float(n_eff).is_integer()
-    with A._ARB_LOCK:
+    with AR.ARB_LOCK:
         saved = ctx.prec
         try:
-            table = A._BallTable(n_eff, l, zeta)
+            table = T.BallTable(n_eff, l, zeta)
             for x in xs:
                 cols = table.columns(x, l_min)
-                ref = _closed_ball(n_eff, l, x, zeta, A.BALL_BITS if integer else 320, l_min)
+                ref = _closed_ball(n_eff, l, x, zeta, AR.BALL_BITS if integer else 320, l_min)
                 ctx.prec = 320
                 assert len(cols) == len(ref) == l - l_min + 6
                 assert all(abs(float(((c - r) / r).mid())) < (1e-33 if integer else 1e-35) for c, r in zip(cols, ref))
-            monkeypatch.setattr(A, "BALL_TABLE_DEGREE", 8)
-            coarse = A._BallTable(n_eff, l, zeta)
+            monkeypatch.setattr(T, "BALL_TABLE_DEGREE", 8)
+            coarse = T.BallTable(n_eff, l, zeta)
             for x in xs[:3]:
                 values = coarse.columns(x, l_min)
                 assert coarse.pieces[math.floor(x)] is None
-                direct = _closed_ball(n_eff, l, x, zeta, A.BALL_BITS, l_min)
+                direct = _closed_ball(n_eff, l, x, zeta, AR.BALL_BITS, l_min)
                 assert all(c.mid() == d.mid() for c, d in zip(values, direct))
         finally:
             ctx.prec = saved
@@ -112,14 +116,14 @@ def test_hypergeometric_u_at_the_midpoint_encloses_the_interval_value():
     widening is an upper bound; both carry Arb's own loss at w ~ 100, ~40 bits at 128)."""
     from flint import arb, ctx
 
-    with A._ARB_LOCK:
+    with AR.ARB_LOCK:
         saved = ctx.prec
         try:
             ctx.prec = 128
             for x in (-6.0, -2.5, 0.3, 5.0):
                 w = 1 / (4 * arb(x).exp())
                 for a in (arb(5.6), arb(3.35) + 2):
-                    fast, slow = A._u_half(a, w), w.hypgeom_u(a, arb(0.5))
+                    fast, slow = T._u_half(a, w), w.hypgeom_u(a, arb(0.5))
                     assert fast.overlaps(slow)
                     assert fast.rad() <= 2 * slow.rad() + abs(fast.mid()) * 2.0 ** -120  # not wider either
         finally:
@@ -133,7 +137,7 @@ def test_closed_form_error_and_gradient_match_the_sampled_residual(targets, norm
     analytic = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     sampled = R.Problem(tuple(R.Target(*t) for t in targets), norm)
     eps, grad, _, coefs = analytic.evaluate(x)
-    eps_mp, grad_mp, _, coefs_mp = analytic.evaluate_mp(x)
+    eps_mp, grad_mp, _, coefs_mp = M.evaluate_mp(analytic, x)
     res, jac, c_ref, eps_ref = sampled.solve(x)
     grad_ref = 2.0 * jac.T @ res
     # double precision: absolute floor ~1e-16 × the size of the terms (module docstring)
@@ -158,7 +162,7 @@ def test_exact_hessian_matches_finite_differences_of_the_gradient(targets, norm)
     x = np.log(np.array([10.0, 2.0, 0.6, 0.24, 0.1, 0.05]))
     problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     _, _, hess, _ = problem.evaluate(x, order=2)
-    _, _, hess_mp, _ = problem.evaluate_mp(x, order=2)
+    _, _, hess_mp, _ = M.evaluate_mp(problem, x, order=2)
     h = 1e-5
     fd = np.array([(problem.evaluate(x + h * e, 1)[1] - problem.evaluate(x - h * e, 1)[1]) / (2 * h) for e in np.eye(x.size)])
     scale = np.abs(hess).max()
@@ -189,8 +193,8 @@ def test_vectorised_double_assembly_equals_the_generic_one(targets, norm):
     problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     x = np.log(np.array([[10.0, 2.0, 0.6, 0.24, 0.1, 0.05], [7.0, 1.5, 0.5, 0.2, 0.09, 0.03]]))
     ints = np.array([i.reshape(6, *x.shape) for i in problem._integrals(np.exp(x).ravel(), x.ravel())])
-    fast = A._assemble_double(problem, x, ints, 2)
-    slow = A._assemble(A._DOUBLE, problem, x, list(ints), 2)
+    fast = AS.assemble_double(problem, x, ints, 2)
+    slow = AS.assemble(AR.DOUBLE, problem, x, list(ints), 2)
     assert np.allclose(fast[1], slow[1], rtol=0, atol=2e-14)
     assert np.allclose(fast[2], slow[2], rtol=0, atol=2e-14)
     assert np.allclose(fast[3], slow[3], rtol=0, atol=2e-14)
@@ -245,7 +249,7 @@ def test_ball_equals_mpmath_for_non_integer_n(targets, norm):
     the 6d ε of a [6s,6p,6d] n* = 4.2 fit was off by 9e-4 relative here."""
     problem = A.Problem(tuple(A.Target(*t) for t in targets), norm)
     x = np.log(np.geomspace(30.0, 0.01, 8))
-    eps_mp, grad_mp, _, _ = problem.evaluate_mp(x, order=1)
+    eps_mp, grad_mp, _, _ = M.evaluate_mp(problem, x, order=1)
     eps_ball, grad_ball, _, _ = problem.evaluate_ball(x, order=1)
     for e_mp, e_ball in zip(eps_mp, eps_ball):
         assert abs(float(e_mp) - e_ball) <= 4.5e-16 * abs(float(e_mp))
@@ -319,8 +323,8 @@ def test_tables_built_from_several_threads_equal_the_serial_ones():
             threaded = list(pool.map(lambda x: both(problem, x), xs))
     finally:
         sys.setswitchinterval(old)
-    for key in [k for k in A._TABLES if k[0] == 4.35] + [k for k in A._BALL_TABLES if k[0] == 4.35]:
-        (A._TABLES if key in A._TABLES else A._BALL_TABLES).pop(key)
+    for key in [k for k in T._TABLES if k[0] == 4.35] + [k for k in T._BALL_TABLES if k[0] == 4.35]:
+        (T._TABLES if key in T._TABLES else T._BALL_TABLES).pop(key)
     fresh = A.Problem(targets, "l2")
     serial = [both(fresh, x) for x in xs]
     assert all(np.array_equal(a[0], b[0]) and np.array_equal(a[1], b[1]) for a, b in zip(threaded, serial))
@@ -340,7 +344,7 @@ def test_exact_argument_exponential_matches_mpmath():
             c = mp.mpf(-3) + mp.log(7) / 3
             c_hi = float(c)
             c_lo = float(c - c_hi)
-            got = A._exp_affine(x, h, c_hi, c_lo)
+            got = AR.exp_affine(x, h, c_hi, c_lo)
             ref = np.array([float(mp.exp(mp.mpf(v) * h + c)) for v in x])
             assert np.max(np.abs(got / ref - 1)) < 4 * 2.0 ** -52
 
@@ -351,11 +355,11 @@ def test_finish_stops_at_the_min_ratio_bound():
     steps that did: h1 6p N = 10 crossed ln 1.1 three times). From the h1 6p N = 10 search,
     whose finished fit lies on the MIN_RATIO bound (fits_h1.json, flagged there)."""
     from stobuilder.expansion import fit as F
+    from stobuilder.expansion import newton as NW
 
     targets = (A.Target(6.0, 1, 1.0),)
     x = np.array(F._search(targets, "h1", 10)[0])
     floor = math.log(F.MIN_RATIO)
-    _, z = F._newton(F._problem(targets, "h1"), x[None, :], max_iter=F.EXT_ITER, extended=True,
-                     rtol=F.EXT_RTOL, floor=floor)
+    _, z = NW.newton(F._problem(targets, "h1"), x[None, :], NW.FINISH, extended=True, floor=floor)
     assert np.min(-np.diff(-np.sort(-z[0]))) >= floor
     assert F.fit_sto("6p", 10, "h1").constrained

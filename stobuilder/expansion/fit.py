@@ -8,8 +8,8 @@ the objective is Σ ε. For fixed α the optimal c solve a linear problem, so on
 optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413, 1973).
 Everything is in closed form (stobuilder.expansion.analytic: ε, its gradient and its exact
 Hessian from analytic STO–Gaussian integrals; no quadrature grid). The search is a trust-region
-Newton method on the absolute-value Hessian (``_newton``), run in double precision for all
-deterministic starts at once (one batched evaluation per iteration). Starts: continuation from
+Newton method on the absolute-value Hessian (stobuilder.expansion.newton), run in double
+precision for all deterministic starts at once (one batched evaluation per iteration). Starts: continuation from
 the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
 (K. Ruedenberg, R. C. Raffenetti, R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973:
 α_k = α₀ β^k). Double precision places an optimum only to the rounding level of the Gram form
@@ -31,8 +31,8 @@ import numpy as np
 
 from ..elements import parse_subshell_label, subshell_label
 from ..errors import InputError
-from .analytic import Problem, Target
-from .integrals import gaussian_overlap
+from .analytic import Problem, Target, gaussian_overlap
+from .newton import CONSTRAINED_SEARCH, FINISH, SEARCH, newton
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2", "h1")
@@ -40,6 +40,29 @@ MAX_N = 6
 MAX_L = 3
 # Version of the fitting algorithm: part of every cache key (a change invalidates cached fits).
 ALGORITHM = "vp-closed-form-newton-3"
+
+# The settings of the search around the Newton runs (the thresholds of the runs themselves are
+# newton.SearchSettings); tuned on the whole library, which they leave unchanged.
+# Smallest ratio of neighbouring exponents accepted (common practice, no source): closer
+# exponents make G nearly singular and describe no more than one r^(l+2) Gaussian.
+MIN_RATIO = 1.1
+# (ln of the exponent ratio, shift of the centre in ln α) of the even-tempered starts: a spread
+# of ratios around the STO's extent; N = 1: all, N = 2: the first 3, beyond: the first
+ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))
+NEW_END = 1.5  # ln α of a continuation's new tight (diffuse) exponent beyond the N − 1 fit's end
+GAPS = 3  # gap insertions tried beyond N = 6: the widest gaps (one start per gap costs N − 1 runs)
+CONSTRAINED_STARTS = 3  # the best runs with merging exponents that start the bounded fit
+# below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ 100 × the
+# rounding level SearchSettings.noise): every distinct run is finished in ball arithmetic
+EXT_ALL_BELOW = 1e-13
+# below this × Σ‖φ‖² the continuation starts from the finished N − 1 fit (double precision
+# places that one poorly)
+PREVIOUS_FINISHED_BELOW = 1e-10
+NEAR_BOUND = 0.5  # ln of the ratio above MIN_RATIO below which the bounded finish is tried too
+TIE = 1e-12  # a later run replaces the best only when lower by this, relative (the start order breaks ties)
+DISTINCT = 1e-2  # runs within this in every ln α are one candidate for the finish
+GAP_START = 1e-4  # smallest u² of a bounded start: gaps ln MIN_RATIO + u² are stationary in u at u = 0
+ON_BOUND = 1e-8  # a finished fit with a gap within this of ln MIN_RATIO is flagged constrained
 
 
 @dataclass(frozen=True)
@@ -148,223 +171,6 @@ def _problem(targets: tuple[Target, ...], norm: str) -> Problem:
     return Problem(targets, norm)
 
 
-def objective(log_alpha: np.ndarray, nls, norm: str = "l2") -> tuple[float, np.ndarray]:
-    """Σ ε over the subshells (n, l) at ζ = 1 and its gradient with respect to ln α_k."""
-    targets = tuple(Target(float(n), l, 1.0) for n, l in nls)
-    out = _problem(targets, norm).evaluate(np.asarray(log_alpha, dtype=float), order=1)
-    if out is None:
-        return 1e3, np.zeros_like(log_alpha)
-    return math.fsum(out[0]), out[1]
-
-
-def _newton(problem: Problem, z0: np.ndarray, transform=None, max_iter: int = 80, extended: bool = False,
-            rtol: float | None = None, floor: float | None = None) -> tuple[np.ndarray, np.ndarray]:
-    """Trust-region Newton minimisation of Σε from every row of z0 (S, N) at once; (ε (S,), z).
-
-    The model is gᵀs + ½ sᵀ|H|s with |H| = V|Λ|Vᵀ (the absolute eigenvalues of the exact
-    Hessian, so that saddle points repel), minimised within the trust radius (``_trust_step``);
-    the radius shrinks when ε rose or fell by less than a quarter of the predicted decrease and
-    grows when it fell as predicted (J. Nocedal, S. J. Wright, Numerical Optimization, 2nd ed.,
-    Springer 2006, ch. 4); a step whose ε fell by less than that is first corrected along the
-    valley's curvature (see the loop). A row stops when the predicted decrease is below ``rtol`` ε, when its
-    step or trust radius falls below XTOL, when it has run into a better row's minimum (SAME),
-    or (after KEEP_AFTER iterations) when its ε is more than DROP_FACTOR above the best row's or
-    it creeps towards a converged row's ε too slowly (CRAWL); these heuristics were tuned on the
-    whole library, which they leave unchanged. ``transform(z) → (x, ∂x/∂z, second)`` optimises
-    other variables z with x(z); second(g) is the diagonal of Σ_i g_i ∂²x_i/∂z_j².
-    ``extended``: ε and its gradient in ball arithmetic (Problem.evaluate_ball, 113 bits).
-    ``floor``: a row whose step would bring two exponents closer than this in ln α stops where
-    it is (its finish is then the bounded one, ``_constrained_fit``).
-    """
-    rtol = RTOL if rtol is None else rtol
-
-    def in_z(z, mapped, x_parts, with_hessian):
-        """ε, gradient and (if asked) Hessian with respect to z from those with respect to x
-        (``mapped``: transform(z), or None without a transform)."""
-        f, g, h, lo = x_parts
-        if mapped is None:
-            return f, g, h, lo
-        _, jac, second = mapped
-        gz = np.einsum("sij,si->sj", jac, g)
-        hz = None
-        if with_hessian:
-            hz = np.einsum("sij,sik,skl->sjl", jac, h, jac)
-            hz[:, np.arange(z.shape[1]), np.arange(z.shape[1])] += second(g)
-        return f, gz, hz, lo
-
-    def evaluate(z, with_hessian=True):
-        """(ε, gradient, Hessian or None, the part of ε below its double: zero in double
-        precision) at the rows of z. ``extended``: ε and gradient in ball arithmetic; the Hessian
-        (the model only) is ``model_hessian``'s, asked for where a step was taken."""
-        mapped = None if transform is None else transform(z)
-        x = z if mapped is None else mapped[0]
-        if not extended:
-            return in_z(z, mapped, (*problem.evaluate_batch(x, 2)[1:4], np.zeros(len(x))), True)
-        fs, gs, lows = [], [], []
-        for row in x:
-            out = problem.evaluate_ball(row, order=1, with_total=True)
-            if out is None:
-                fs.append(math.inf), gs.append(np.zeros(row.size)), lows.append(0.0)
-            else:
-                fs.append(out[4][0]), gs.append(out[1]), lows.append(out[4][1])
-        f, g, _, lo = in_z(z, mapped, (np.array(fs), np.array(gs), None, np.array(lows)), False)
-        return f, g, model_hessian(z, mapped) if with_hessian else None, lo
-
-    def model_hessian(z, mapped=None):
-        """The Hessian in double precision for all rows at once (~1e-14 absolute: the steps
-        barely change, and a ball evaluation costs half as much without it)."""
-        if mapped is None and transform is not None:
-            mapped = transform(z)
-        _, _, gd, hd, _ = problem.evaluate_batch(z if mapped is None else mapped[0], 2)
-        return in_z(z, mapped, (None, gd, hd, None), True)[2]
-
-    # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in ball arithmetic)
-    noise = 0.0 if extended else NOISE * math.fsum(problem.norm2)
-    z = np.array(z0, dtype=float)
-    f, g, h, low = evaluate(z)
-    radius = np.full(len(z), RADIUS_START)
-    active = np.isfinite(f)
-    converged = np.zeros(len(z), dtype=bool)
-    last_pred = np.full(len(z), np.inf)
-    for iteration in range(max_iter):
-        if iteration >= KEEP_AFTER and active.any():
-            # (differences, not ratios: in double precision ε near a tiny optimum can come out
-            # slightly negative)
-            f_min = f[np.isfinite(f)].min()
-            active &= f - f_min <= (DROP_FACTOR - 1.0) * max(abs(f_min), noise)
-            if converged.any():
-                # a row above a converged one that, at its present rate, would need more than
-                # CRAWL steps even to come down to it (it is creeping along a valley)
-                f_best = f[converged].min()
-                active &= ~((f > f_best) & (last_pred * CRAWL < f - f_best))
-        if iteration >= 2 and transform is None and len(z) > 1:
-            # a row that has run into a better row's minimum (sorted ln α within SAME) stops
-            srt = -np.sort(-z, axis=1)
-            near = np.abs(srt[:, None, :] - srt[None, :, :]).max(axis=2) < SAME
-            rank = np.argsort(np.argsort(f, kind="stable"), kind="stable")
-            active &= ~(near & (rank[None, :] < rank[:, None])).any(axis=1)
-        idx = np.flatnonzero(active)
-        if idx.size == 0:
-            break
-        w, v = np.linalg.eigh(h[idx])
-        wabs = np.abs(w)
-        wabs = np.maximum(wabs, np.maximum(1e-24 * wabs.max(axis=1, keepdims=True), 1e-300))
-        gt = np.einsum("kji,kj->ki", v, g[idx])  # Vᵀg
-        step_t, mu = _trust_step(gt, wabs, radius[idx])
-        step = np.einsum("kij,kj->ki", v, step_t)
-        pred = -(np.einsum("ki,ki->k", gt, step_t) + 0.5 * np.einsum("ki,ki->k", wabs * step_t, step_t))
-        # converged: a step below XTOL, or a predicted decrease below rtol ε; that last (Newton)
-        # step is still taken if ε does not rise beyond rounding (its decrease may be below it)
-        tiny = ~(pred > np.maximum(rtol * f[idx], noise))
-        done = tiny | (np.abs(step).max(axis=1) < XTOL)
-        active[idx[done]] = False
-        converged[idx[done]] = True
-        last_pred[idx] = pred
-        bad_step = ~np.isfinite(step).all(axis=1)
-        step[bad_step] = 0.0
-        pred[bad_step] = 0.0
-        ft, gt_new, ht, low_t = evaluate(z[idx] + step, with_hessian=not extended)
-        ft[bad_step] = np.inf  # a failed model step counts as a rejected one
-        actual = f[idx] - ft
-        # the exact difference (ball arithmetic): a converging step may lower ε by less than an ulp
-        actual = np.where(np.isfinite(ft), actual + (low[idx] - low_t), actual)
-        better = (actual > 0) | (tiny & (ft <= f[idx] + noise))
-        rho = np.where(pred > 0, actual / np.where(pred > 0, pred, 1.0), 0.0)
-        fix = np.flatnonzero(np.isfinite(ft) & ~tiny & (rho < 0.25) & ~bad_step)
-        if fix.size:
-            ii = idx[fix]
-            # curvilinear correction of a step that ran out of a curved valley onto its wall
-            # (geodesic acceleration: M. K. Transtrum, J. P. Sethna, arXiv:1201.5885, 2012): the
-            # third-order term T(s, s) ≈ 2 (g(z + s) − g(z) − H s) from the trial gradient,
-            # c = −½ (|H| + μ)⁻¹ T(s, s) in the stiff directions only (|λ| ≥ STIFF |λ|max: back to
-            # the valley floor, not along it), tried when ‖c‖ ≤ CORRECTION_LIMIT ‖s‖; the pair
-            # is taken when it lowers ε by a quarter of the first step's predicted decrease.
-            # Tuned on the library (ε unchanged to 2e-16); the crawls along the valleys of the
-            # ε < 1e-13 fits take a third of the iterations.
-            resid = gt_new[fix] - g[ii] - np.einsum("kij,kj->ki", h[ii], step[fix])
-            ct = -np.einsum("kji,kj->ki", v[fix], resid) / (wabs[fix] + mu[fix, None])
-            ct[wabs[fix] < STIFF * wabs[fix].max(axis=1, keepdims=True)] = 0.0
-            corr = np.einsum("kij,kj->ki", v[fix], ct)
-            small = np.linalg.norm(corr, axis=1) <= CORRECTION_LIMIT * np.linalg.norm(step[fix], axis=1)
-            fix, ii, corr = fix[small], ii[small], corr[small]
-            if fix.size:
-                fc, gc, hc, lowc = evaluate(z[ii] + step[fix] + corr, with_hessian=not extended)
-                act_c = np.where(np.isfinite(fc), f[ii] - fc + (low[ii] - lowc), -np.inf)
-                ok = act_c > 0.25 * pred[fix]
-                k = fix[ok]
-                step[k] += corr[ok]
-                ft[k], gt_new[k], low_t[k] = fc[ok], gc[ok], lowc[ok]
-                if not extended:
-                    ht[k] = hc[ok]
-                actual[k] = act_c[ok]
-                better[k] = True
-                rho[k] = act_c[ok] / pred[k]
-        if floor is not None:  # on the step as taken, corrected or not
-            crossing = better & (np.min(np.abs(np.diff(-np.sort(-(z[idx] + step), axis=1), axis=1)), axis=1) < floor)
-            better &= ~crossing
-            active[idx[crossing]] = False
-        length = np.linalg.norm(step_t, axis=1)
-        shrink = ~better | (rho < 0.25)
-        grow = better & (rho > 0.75) & (length > 0.8 * radius[idx])
-        radius[idx[shrink]] = 0.25 * length[shrink]
-        radius[idx[grow]] = np.minimum(2.0 * radius[idx[grow]], MAX_STEP)
-        acc = idx[better]
-        z[acc] += step[better]
-        f[acc], g[acc], low[acc] = ft[better], gt_new[better], low_t[better]
-        if acc.size:
-            h[acc] = ht[better] if not extended else model_hessian(z[acc])
-        active[idx[radius[idx] < XTOL]] = False
-    return f, z
-
-
-def _trust_step(gt: np.ndarray, w: np.ndarray, radius: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Minimiser of the model gᵀs + ½ sᵀ|H|s within ‖s‖ ≤ radius, in the eigenbasis of H (rows:
-    gradient components gt, |eigenvalues| w > 0): s = −gt/(w + μ) with μ ≥ 0 the root of
-    1/‖s(μ)‖ = 1/radius (J. J. Moré, D. C. Sorensen, SIAM J. Sci. Stat. Comput. 4, 553, 1983;
-    Newton's method on that nearly linear function). Returns (s, μ)."""
-    mu = np.zeros(len(gt))
-    step = -gt / w
-    norm = np.linalg.norm(step, axis=1)
-    out = norm > radius
-    for _ in range(30):
-        if not out.any():
-            break
-        d = w[out] + mu[out, None]
-        s_ = -gt[out] / d
-        n_ = np.linalg.norm(s_, axis=1)
-        dn = -np.sum(s_ * s_ / d, axis=1) / n_  # d‖s‖/dμ
-        phi = 1.0 / n_ - 1.0 / radius[out]
-        mu_new = np.maximum(mu[out] - phi / (-dn / (n_ * n_)), 0.5 * mu[out])
-        conv = np.abs(n_ - radius[out]) < 1e-3 * radius[out]
-        mu[out] = mu_new
-        idx = np.flatnonzero(out)
-        out[idx[conv]] = False
-    step = -gt / (w + mu[:, None])
-    norm = np.linalg.norm(step, axis=1)
-    over = norm > radius * 1.001
-    step[over] *= (radius[over] / norm[over])[:, None]
-    return step, mu
-
-
-# absolute rounding level of ε in double precision, × Σ‖φ‖² (measured ≤ 5e-16 against the ball
-# evaluation with G, s and the prefactors accurate to a few ulp)
-NOISE = 1e-15
-CORRECTION_LIMIT, STIFF = 0.75, 1e-2  # the curvilinear correction of _newton
-MAX_STEP = 2.0  # largest trust radius (2-norm of the change of ln α)
-RADIUS_START = 0.5
-RTOL = 1e-13  # relative predicted decrease of ε at which a row is converged
-XTOL = 1e-10  # or: the largest change of ln α in its last step
-KEEP_AFTER, DROP_FACTOR = 5, 1.5  # rows far above the best are dropped after KEEP_AFTER steps
-SAME = 0.05  # rows whose sorted ln α differ by less than this run into the same minimum
-CRAWL = 20  # see _newton: rows that would need more steps than this to reach a converged row stop
-CONSTRAINED_STARTS = 3  # runs that start the constrained fit
-# below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ 100 × NOISE)
-EXT_ALL_BELOW = 1e-13
-NEAR_BOUND = 0.5  # ln of the ratio above MIN_RATIO below which the bounded finish is tried too
-PREVIOUS_FINISHED_BELOW = 1e-10  # the continuation starts from the finished N − 1 fit below this
-EXT_ITER, EXT_RTOL = 400, 1e-15  # iterations and predicted-decrease tolerance in ball arithmetic
-
-
 def _even_tempered(n_gauss: int, centre: float, log_ratio: float) -> np.ndarray:
     return centre + log_ratio * (np.arange(n_gauss)[::-1] - (n_gauss - 1) / 2.0)
 
@@ -373,10 +179,10 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
     """Deterministic starting points in ln α: continuation from the N−1 fit (a new tight, a new
     diffuse exponent, a new exponent in each gap up to N = 6, in the GAPS widest gaps beyond)
     and even-tempered sets (their centre from the STO's extent, α ~ 1/⟨r⟩²): all of ET_STARTS for
-    N = 1, the first 3 up to N = 6, the first beyond."""
+    N = 1, the first 3 for N = 2, the first beyond."""
     starts = []
     if previous is not None:
-        ext = np.concatenate([[previous[0] + 1.5], previous, [previous[-1] - 1.5]])
+        ext = np.concatenate([[previous[0] + NEW_END], previous, [previous[-1] - NEW_END]])
         starts.append(ext[:-1])  # new tight exponent
         starts.append(ext[1:])  # new diffuse exponent
         gaps = list(range(len(previous) - 1))
@@ -392,16 +198,6 @@ def _starts(n_gauss: int, targets: tuple[Target, ...], previous: np.ndarray | No
     return starts
 
 
-GAPS = 3  # gap insertions tried beyond N = 6
-# (ln of the exponent ratio, shift of the centre in ln α) of the even-tempered starts
-ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))  # N = 1: all, else the first 3
-
-
-# Smallest ratio of neighbouring exponents accepted (common practice, no source): closer
-# exponents make G nearly singular and describe no more than one r^(l+2) Gaussian.
-MIN_RATIO = 1.1
-
-
 def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool = False) -> tuple[float, np.ndarray]:
     """Minimise ε over ln α with every neighbouring ratio ≥ MIN_RATIO: the gaps between
     neighbouring ln α are written ln MIN_RATIO + u_k², an unconstrained problem in (x₀, u)."""
@@ -409,7 +205,7 @@ def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool 
     z0 = []
     for x0 in starts:
         x0 = np.sort(np.asarray(x0, dtype=float))[::-1]
-        z0.append(np.concatenate([[x0[0]], np.sqrt(np.maximum(-np.diff(x0) - floor, 1e-4))]))
+        z0.append(np.concatenate([[x0[0]], np.sqrt(np.maximum(-np.diff(x0) - floor, GAP_START))]))
     z0 = np.array(z0)
     size = z0.shape[1]
     lower = np.tril(np.ones((size, size)))
@@ -426,8 +222,7 @@ def _constrained_fit(problem: Problem, starts: list[np.ndarray], extended: bool 
 
         return x, jac, second
 
-    f, z = _newton(problem, z0, transform, max_iter=EXT_ITER if extended else 400, extended=extended,
-                   rtol=EXT_RTOL if extended else None)
+    f, z = newton(problem, z0, FINISH if extended else CONSTRAINED_SEARCH, transform, extended)
     best = int(np.argmin(f))
     return float(f[best]), transform(z[best : best + 1])[0][0]
 
@@ -446,7 +241,7 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
         tiny = prev_f < PREVIOUS_FINISHED_BELOW * math.fsum(problem.norm2)
         previous = np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0] if tiny else prev_x)
     starts = _starts(n_gauss, targets, previous)
-    f, x = _newton(problem, np.array(starts))
+    f, x = newton(problem, np.array(starts))
     x = -np.sort(-x, axis=1)
     best_f, best_x, merged = math.inf, None, []
     for fk, xk in zip(f, x):
@@ -455,19 +250,19 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
         if n_gauss > 1 and np.min(-np.diff(xk)) < math.log(MIN_RATIO):
             merged.append((fk, xk))  # two exponents running together mimic an r^(l+2) Gaussian
             continue
-        if best_x is None or fk < best_f - 1e-12 * abs(best_f):
+        if best_x is None or fk < best_f - TIE * abs(best_f):
             best_f, best_x = float(fk), xk
     if merged and min(fk for fk, _ in merged) < best_f:
         # ε falls further as two exponents merge (6s6p N = 3; h1 6s N = 8): the best fit with
         # every ratio ≥ MIN_RATIO, started from those runs, competes with the interior minima
         fc, xc = _constrained_fit(problem, [xk for _, xk in sorted(merged, key=lambda item: item[0])][:CONSTRAINED_STARTS])
-        if best_x is None or fc < best_f - 1e-12 * abs(best_f):
+        if best_x is None or fc < best_f - TIE * abs(best_f):
             return tuple(float(v) for v in xc), True, fc, ()
     if best_x is not None:
         keep = [best_x] + [xk for fk, xk in sorted(zip(f, x), key=lambda item: item[0]) if math.isfinite(fk)]
         distinct = []
         for xk in keep:
-            if (n_gauss == 1 or np.min(-np.diff(xk)) >= math.log(MIN_RATIO)) and not any(np.max(np.abs(xk - y)) < 1e-2 for y in distinct):
+            if (n_gauss == 1 or np.min(-np.diff(xk)) >= math.log(MIN_RATIO)) and not any(np.max(np.abs(xk - y)) < DISTINCT for y in distinct):
                 distinct.append(xk)
         return tuple(float(v) for v in best_x), False, best_f, tuple(tuple(float(v) for v in xk) for xk in distinct)
     fc, xc = _constrained_fit(problem, starts)
@@ -487,12 +282,11 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     rows = [tuple(x)]
     if search_f < EXT_ALL_BELOW * math.fsum(problem.norm2):
         previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
-        fs, zs = _newton(problem, np.array(_starts(n_gauss, targets, previous)))
+        fs, zs = newton(problem, np.array(_starts(n_gauss, targets, previous)))
         for zk in list(candidates) + [tuple(v) for fk, v in zip(fs, -np.sort(-zs, axis=1)) if math.isfinite(fk)]:
-            if not any(np.max(np.abs(np.array(zk) - np.array(y))) < SAME for y in rows):
+            if not any(np.max(np.abs(np.array(zk) - np.array(y))) < SEARCH.same for y in rows):
                 rows.append(tuple(zk))
-    f, z = _newton(problem, np.array(rows), max_iter=EXT_ITER, extended=True, rtol=EXT_RTOL,
-                   floor=math.log(MIN_RATIO) if n_gauss > 1 else None)
+    f, z = newton(problem, np.array(rows), FINISH, extended=True, floor=math.log(MIN_RATIO) if n_gauss > 1 else None)
     z = -np.sort(-z, axis=1)
     fine = [k for k in range(len(z)) if math.isfinite(f[k]) and (n_gauss == 1 or np.min(-np.diff(z[k])) >= math.log(MIN_RATIO))]
     fx, xx = (f[min(fine, key=lambda k: (f[k], k))], z[min(fine, key=lambda k: (f[k], k))]) if fine else (math.inf, x)
@@ -507,7 +301,7 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     # compared as (high, low) pairs: the finish may lower ε by less than an ulp of its double
     if out is not None and (here is None or (out[4][0] - here[4][0]) + (out[4][1] - here[4][1]) <= 0):
         x, eps, coefs = np.array(xx), out[0], out[3]
-        constrained = n_gauss > 1 and float(np.min(-np.diff(x))) - math.log(MIN_RATIO) < 1e-8
+        constrained = n_gauss > 1 and float(np.min(-np.diff(x))) - math.log(MIN_RATIO) < ON_BOUND
     elif here is not None:
         eps, coefs = here[0], here[3]  # the search's point, evaluated in ball arithmetic too
     else:
@@ -517,8 +311,9 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
 
 def clear_caches() -> None:
     """Forget every fit computed in this process (benchmarks and reproducibility tests). The
-    tables of I_ν (analytic.radial_table, analytic._BALL_TABLES) stay: they are exact functions
-    of (n*, l, ζ) shared by every fit, and no fit depends on which pieces were built before."""
+    tables of I_ν (radial_tables.radial_table, radial_tables.ball_table) stay: they are exact
+    functions of (n*, l, ζ) shared by every fit, and no fit depends on which pieces were built
+    before."""
     _fit_log_alpha.cache_clear()
     _search.cache_clear()
     _problem.cache_clear()

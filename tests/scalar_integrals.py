@@ -1,4 +1,6 @@
-"""Analytic overlaps between a Slater-type radial function and Gaussian radial functions.
+"""Analytic overlaps between a Slater-type radial function and Gaussian radial functions, one α
+at a time by recurrences: a reference for the tests (the package's fits take I_ν from the tables
+of stobuilder.expansion.radial_tables and share none of this code).
 
 All functions here work with the radial parts only; the angular factor Y_lm is the same on both
 sides of every overlap and integrates to 1. Units: exponents ζ in bohr⁻¹, α in bohr⁻².
@@ -127,12 +129,6 @@ def sto_norm(n: int, zeta: float = 1.0) -> float:
 def gaussian_log_norm(l: int, alpha: np.ndarray) -> np.ndarray:
     """ln N_α of r^l e^(−αr²): N_α² ∫ r^(2l+2) e^(−2αr²) dr = 1, N_α² = 2 (2α)^(l+3/2) / Γ(l+3/2)."""
     return 0.5 * (math.log(2.0) + (l + 1.5) * np.log(2.0 * np.asarray(alpha)) - gammaln(l + 1.5))
-
-
-def gaussian_overlap(l: int, alpha: np.ndarray) -> np.ndarray:
-    """Overlap matrix of normalised r^l e^(−αr²) radial functions: (2√(αα')/(α+α'))^(l+3/2)."""
-    a = np.asarray(alpha, dtype=float)
-    return (2.0 * np.sqrt(np.outer(a, a)) / np.add.outer(a, a)) ** (l + 1.5)
 
 
 def sto_gaussian_overlap(
