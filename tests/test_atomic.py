@@ -2,7 +2,9 @@
 
 import pytest
 
-from stobuilder.atomic import (atom_energy, atom_report, load_zeta_file, optimize_zeta, parse_zeta_overrides)
+from stobuilder.atom import atom_report
+from stobuilder.atomic import atom_energy, optimize_zeta
+from stobuilder.options import load_zeta_file, parse_zeta_overrides
 from stobuilder.errors import InputError
 from stobuilder.expansion import MAX_GAUSSIANS
 

@@ -27,7 +27,7 @@ import numpy as np
 from ..elements import atomic_number
 from ..expansion import lookup
 from ..expansion.library import library_families
-from ..expansion.regenerate import write_atomic
+from ..files import atomic_write as write_atomic
 
 COMMAND = "python -m stobuilder.screening.regenerate_molecular"
 OUTPUT = Path(__file__).parent / "data" / "molecular_sto3g.json"
