@@ -11,10 +11,9 @@ from __future__ import annotations
 
 from .atomic import _conf, optimize_zeta, pick_method
 from .basis import Basis
-from .build import apply_zeta_overrides, element_basis
+from .build import element_basis, sto_exponents
 from .checks import check_free_atom
 from .limits import whole_number
-from .screening import shell_exponents
 from .sto_scf import _solve
 
 
@@ -46,7 +45,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         result = optimize_zeta(conf.symbol, configuration=conf, method=m, rule=rule, zeta=zeta)
         used = dict(result.zeta)
     else:
-        exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
+        exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
         result = _solve(conf, exps, m).result
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]

@@ -22,10 +22,9 @@ Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963)
 
 from __future__ import annotations
 
-from .build import apply_zeta_overrides
+from .build import sto_exponents
 from .elements import Configuration, resolve
 from .errors import InputError
-from .screening import shell_exponents
 from .sto_scf import AtomResult, OrbitalEnergy, _solve, describe_state, optimize_exponents, pick_method
 
 # ---------------------------------------------------------------- inputs
@@ -56,7 +55,7 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
+    exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
     return _solve(conf, exps, m).result
 
 
@@ -71,7 +70,7 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    exps = [e for e in apply_zeta_overrides(shell_exponents(conf, rule), zeta) if conf.occupation(e.n, e.l)]
+    exps = [e for e in sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1] if conf.occupation(e.n, e.l)]
     return optimize_exponents(conf, tuple(exps), m)
 
 

@@ -587,15 +587,20 @@ def _remove_stale_temporaries(out_dir: str) -> None:
 
 
 def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str]]:
-    """Write an item's texts atomically; return code → {"path", "sha256"} (paths relative)."""
-    from .files import atomic_write, sha256_text
+    """Write an item's texts, all or none (``files.write_all``); return code → {"path", "sha256"}
+    (paths relative). InputError (naming the target) when a file cannot be written."""
+    from .files import sha256_text, write_all
 
-    files = {}
+    files, contents = {}, {}
     for code, rel, text in outcome.texts:
         target = os.path.join(out_dir, *rel.split("/"))
-        os.makedirs(os.path.dirname(target), exist_ok=True)
-        atomic_write(target, text)
+        try:
+            os.makedirs(os.path.dirname(target), exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"{os.path.dirname(target)}: cannot create the folder ({exc.strerror})") from None
+        contents[target] = text
         files[code] = {"path": rel, "sha256": sha256_text(text)}
+    write_all(contents)
     return files
 
 
@@ -671,9 +676,8 @@ def run_batch(
         def finish(outcome: ItemOutcome) -> None:
             try:
                 files = write_outcome(outcome, out_dir)
-            except OSError as exc:
-                where = exc.filename or out_dir
-                outcome = replace(outcome, texts=(), error=f"{outcome.item.path}: cannot write {where} ({exc.strerror})")
+            except InputError as exc:
+                outcome = replace(outcome, texts=(), error=f"{outcome.item.path}: {exc}; no files written")
                 files = {}
             record = outcome_record(outcome, options, files)
             manifest.append([record])

@@ -30,7 +30,7 @@ def pick_method(method: str, spin: int, what: str = "") -> str:
         return "RHF" if spin == 0 else "ROHF"
     if m == "rhf" and spin != 0:
         raise InputError(
-            f"RHF needs a closed shell{' ' + what if what else ''}; it has {spin} unpaired electrons (spin {spin})"
+            f"RHF needs a closed shell{' ' + what if what else ''}; it has {_unpaired(spin)} (spin {spin})"
         )
     return m.upper()
 
@@ -41,5 +41,9 @@ def free_atom_method(method: str, spin: int, what: str = "") -> tuple[str, str]:
     m = check_method(method)
     if m == "rhf" and spin != 0:
         chosen = pick_method("auto", spin)
-        return chosen, f"{what or 'free atom'}: {chosen} (RHF needs a closed shell; it has {spin} unpaired electrons)"
+        return chosen, f"{what or 'free atom'}: {chosen} (RHF needs a closed shell; it has {_unpaired(spin)})"
     return pick_method(m, spin, what), ""
+
+
+def _unpaired(spin: int) -> str:
+    return f"{spin} unpaired electron{'' if spin == 1 else 's'}"

@@ -150,10 +150,6 @@ def prepare(
     frames = read_structures(path, charge=options.charge, spin=options.spin)
     for frame in frames:
         check_geometry(frame)
-    if options.check:
-        for frame in frames[: options.max_check_frames]:
-            if not frame.periodic:
-                pick_method(options.method, frame.spin, _label(frame))
     key = basis_key(frames, options)
     if cache is not None and len(cache) >= CACHE_LIMIT:
         cache.clear()
@@ -165,6 +161,9 @@ def prepare(
             raise InputError(_named(os.fspath(path), str(exc))) from None
         if cache is not None:
             cache[("basis", key)] = basis
+    if options.check:
+        for frame in frames[: options.max_check_frames]:
+            _check_electrons(frame, basis, options.method)
     name = name or structure_name(os.path.basename(path))
     texts = []
     for code in options.codes:
@@ -182,8 +181,26 @@ def prepare(
     return Prepared(path, name, frames, basis, tuple(texts), notes)
 
 
-def _label(frame: Structure) -> str:
-    return f"({frame.path}{'' if frame.frame == 0 else f', frame {frame.frame}'})"
+def _where(frame: Structure) -> str:
+    return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
+
+
+def _check_electrons(frame: Structure, basis: Basis, method: str) -> None:
+    """Before any SCF: the method suits the structure, and the basis has room for its electrons
+    (α ≤ functions, β ≤ functions). Periodic structures are checked on free atoms instead."""
+    if frame.periodic:
+        return
+    try:
+        pick_method(method, frame.spin)
+    except InputError as exc:
+        raise InputError(f"{_where(frame)}: {exc}") from None
+    functions = sum(2 * s.l + 1 for symbol in frame.symbols for s in basis[symbol].shells)
+    alpha = (frame.electrons + frame.spin) // 2
+    if alpha > functions:
+        raise InputError(
+            f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
+            f"basis functions of the minimal basis (charge {frame.charge:+d}); nothing to check"
+        )
 
 
 def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
