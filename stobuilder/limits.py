@@ -1,9 +1,10 @@
 """The ranges every number we accept must lie in, checked in one place.
 
 ζ (bohr⁻¹) of an STO, whether from a screening rule, a ``--zeta`` item, a zeta file or the Python
-API, lies in [ZETA_MIN, ZETA_MAX]: the 1s of Rn has ζ ≈ 86 and the most diffuse valence STO of any
-rule here ζ ≈ 0.3, so the range leaves room on both sides while keeping every scaled Gaussian
-exponent a normal double (common practice, no source). A Gaussian exponent (bohr⁻²) we write lies
+API, lies in [ZETA_MIN, ZETA_MAX]: the 1s of Rn has ζ ≈ 86 and a neutral atom's most diffuse
+valence STO under Slater's rules has ζ ≈ 0.5 (Cs 6s: 2.2/4.2), so the range leaves wide room on
+both sides while keeping every scaled Gaussian exponent a normal double (common practice, no
+source). A Gaussian exponent (bohr⁻²) we write lies
 in [EXPONENT_MIN, EXPONENT_MAX]. Charges and 2S are whole numbers of at most MAX_CHARGE in size.
 Geometry: no two atoms closer than MIN_DISTANCE_ANGSTROM (the shortest bond, H2, is 0.74 Å).
 """
