@@ -1,5 +1,8 @@
 """Exact Slater-orbital atomic reference: atomic SCF over STOs and variational exponents.
 
+The entry points by element and screening rule (``atom_energy``, ``optimize_zeta``); the engine
+on given exponents is stobuilder.sto_scf, and the ``atom`` command's document stobuilder.atom.
+
 The integrals are the exact one-centre STO integrals of :mod:`stobuilder.sto`; the SCF uses
 PySCF's RHF / ROHF / UHF drivers with those integrals in place of libcint's (the usual way to run
 PySCF on a model Hamiltonian: overridden get_hcore, get_ovlp and _eri). The orbitals are kept

@@ -25,7 +25,7 @@ from .basis import Basis, ElementBasis, Shell
 from .elements import Configuration, looks_like_configuration, normalise_symbol, resolve
 from .errors import InputError
 from .expansion import lookup
-from .limits import exponent_value, zeta_value
+from .limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
 from .screening import ShellExponent, shell_exponents
 
 ZetaOverrides = Mapping[str, float]
@@ -65,8 +65,10 @@ def sto_exponents(
     """The configuration and the STO exponents of every basis subshell of one element."""
     conf = resolve(element, charge, configuration)
     stos = shell_exponents(conf, rule)
-    where = f"{conf.symbol}{f' (charge {conf.charge:+d})' if conf.charge else ''} {conf.label}"
     for s in stos:
+        if ZETA_MIN <= s.zeta <= ZETA_MAX:  # also False for NaN
+            continue
+        where = f"{conf.symbol}{f' (charge {conf.charge:+d})' if conf.charge else ''} {conf.label}"
         if not (math.isfinite(s.zeta) and s.zeta > 0):
             raise InputError(
                 f"{where}: rule {rule} gives subshell {s.label} ζ = {s.zeta:.6g} (Zeff = {s.zeff:.6g}); "
@@ -126,8 +128,9 @@ def expand(
             raise InputError(f"subshells {', '.join(labels)}: {exc}") from None
         for s in family:
             scale = (family[0].zeta if exponents == "shared" else s.zeta) ** 2
-            for a in fit.exponents:
-                exponent_value(a * scale, f"subshell {s.label} (ζ = {s.zeta:g})")
+            for a in (min(fit.exponents), max(fit.exponents)):
+                if not EXPONENT_MIN <= a * scale <= EXPONENT_MAX:
+                    exponent_value(a * scale, f"subshell {s.label} (ζ = {s.zeta:g})")
             shells.append(
                 Shell(
                     l=s.l,
