@@ -9,12 +9,14 @@ by its own ζ²) in the same determinant, computed by the free-atom SCF of the c
 
 from __future__ import annotations
 
-from .atomic import _conf, optimize_zeta, pick_method
+import numpy as np
+
+from .atomic import _conf, optimize_zeta, pick_method, solve
 from .basis import Basis
 from .build import element_basis, sto_exponents
 from .checks import check_free_atom
+from .errors import InputError
 from .limits import whole_number
-from .sto_scf import _solve
 
 
 def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = "l2", rule: str = "slater") -> dict:
@@ -22,7 +24,15 @@ def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = "l2", rule
     ``build`` writes for it (rule ``rule``, ζ overrides ``zeta``) in the determinant of the checks."""
     element = element_basis(conf, rule, gaussians, zeta=zeta, norm=norm)
     basis = Basis((element,), rule=rule, gaussians=gaussians, norm=norm)
-    r = check_free_atom(basis, conf.symbol, method, reference=False)
+    try:
+        r = check_free_atom(basis, conf.symbol, method, reference=False)
+    except InputError:
+        raise
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(
+            f"{conf.symbol} {conf.label}: the SCF with STO-{gaussians}G failed numerically ({type(exc).__name__}: {reason})"
+        ) from None
     return {"gaussians": gaussians, "fit": norm, "energy_hartree": r.energy_hartree, "converged": r.converged}
 
 
@@ -46,7 +56,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         used = dict(result.zeta)
     else:
         exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-        result = _solve(conf, exps, m).result
+        result = solve(conf, exps, m)
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]
     return {

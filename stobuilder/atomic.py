@@ -25,6 +25,10 @@ Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963)
 
 from __future__ import annotations
 
+import math
+
+import numpy as np
+
 from .build import sto_exponents
 from .elements import Configuration, resolve
 from .errors import InputError
@@ -59,7 +63,31 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
     exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-    return _solve(conf, exps, m).result
+    return solve(conf, exps, m)
+
+
+def _numerically(conf, what: str, run):
+    """``run()``, with a numerical failure (overflow, a singular matrix, NaN) turned into an
+    InputError naming the atom: it comes from ζ far from any physical value."""
+    try:
+        result = run()
+    except InputError:
+        raise
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(
+            f"{conf.symbol} {conf.label}: the exact-STO {what} failed numerically ({type(exc).__name__}: {reason}); "
+            "are the ζ physical?"
+        ) from None
+    if not math.isfinite(result.energy):
+        raise InputError(f"{conf.symbol} {conf.label}: the exact-STO {what} gave a non-finite energy; are the ζ physical?")
+    return result
+
+
+def solve(conf: Configuration, exps, method: str) -> AtomResult:
+    """The exact-STO SCF of ``conf`` on the STOs ``exps`` (``sto_scf._solve``), numerical failures
+    as InputError."""
+    return _numerically(conf, "SCF", lambda: _solve(conf, exps, method).result)
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",
@@ -74,7 +102,7 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
     exps = [e for e in sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1] if conf.occupation(e.n, e.l)]
-    return optimize_exponents(conf, tuple(exps), m)
+    return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, tuple(exps), m))
 
 
 __all__ = ["AtomResult", "OrbitalEnergy", "atom_energy", "describe_state", "optimize_zeta", "pick_method"]

@@ -229,3 +229,11 @@ def test_method_choice_lives_in_one_place():
         pick_method("rhf", 1)
     with pytest.raises(InputError, match="unknown SCF method"):
         pick_method("mp2", 0)
+
+
+def test_exact_sto_scf_on_far_off_zeta_is_an_error_naming_the_atom(capsys):
+    # from 2s ζ = 0.001 the ζ optimisation overflows (measured: OverflowError in exp); the
+    # exact-STO engine's numerical failures end as one line naming the atom
+    code, out, err = run(["atom", "C", "--zeta", "2s=0.001", "--optimize"], capsys)
+    assert code == 2 and out == "" and err.count("\n") == 1
+    assert err.startswith("stobuilder: error: C [He] 2s2 2p2: the exact-STO ζ optimisation failed numerically")

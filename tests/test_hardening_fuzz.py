@@ -14,6 +14,7 @@ import os
 import tempfile
 from unittest import mock
 
+import pytest
 from ase.build import molecule
 from ase.io import write
 from hypothesis import HealthCheck, event, given, settings
@@ -116,3 +117,40 @@ def test_numeric_options_end_in_the_contract(command, structure, gaussians, char
             assert code == 2, (argv, message)
             assert message.startswith("stobuilder: error: ") and message.count("\n") == 1, message
             assert [f for f in written if f != "stobuilder-batch.jsonl"] == []
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    element=st.sampled_from(["He", "C", "O"]),
+    charge=mostly(st.one_of(st.none(), st.integers(-1, 2).map(str)), st.one_of(st.integers(-12, 12).map(str), numbers)),
+    gaussians=st.lists(mostly(st.integers(1, 6).map(str), st.one_of(st.integers(-2, 14).map(str), numbers)),
+                       max_size=2),
+    zeta=st.lists(st.tuples(st.sampled_from(["1s", "2s", "2p", "3d"]), mostly(good_zetas, zetas)),
+                  max_size=2, unique_by=lambda kv: kv[0]),
+)
+def test_atom_numeric_options_end_in_the_contract(element, charge, gaussians, zeta):
+    """The same contract for ``atom``: strict JSON with finite energies (exit 0), or one line
+    and exit 2; the exact-STO SCF on far-off ζ fails as an error naming the atom, never a
+    traceback."""
+    import json
+    import math
+
+    argv = ["atom", element, "--json"]
+    if charge is not None:
+        argv.append(f"--charge={charge}")
+    if gaussians:
+        argv += ["--gaussians", *gaussians]
+    for key, value in zeta:
+        argv.append(f"--zeta={key}={value}")
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        code = main(argv)
+    event(f"atom exit {code}")
+    if code == 0:
+        doc = json.loads(out.getvalue(), parse_constant=lambda name: pytest.fail(f"not strict JSON: {name}"))
+        assert math.isfinite(doc["energy_exact_hartree"])
+        assert all(math.isfinite(row["energy_hartree"]) for row in doc["gaussian"])
+    else:
+        assert code == 2, (argv, err.getvalue())
+        message = err.getvalue()
+        assert message.startswith("stobuilder: error: ") and message.count("\n") == 1, message
