@@ -3,9 +3,10 @@
 The public API; every name here is a plain function or a frozen dataclass.
 """
 
-__version__ = "0.1.0"
+from .version import __version__  # noqa: E402,F401
 
-from .atomic import AtomResult, atom_energy, atom_report, load_zeta_file, optimize_zeta, parse_zeta_overrides  # noqa: E402
+from .atom import atom_report  # noqa: E402
+from .atomic import AtomResult, atom_energy, optimize_zeta  # noqa: E402
 from .basis import Basis, ElementBasis, Shell  # noqa: E402
 from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
 from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
@@ -13,7 +14,8 @@ from .errors import InputError  # noqa: E402
 from .expansion import Fit, fit_sto  # noqa: E402
 from .formats import formats, write_basis  # noqa: E402
 from .formats import merge_basis, read_basis  # noqa: E402
-from .pipeline import build_structures  # noqa: E402
+from .options import BuildOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
+from .pipeline import Prepared, build_structures, prepare  # noqa: E402
 from .screening import ShellExponent, rules  # noqa: E402
 from .structures import Structure, read_structures  # noqa: E402
 
@@ -25,6 +27,9 @@ __all__ = [
     "optimize_zeta",
     "parse_zeta_overrides",
     "Basis",
+    "BuildOptions",
+    "Prepared",
+    "prepare",
     "Configuration",
     "ElementBasis",
     "Fit",

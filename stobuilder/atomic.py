@@ -1,5 +1,8 @@
 """Exact Slater-orbital atomic reference: atomic SCF over STOs and variational exponents.
 
+The entry points by element and screening rule (``atom_energy``, ``optimize_zeta``); the engine
+on given exponents is stobuilder.sto_scf, and the ``atom`` command's document stobuilder.atom.
+
 The integrals are the exact one-centre STO integrals of :mod:`stobuilder.sto`; the SCF uses
 PySCF's RHF / ROHF / UHF drivers with those integrals in place of libcint's (the usual way to run
 PySCF on a model Hamiltonian: overridden get_hcore, get_ovlp and _eri). The orbitals are kept
@@ -23,323 +26,13 @@ Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963)
 from __future__ import annotations
 
 import math
-import warnings
-from dataclasses import dataclass, field
-from numbers import Real
 
 import numpy as np
-import scipy.linalg
-import scipy.optimize
 
-from . import sto
-from .build import apply_zeta_overrides
-from .elements import L_LETTERS, M_FILL_ORDER, Configuration, capacity, parse_subshell_label, resolve
+from .build import sto_exponents
+from .elements import Configuration, resolve
 from .errors import InputError
-from .screening import ShellExponent, basis_subshells, shell_exponents
-
-TERM_LETTERS = "SPDFGHIK"
-_M_NAMES = {
-    0: {0: ""},
-    1: {1: "x", -1: "y", 0: "z"},
-    2: {-2: "xy", -1: "yz", 0: "z2", 1: "xz", 2: "x2-y2"},
-    3: {m: f"(m={m:+d})" if m else "(m=0)" for m in range(-3, 4)},
-}
-
-
-@dataclass(frozen=True)
-class OrbitalEnergy:
-    """One SCF orbital: label (e.g. "2px"), spin ("alpha", "beta" or "both"), energy in hartree,
-    occupation (electrons in it, 0–2)."""
-
-    label: str
-    spin: str
-    energy: float
-    occupation: float
-
-
-@dataclass(frozen=True)
-class AtomResult:
-    """The exact-STO SCF of one atom or ion.
-
-    energy, kinetic, potential : E, T and V = E − T in hartree; virial_ratio = −V/T.
-    zeta : subshell label → ζ in bohr⁻¹ (basis order); gradient : label → dE/dζ in hartree·bohr.
-    """
-
-    element: str
-    configuration: str
-    state: str
-    method: str
-    zeta: dict[str, float] = field(hash=False)
-    energy: float
-    kinetic: float
-    potential: float
-    virial_ratio: float
-    orbital_energies: tuple[OrbitalEnergy, ...]
-    converged: bool
-    iterations: int
-    gradient: dict[str, float] = field(hash=False, default_factory=dict)
-    optimized: bool = False
-
-
-# ---------------------------------------------------------------- occupations and state
-@dataclass(frozen=True)
-class _Plan:
-    """Occupations per (l, m) block: alpha[(l, m)] / beta[(l, m)] list one 0/1 per orbital of the block
-    in ascending energy (= ascending n of the basis subshells of that l)."""
-
-    alpha: dict
-    beta: dict
-    nalpha: int
-    nbeta: int
-
-
-def _plan(conf: Configuration, labels: list[tuple[int, int]]) -> _Plan:
-    alpha, beta = {}, {}
-    for l in sorted({l for _, l in labels}):
-        ns = sorted(n for n, ll in labels if ll == l)
-        for m in M_FILL_ORDER[l]:
-            alpha[(l, m)] = [0] * len(ns)
-            beta[(l, m)] = [0] * len(ns)
-        for k, n in enumerate(ns):
-            q = conf.occupation(n, l)
-            na, nb = min(q, 2 * l + 1), max(0, q - (2 * l + 1))
-            for i, m in enumerate(M_FILL_ORDER[l]):
-                alpha[(l, m)][k] = int(i < na)
-                beta[(l, m)][k] = int(i < nb)
-    na = sum(sum(v) for v in alpha.values())
-    nb = sum(sum(v) for v in beta.values())
-    return _Plan(alpha, beta, na, nb)
-
-
-def describe_state(conf: Configuration, method: str) -> str:
-    """Text naming the determinant computed for ``conf``, e.g. "C [He] 2s2 2p2 (3P, high-spin ROHF determinant)"."""
-    unpaired = conf.unpaired
-    mult = unpaired + 1
-    open_l = []
-    pure = True
-    for s in conf.subshells:
-        q, half = s.occupation, 2 * s.l + 1
-        if 0 < q < capacity(s.l):
-            na, nb = min(q, half), max(0, q - half)
-            partial = nb if na == half else na  # electrons in the partly filled spin set
-            if partial == 0:
-                open_l.append(0)  # half-filled: an S term
-            elif partial in (1, 2 * s.l):
-                open_l.append(s.l)  # one electron or one hole: a pure term of L = l
-            else:
-                pure = False
-                open_l.append(s.l)
-    nonzero = [l for l in open_l if l]
-    if len(nonzero) > 1:
-        pure = False
-    kind = {"rhf": "closed-shell RHF", "rohf": "high-spin ROHF", "uhf": "high-spin UHF"}[method]
-    if pure:
-        term = f"{mult}{TERM_LETTERS[nonzero[0] if nonzero else 0]}"
-        return f"{conf.symbol} {conf.label} ({term}, {kind} determinant)"
-    return (
-        f"{conf.symbol} {conf.label} (S = {unpaired / 2:g}, {kind} determinant in real orbitals; "
-        "not a pure LS term)"
-    )
-
-
-def pick_method(conf: Configuration, method: str) -> str:
-    """"rhf", "rohf" or "uhf" for ``conf``: the choice of stobuilder.checks.pick_method."""
-    from .checks import pick_method as choose
-
-    return choose(method, conf.unpaired, f"({conf.symbol} {conf.label})").lower()
-
-
-# ---------------------------------------------------------------- integrals
-@dataclass(frozen=True)
-class _Integrals:
-    basis: sto.OneCentreBasis
-    s: np.ndarray
-    t: np.ndarray
-    v: np.ndarray
-    eri: np.ndarray
-
-
-def _shells(exps: tuple[ShellExponent, ...]) -> tuple[list[str], sto.OneCentreBasis]:
-    order = sorted(exps, key=lambda e: (e.l, e.n))
-    return [e.label for e in order], sto.make_basis([(e.n, e.l, e.zeta) for e in order])
-
-
-def _integrals(basis: sto.OneCentreBasis, z: int) -> _Integrals:
-    return _Integrals(basis, sto.overlap_matrix(basis), sto.kinetic_matrix(basis), sto.nuclear_matrix(basis, z),
-                      sto.eri_tensor(basis))
-
-
-# ---------------------------------------------------------------- SCF
-def _blocks(basis: sto.OneCentreBasis) -> dict[tuple[int, int], np.ndarray]:
-    ls = np.array([basis.shells[i].l for i in basis.function_shell])
-    ms = basis.function_m
-    out = {}
-    for l, m in sorted(set(zip(ls.tolist(), ms.tolist()))):
-        out[(l, m)] = np.flatnonzero((ls == l) & (ms == m))
-    return out
-
-
-def _run_scf(ints: _Integrals, plan: _Plan, method: str, dm0=None, conv_tol: float = 1e-12):
-    from pyscf import gto, scf
-
-    nao = ints.basis.nao
-    blocks = _blocks(ints.basis)
-    mol = gto.M(verbose=0)
-    mol.nelectron = plan.nalpha + plan.nbeta
-    mol.spin = plan.nalpha - plan.nbeta
-    mol.incore_anyway = True
-    mf = {"rhf": scf.RHF, "rohf": scf.ROHF, "uhf": scf.UHF}[method](mol)
-    h = ints.t + ints.v
-    mf.get_hcore = lambda *a, **k: h
-    mf.get_ovlp = lambda *a, **k: ints.s
-    mf._eri = ints.eri.reshape(nao * nao, nao * nao)
-    mf.conv_tol = conv_tol
-    mf.conv_tol_grad = 1e-9
-    mf.max_cycle = 300
-    mf.init_guess = "1e"
-
-    def block_eigh(f, s, overwrite=False, x=None):
-        e = np.zeros(nao)
-        c = np.zeros((nao, nao))
-        col = 0
-        for idx in blocks.values():
-            w, v = scipy.linalg.eigh(f[np.ix_(idx, idx)], s[np.ix_(idx, idx)])
-            for j in range(len(idx)):
-                e[col] = w[j]
-                c[idx, col] = v[:, j]
-                col += 1
-        return e, c
-
-    def classify(c):
-        """(block, rank in block) of every MO column, ranked by energy later."""
-        weights = np.array([[np.sum(c[idx, j] ** 2) for idx in blocks.values()] for j in range(c.shape[1])])
-        keys = list(blocks)
-        return [keys[i] for i in np.argmax(weights, axis=1)]
-
-    def occ_for(e, c, table):
-        labels = classify(c)
-        occ = np.zeros(len(e))
-        for key in blocks:
-            cols = [j for j, lab in enumerate(labels) if lab == key]
-            cols.sort(key=lambda j: e[j])
-            for rank, j in enumerate(cols):
-                occ[j] = table[key][rank] if rank < len(table[key]) else 0
-        return occ
-
-    def get_occ(mo_energy=None, mo_coeff=None):
-        if method == "uhf":
-            return np.array([occ_for(mo_energy[0], mo_coeff[0], plan.alpha), occ_for(mo_energy[1], mo_coeff[1], plan.beta)])
-        return occ_for(mo_energy, mo_coeff, plan.alpha) + occ_for(mo_energy, mo_coeff, plan.beta)
-
-    mf._eigh = block_eigh  # RHF, ROHF and UHF all diagonalise through _eigh
-    # Orbitals pure in (l, m): only the in-block part of the Fock matrix acts (exact for the energy,
-    # tr(D P(V)) = tr(D V) for a block-diagonal D), and PySCF's orbital gradient and DIIS see the
-    # constrained problem.
-    mask = np.zeros((nao, nao))
-    for idx in blocks.values():
-        mask[np.ix_(idx, idx)] = 1.0
-    plain_veff = mf.get_veff
-    mf.get_veff = lambda *a, **k: plain_veff(*a, **k) * mask
-    mf.get_occ = get_occ
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        mf.kernel(dm0=dm0)
-    return mf, classify
-
-
-def _spin_densities(mf, method):
-    dm = mf.make_rdm1()
-    if method == "rhf":
-        return dm / 2, dm / 2
-    return dm[0], dm[1]
-
-
-# ---------------------------------------------------------------- energy and gradient
-def _augmented(basis: sto.OneCentreBasis) -> sto.OneCentreBasis:
-    return sto.OneCentreBasis(basis.shells + tuple(sto.STOShell(s.n + 1, s.l, s.zeta) for s in basis.shells))
-
-
-def _gradient(basis: sto.OneCentreBasis, z: int, da: np.ndarray, db: np.ndarray) -> np.ndarray:
-    """dE/dζ of every subshell of ``basis`` (hartree·bohr) at the converged spin densities da, db."""
-    aug = _augmented(basis)
-    nao = basis.nao
-    s = sto.overlap_matrix(aug)[:, :nao]
-    h = (sto.kinetic_matrix(aug) + sto.nuclear_matrix(aug, z))[:, :nao]
-    eri = sto.eri_tensor(aug)[:, :nao, :nao, :nao]
-    dt = da + db
-    j = np.einsum("pqrs,rs->pq", eri, dt)
-    fa = h + j - np.einsum("prqs,rs->pq", eri, da)
-    fb = h + j - np.einsum("prqs,rs->pq", eri, db)
-    w = da @ fa[:nao] @ da + db @ fb[:nao] @ db
-    grad = np.zeros(len(basis.shells))
-    start = 0
-    for i, shell in enumerate(basis.shells):
-        width = 2 * shell.l + 1
-        rows = np.arange(start, start + width)
-        plus = rows + nao
-        a = (shell.n + 0.5) / shell.zeta
-        c = math.sqrt((2 * shell.n + 2) * (2 * shell.n + 1)) / (2 * shell.zeta)
-        total = 0.0
-        for d, f in ((da, fa), (db, fb)):
-            total += np.sum(d[rows] * (a * f[rows] - c * f[plus]))
-        total -= np.sum(w[rows] * (a * s[rows] - c * s[plus]))
-        grad[i] = 2.0 * total
-        start += width
-    return grad
-
-
-@dataclass(frozen=True)
-class _Solved:
-    result: AtomResult
-    dm: object
-
-
-def _solve(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, dm0=None, gradient=False,
-           optimized=False) -> _Solved:
-    labels, basis = _shells(exps)
-    ints = _integrals(basis, conf.z)
-    plan = _plan(conf, [(s.n, s.l) for s in basis.shells])
-    mf, classify = _run_scf(ints, plan, method, dm0=dm0)
-    da, db = _spin_densities(mf, method)
-    kinetic = float(np.sum((da + db) * ints.t))
-    energy = float(mf.e_tot)
-    potential = energy - kinetic
-    grad = {}
-    if gradient:
-        g = _gradient(basis, conf.z, da, db)
-        grad = dict(zip(labels, (float(x) for x in g)))
-    orbitals = _orbitals(mf, method, basis, classify)
-    zeta = {e.label: float(e.zeta) for e in sorted(exps, key=lambda e: (e.n, e.l))}
-    result = AtomResult(
-        element=conf.symbol, configuration=conf.label, state=describe_state(conf, method), method=method,
-        zeta=zeta, energy=energy, kinetic=kinetic, potential=potential, virial_ratio=-potential / kinetic,
-        orbital_energies=orbitals, converged=bool(mf.converged), iterations=int(getattr(mf, "cycles", -1)),
-        gradient=grad, optimized=optimized,
-    )
-    return _Solved(result, mf.make_rdm1())
-
-
-def _orbitals(mf, method, basis, classify) -> tuple[OrbitalEnergy, ...]:
-    ns_by_l = {}
-    for s in basis.shells:
-        ns_by_l.setdefault(s.l, []).append(s.n)
-
-    def one(e, c, occ, spin):
-        keys = classify(c)
-        out = []
-        for key in sorted(set(keys)):
-            cols = sorted((j for j, k in enumerate(keys) if k == key), key=lambda j: e[j])
-            for rank, j in enumerate(cols):
-                l, m = key
-                label = f"{ns_by_l[l][rank]}{L_LETTERS[l]}{_M_NAMES[l][m]}"
-                out.append(OrbitalEnergy(label, spin, float(e[j]), float(occ[j])))
-        return sorted(out, key=lambda o: (o.energy, o.label))
-
-    if method == "uhf":
-        return tuple(one(mf.mo_energy[0], mf.mo_coeff[0], mf.mo_occ[0], "alpha")
-                     + one(mf.mo_energy[1], mf.mo_coeff[1], mf.mo_occ[1], "beta"))
-    return tuple(one(mf.mo_energy, mf.mo_coeff, mf.mo_occ, "both"))
-
+from .sto_scf import AtomResult, OrbitalEnergy, _solve, describe_state, optimize_exponents, pick_method
 
 # ---------------------------------------------------------------- inputs
 def _conf(element, charge, configuration) -> Configuration:
@@ -369,8 +62,32 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
-    return _solve(conf, exps, m).result
+    exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
+    return solve(conf, exps, m)
+
+
+def _numerically(conf, what: str, run):
+    """``run()``, with a numerical failure (overflow, a singular matrix, NaN) turned into an
+    InputError naming the atom: it comes from ζ far from any physical value."""
+    try:
+        result = run()
+    except InputError:
+        raise
+    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(
+            f"{conf.symbol} {conf.label}: the exact-STO {what} failed numerically ({type(exc).__name__}: {reason}); "
+            "are the ζ physical?"
+        ) from None
+    if not math.isfinite(result.energy):
+        raise InputError(f"{conf.symbol} {conf.label}: the exact-STO {what} gave a non-finite energy; are the ζ physical?")
+    return result
+
+
+def solve(conf: Configuration, exps, method: str) -> AtomResult:
+    """The exact-STO SCF of ``conf`` on the STOs ``exps`` (``sto_scf._solve``), numerical failures
+    as InputError."""
+    return _numerically(conf, "SCF", lambda: _solve(conf, exps, method).result)
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",
@@ -384,213 +101,8 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    exps = [e for e in apply_zeta_overrides(shell_exponents(conf, rule), zeta) if conf.occupation(e.n, e.l)]
-
-    def build(x):
-        return tuple(ShellExponent(e.label, e.n, e.l, math.exp(xi) * e.n_eff, e.n_eff, math.exp(xi))
-                     for e, xi in zip(exps, x))
-
-    state = {"dm": None}
-    cache = {}
-
-    def evaluate(x):
-        key = tuple(float(v) for v in x)
-        if key not in cache:
-            solved = _solve(conf, build(x), m, dm0=state["dm"], gradient=True, optimized=True)
-            state["dm"] = solved.dm
-            g = np.array([solved.result.gradient[e.label] * math.exp(xi) for e, xi in zip(exps, x)])
-            cache.clear()
-            cache[key] = (solved.result, g)
-        return cache[key]
-
-    def fun(x):
-        r, g = evaluate(x)
-        return r.energy, g
-
-    x = np.array([math.log(e.zeta) for e in exps])
-    opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500})
-    x = opt.x
-    for _ in range(8):  # Newton polish on the analytic gradient (central-difference Hessian)
-        r, g = evaluate(x)
-        if np.max(np.abs(g)) < 1e-10:
-            break
-        h = 1e-4
-        hess = np.zeros((len(x), len(x)))
-        for i in range(len(x)):
-            d = np.zeros(len(x))
-            d[i] = h
-            hess[:, i] = (evaluate(x + d)[1] - evaluate(x - d)[1]) / (2 * h)
-        hess = 0.5 * (hess + hess.T)
-        step = -np.linalg.solve(hess, g)
-        if np.max(np.abs(step)) > 0.1:
-            step *= 0.1 / np.max(np.abs(step))
-        x = x + step
-    return evaluate(x)[0]
+    exps = [e for e in sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1] if conf.occupation(e.n, e.l)]
+    return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, tuple(exps), m))
 
 
-# ---------------------------------------------------------------- the same STOs as Gaussians
-def gaussian_energy(
-    conf: Configuration, exps: tuple[ShellExponent, ...], method: str, gaussians: int, norm: str = "l2"
-) -> AtomResult:
-    """SCF energy (hartree) of the same determinant with every STO replaced by its N-Gaussian expansion.
-
-    Each subshell is fitted on its own (stobuilder.expansion.lookup, exponents at ζ = 1 scaled by ζ²);
-    the integrals are PySCF's (libcint); occupations, method and block structure as in the exact SCF.
-    """
-    from pyscf import gto
-
-    from .expansion import lookup
-
-    m = pick_method(conf, method)
-    labels, basis = _shells(exps)
-    by_label = {e.label: e for e in exps}
-    shells = []
-    for label in labels:  # (l, n) order, as PySCF sorts shells by l
-        e = by_label[label]
-        fit = lookup(label, int(gaussians), norm)
-        shells.append([e.l] + [[a, c] for a, c in zip(fit.scaled(e.zeta), fit.coefficients[label])])
-    mol = gto.M(atom=[["X", (0.0, 0.0, 0.0)]], basis={"X": shells}, cart=False, verbose=0)
-    ints = _Integrals(basis, mol.intor("int1e_ovlp"), mol.intor("int1e_kin"),
-                      -conf.z * mol.intor("int1e_rinv"), mol.intor("int2e"))
-    plan = _plan(conf, [(s.n, s.l) for s in basis.shells])
-    mf, classify = _run_scf(ints, plan, m)
-    da, db = _spin_densities(mf, m)
-    kinetic = float(np.sum((da + db) * ints.t))
-    energy = float(mf.e_tot)
-    return AtomResult(
-        element=conf.symbol, configuration=conf.label, state=describe_state(conf, m), method=m,
-        zeta={e.label: float(e.zeta) for e in exps}, energy=energy, kinetic=kinetic, potential=energy - kinetic,
-        virial_ratio=(kinetic - energy) / kinetic, orbital_energies=_orbitals(mf, m, basis, classify),
-        converged=bool(mf.converged), iterations=int(getattr(mf, "cycles", -1)),
-    )
-
-
-def atom_report(element: str, rule: str = "slater", configuration=None, charge: int = 0, zeta=None,
-                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = "l2") -> dict:
-    """The exact-STO atom and its N-Gaussian imitations, as a JSON-ready dict.
-
-    Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
-    virial_ratio, gaussian [{gaussians, energy_hartree}], orbital_energies
-    [{label, spin, energy_hartree, occupation}]. With ``optimize`` the ζ of the occupied subshells are
-    optimised first (from ``rule`` and ``zeta``) and only those subshells form the basis.
-    """
-    conf = _conf(element, charge, configuration)
-    m = pick_method(conf, method)
-    counts = [gaussians] if isinstance(gaussians, int) else list(gaussians or ())
-    for n in counts:
-        if isinstance(n, bool) or not isinstance(n, int) or n < 1:
-            raise InputError(f"number of Gaussians {n!r} must be a positive integer")
-    if optimize:
-        result = optimize_zeta(conf.symbol, configuration=conf, method=m, rule=rule, zeta=zeta)
-        base = {e.label: e for e in shell_exponents(conf, rule)}
-        exps = tuple(ShellExponent(k, base[k].n, base[k].l, v * base[k].n_eff, base[k].n_eff, v)
-                     for k, v in result.zeta.items())
-    else:
-        exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
-        result = _solve(conf, exps, m).result
-    rows = [{"gaussians": n, "fit": norm, "energy_hartree": gaussian_energy(conf, exps, m, n, norm).energy} for n in counts]
-    return {
-        "element": result.element,
-        "configuration": result.configuration,
-        "state": result.state,
-        "method": result.method,
-        "zeta": dict(result.zeta),
-        "energy_exact_hartree": result.energy,
-        "virial_ratio": result.virial_ratio,
-        "gaussian": rows,
-        "orbital_energies": [
-            {"label": o.label, "spin": o.spin, "energy_hartree": o.energy, "occupation": o.occupation}
-            for o in result.orbital_energies
-        ],
-    }
-
-
-# ---------------------------------------------------------------- user exponents
-def _parse_value(text: str, item: str) -> float:
-    try:
-        v = float(text)
-    except ValueError:
-        raise InputError(f"--zeta {item!r}: {text.strip()!r} is not a number") from None
-    if not (math.isfinite(v) and v > 0):
-        raise InputError(f"--zeta {item!r}: ζ must be a positive number")
-    return v
-
-
-def parse_zeta_overrides(items, per_element: bool = False) -> dict:
-    """Parse ``--zeta`` items: "1s=1.6875" → {"1s": 1.6875}; per element "Fe:3d=2.1" → {"Fe": {"3d": 2.1}}.
-
-    Labels are checked to be subshell labels (whether the basis has them is checked where the
-    overrides are applied); values must be positive numbers (bohr⁻¹).
-    """
-    from .elements import normalise_symbol
-
-    out: dict = {}
-    for item in items or ():
-        text = str(item)
-        if "=" not in text:
-            raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
-        key, value = text.split("=", 1)
-        if per_element:
-            if ":" not in key:
-                raise InputError(f"--zeta {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
-            sym, label = key.split(":", 1)
-            try:
-                sym = normalise_symbol(sym)
-            except InputError as err:
-                raise InputError(f"--zeta {text!r}: {err}") from None
-        else:
-            sym, label = None, key
-        try:
-            n, l = parse_subshell_label(label)
-        except InputError as err:
-            raise InputError(f"--zeta {text!r}: {err}") from None
-        label = f"{n}{L_LETTERS[l]}"
-        v = _parse_value(value, text)
-        target = out.setdefault(sym, {}) if per_element else out
-        if label in target:
-            raise InputError(f"--zeta {text!r}: {label} is given twice")
-        target[label] = v
-    return out
-
-
-def load_zeta_file(path) -> dict[str, dict[str, float]]:
-    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
-    import sys
-
-    from .elements import normalise_symbol
-
-    if sys.version_info >= (3, 11):
-        import tomllib
-    else:  # pragma: no cover - Python 3.10
-        import tomli as tomllib
-    try:
-        with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
-    except OSError as err:
-        raise InputError(f"zeta file {str(path)!r}: cannot read it ({err.strerror})") from None
-    except tomllib.TOMLDecodeError as err:
-        raise InputError(f"zeta file {str(path)!r}: not valid TOML ({err})") from None
-    out: dict[str, dict[str, float]] = {}
-    for sym, table in doc.items():
-        try:
-            symbol = normalise_symbol(sym)
-        except InputError as err:
-            raise InputError(f"zeta file {str(path)!r}: {err}") from None
-        if not isinstance(table, dict):
-            raise InputError(f"zeta file {str(path)!r}: {sym} must be a table of LABEL = VALUE")
-        entry = out.setdefault(symbol, {})
-        for label, value in table.items():
-            try:
-                n, l = parse_subshell_label(str(label))
-            except InputError as err:
-                raise InputError(f"zeta file {str(path)!r}: [{sym}] {err}") from None
-            if isinstance(value, bool) or not isinstance(value, (int, float)):
-                raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} is not a number")
-            if not (math.isfinite(value) and value > 0):
-                raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} must be positive")
-            entry[f"{n}{L_LETTERS[l]}"] = float(value)
-    return out
-
-
-__all__ = ["AtomResult", "OrbitalEnergy", "apply_zeta_overrides", "atom_energy", "atom_report", "describe_state",
-           "gaussian_energy", "load_zeta_file", "optimize_zeta", "parse_zeta_overrides", "pick_method"]
+__all__ = ["AtomResult", "OrbitalEnergy", "atom_energy", "describe_state", "optimize_zeta", "pick_method"]

@@ -36,91 +36,22 @@ from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from functools import lru_cache
 
-from . import __version__
 from .errors import InputError
+from .files import TEMP_PREFIX
+from .naming import COMPRESSIONS as _COMPRESSIONS, structure_name
+from .options import BuildOptions
 
 MANIFEST_NAME = "stobuilder-batch.jsonl"
 STATUSES = ("done", "failed", "skipped")
-TEMP_PREFIX = ".stobuilder-"  # stobuilder.files.atomic_write's temporary files
 # Extensions ASE reads that, in a folder of structures, are almost always something else:
 # Markdown (ASE: CASTEP .md trajectories). Name such files explicitly to read them.
 SKIPPED_EXTENSIONS = frozenset({"md"})
 # ASE format names that are not file extensions (servers, folder formats).
 _NOT_EXTENSIONS = frozenset({"mysql", "postgresql", "bundletrajectory"})
-_COMPRESSIONS = ("gz", "bz2", "xz")
 MAX_POOL_RESTARTS = 2  # a local pool whose worker process died is rebuilt this often
 
 
 # ---------------------------------------------------------------------------- data
-
-
-@dataclass(frozen=True)
-class BatchOptions:
-    """Everything that decides an item's output; recorded with every item and compared on resume.
-
-    rule, gaussians, codes, sp_shells, norm, exponents, radial  as for ``build_structures``
-    check             run the SCF checks (the first ``max_check_frames`` frames)
-    method            SCF method for the checks ("auto", "rhf", "rohf", "uhf")
-    charge, spin      override the file's charge (e) and 2S; None keeps the file's
-    """
-
-    rule: str = "slater"
-    gaussians: int = 3
-    codes: tuple[str, ...] = ("nwchem",)
-    check: bool = False
-    method: str = "auto"
-    charge: int | None = None
-    spin: int | None = None
-    sp_shells: bool = False
-    norm: str = "l2"
-    exponents: str = "family"
-    radial: str = "integer"
-    max_check_frames: int = 3
-
-    def validate(self) -> "BatchOptions":
-        """Return the options with codes de-duplicated; raise InputError for a bad value."""
-        from .checks import METHODS
-        from .formats import get_format
-        from .screening import get_rule
-
-        get_rule(self.rule)
-        if not self.codes:
-            raise InputError("no output format given")
-        for code in self.codes:
-            get_format(code)
-        if isinstance(self.gaussians, bool) or not isinstance(self.gaussians, int) or self.gaussians < 1:
-            raise InputError(f"--gaussians must be a whole number >= 1, got {self.gaussians!r}")
-        if self.method not in METHODS:
-            raise InputError(f"unknown SCF method {self.method!r}; choose one of {', '.join(METHODS)}")
-        from .build import EXPONENT_MODES, RADIAL_FORMS
-        from .expansion.fit import NORMS
-
-        if self.norm not in NORMS:
-            raise InputError(f"unknown fitting norm {self.norm!r}; choose one of {', '.join(NORMS)}")
-        if self.exponents not in EXPONENT_MODES:
-            raise InputError(f"unknown exponent mode {self.exponents!r}; choose one of {', '.join(EXPONENT_MODES)}")
-        if self.radial not in RADIAL_FORMS:
-            raise InputError(f"unknown radial form {self.radial!r}; choose one of {', '.join(RADIAL_FORMS)}")
-        if self.max_check_frames < 1:
-            raise InputError(f"max_check_frames must be >= 1, got {self.max_check_frames}")
-        return replace(self, codes=tuple(dict.fromkeys(self.codes)))
-
-    def to_json(self) -> dict:
-        return {
-            "rule": self.rule,
-            "gaussians": self.gaussians,
-            "codes": list(self.codes),
-            "check": self.check,
-            "method": self.method,
-            "charge": self.charge,
-            "spin": self.spin,
-            "sp_shells": self.sp_shells,
-            "norm": self.norm,
-            "exponents": self.exponents,
-            "radial": self.radial,
-            "max_check_frames": self.max_check_frames,
-            "stobuilder": __version__,
-        }
 
 
 @dataclass(frozen=True)
@@ -135,10 +66,10 @@ class BatchItem:
     name: str
 
     def output_files(self, codes: Iterable[str]) -> dict[str, str]:
-        """code → output path relative to the output folder."""
-        from .formats import get_format
+        """code → output path relative to the output folder (``naming.output_file``)."""
+        from .naming import output_file
 
-        return {code: self.name + get_format(code).extension for code in codes}
+        return {code: output_file(self.name, code) for code in codes}
 
 
 @dataclass(frozen=True)
@@ -146,7 +77,7 @@ class Task:
     """What a worker gets: one item, the options, and the OpenMP threads for its SCF checks."""
 
     item: BatchItem
-    options: BatchOptions
+    options: BuildOptions
     threads: int = 1
 
 
@@ -320,12 +251,7 @@ def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchIt
     root = os.path.commonpath(anchors)
     items, seen = [], {}
     for path in unique:
-        rel = os.path.relpath(path, root)
-        stem = rel
-        if os.path.splitext(stem)[1][1:].lower() in _COMPRESSIONS:
-            stem = os.path.splitext(stem)[0]
-        stem = os.path.splitext(stem)[0] or stem
-        name = stem.replace(os.sep, "/")
+        name = structure_name(os.path.relpath(path, root))
         if name in seen:
             raise InputError(f"{path} and {seen[name]} would both be named {name!r} in the output folder; rename one")
         seen[name] = path
@@ -345,48 +271,7 @@ def sha256_file(path: str) -> str:
 # ---------------------------------------------------------------------------- the worker
 
 
-def basis_key(frames, options: BatchOptions) -> tuple:
-    """The content key of an item's basis: everything ``pipeline.basis_for`` looks at (the
-    element set; for single-atom structures, the ion charges) and the options that shape it."""
-    from .structures import elements_of
-
-    single_atom = all(len(f.symbols) == 1 for f in frames)
-    charges = tuple(sorted({f.charge for f in frames})) if single_atom else ()
-    return (
-        elements_of(tuple(frames)), single_atom, charges, options.rule, options.gaussians, options.norm,
-        options.exponents, options.radial,
-    )
-
-
-_BASIS_CACHE: dict[tuple, object] = {}
-_TEXT_CACHE: dict[tuple, str] = {}
-_CACHE_LIMIT = 4096  # distinct element sets kept per worker process
-
-
-def _cached_basis(key: tuple, frames, options: BatchOptions):
-    """One basis construction per content key and worker process."""
-    from .pipeline import basis_for
-
-    basis = _BASIS_CACHE.get(key)
-    if basis is None:
-        basis = basis_for(
-            frames, options.rule, options.gaussians, options.norm, exponents=options.exponents, radial=options.radial
-        )
-        if len(_BASIS_CACHE) >= _CACHE_LIMIT:
-            _BASIS_CACHE.clear()
-            _TEXT_CACHE.clear()
-        _BASIS_CACHE[key] = basis
-    return basis
-
-
-def _cached_text(key: tuple, basis, code: str, sp_shells: bool) -> str:
-    from .formats import write_basis
-
-    text_key = (key, code, sp_shells)
-    text = _TEXT_CACHE.get(text_key)
-    if text is None:
-        text = _TEXT_CACHE[text_key] = write_basis(basis, code, sp_shells=sp_shells)
-    return text
+_PREPARE_CACHE: dict = {}  # one basis and one text per content key and worker process (pipeline.prepare)
 
 
 def _named(path: str, message: str) -> str:
@@ -399,10 +284,12 @@ def run_item(task: Task) -> ItemOutcome:
 
     The worker function of every batch: top level and picklable, it reads but never writes, and
     reports every problem of the item (unreadable file, element beyond the rule, SCF not
-    converged) in ``ItemOutcome.error`` instead of raising.
+    converged) in ``ItemOutcome.error`` instead of raising. It walks the path of ``build``
+    (``pipeline.prepare`` and ``pipeline.run_checks``); an item with an error carries no texts,
+    so nothing is written for it.
     """
-    from .checks import check_structure
-    from .structures import elements_of, read_structures
+    from .pipeline import prepare, run_checks
+    from .structures import elements_of
 
     item, options = task.item, task.options
     start = time.perf_counter()
@@ -416,7 +303,8 @@ def run_item(task: Task) -> ItemOutcome:
                            timings={"total_s": time.perf_counter() - start})
     partial: dict = {}
     try:
-        frames = read_structures(item.path, charge=options.charge, spin=options.spin)
+        prepared = prepare(item.path, options, name=item.name, cache=_PREPARE_CACHE)
+        frames = prepared.frames
         first = frames[0]
         partial = dict(
             elements=elements_of(frames),
@@ -425,47 +313,29 @@ def run_item(task: Task) -> ItemOutcome:
             charge=first.charge,
             spin=first.spin,
         )
-        timings["read_s"] = time.perf_counter() - start
-        t = time.perf_counter()
-        key = basis_key(frames, options)
-        basis = _cached_basis(key, frames, options)
-        paths = item.output_files(options.codes)
-        texts = tuple((code, paths[code], _cached_text(key, basis, code, options.sp_shells)) for code in options.codes)
-        partial["texts"] = texts
-        timings["basis_s"] = time.perf_counter() - t
-        notes = tuple(n for f in frames for n in f.notes)
+        timings["basis_s"] = time.perf_counter() - start
+        texts = prepared.texts
         checks: tuple[dict, ...] = ()
         error = None
         if options.check:
             t = time.perf_counter()
-            checked = frames[: options.max_check_frames]
-            results = _run_checks(checked, basis, options.method, task.threads, check_structure)
-            checks = tuple(c.to_json() for c in results)
-            if len(frames) > len(checked):
-                notes += (f"checked the first {len(checked)} of {len(frames)} frames",)
+            prepared = run_checks(prepared, options, threads=task.threads)
+            checks = tuple(c.to_json() for c in prepared.checks)
             timings["check_s"] = time.perf_counter() - t
-            bad = [f.frame for f, c in zip(checked, results) if not c.converged]
+            bad = [f.frame for f, c in zip(prepared.checked, prepared.checks) if not c.converged]
             if bad:
                 which = "" if len(frames) == 1 else f" (frame {', '.join(map(str, bad))})"
-                error = f"{item.path}: SCF not converged{which}"
+                error = f"{item.path}: SCF not converged{which}; no files written"
+                texts = ()
         timings["total_s"] = time.perf_counter() - start
-        return ItemOutcome(item, sha, checks=checks, notes=notes, error=error, timings=timings, worker=worker, **partial)
+        return ItemOutcome(item, sha, texts=texts, checks=checks, notes=prepared.notes, error=error,
+                           timings=timings, worker=worker, **partial)
     except InputError as exc:
         message = _named(item.path, str(exc))
     except Exception as exc:  # an engine failure of one item must not stop the batch
         message = _named(item.path, f"{type(exc).__name__}: {exc}")
     timings["total_s"] = time.perf_counter() - start
-    partial.pop("texts", None)
     return ItemOutcome(item, sha, error=message, timings=timings, worker=worker, **partial)
-
-
-def _run_checks(frames, basis, method, threads, check_structure):
-    """SCF checks with PySCF's OpenMP threads limited to ``threads``: a batch runs one item per
-    core, and a small molecule's SCF is slower on two threads than on one (measured here)."""
-    from pyscf import lib
-
-    with lib.with_omp_threads(threads):
-        return tuple(check_structure(f, basis, method=method) for f in frames)
 
 
 # ---------------------------------------------------------------------------- the manifest
@@ -498,7 +368,7 @@ def read_manifest(path: str) -> dict[str, dict]:
     return last
 
 
-def is_up_to_date(record: Mapping | None, input_sha256: str | None, options: BatchOptions,
+def is_up_to_date(record: Mapping | None, input_sha256: str | None, options: BuildOptions,
                   item: BatchItem, out_dir: str) -> bool:
     """True when ``record`` (the item's last) says done (or skipped after done) for the same input
     bytes and options, and every file it names still exists with the recorded hash."""
@@ -521,7 +391,7 @@ def is_up_to_date(record: Mapping | None, input_sha256: str | None, options: Bat
     return True
 
 
-def outcome_record(outcome: ItemOutcome, options: BatchOptions, files: Mapping[str, Mapping[str, str]]) -> dict:
+def outcome_record(outcome: ItemOutcome, options: BuildOptions, files: Mapping[str, Mapping[str, str]]) -> dict:
     """The manifest record of a finished item (status done or failed)."""
     return {
         "input": outcome.item.path,
@@ -717,15 +587,20 @@ def _remove_stale_temporaries(out_dir: str) -> None:
 
 
 def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str]]:
-    """Write an item's texts atomically; return code → {"path", "sha256"} (paths relative)."""
-    from .files import atomic_write, sha256_text
+    """Write an item's texts, all or none (``files.write_all``); return code → {"path", "sha256"}
+    (paths relative). InputError (naming the target) when a file cannot be written."""
+    from .files import sha256_text, write_all
 
-    files = {}
+    files, contents = {}, {}
     for code, rel, text in outcome.texts:
         target = os.path.join(out_dir, *rel.split("/"))
-        os.makedirs(os.path.dirname(target), exist_ok=True)
-        atomic_write(target, text)
+        try:
+            os.makedirs(os.path.dirname(target), exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"{os.path.dirname(target)}: cannot create the folder ({exc.strerror})") from None
+        contents[target] = text
         files[code] = {"path": rel, "sha256": sha256_text(text)}
+    write_all(contents)
     return files
 
 
@@ -746,7 +621,7 @@ def local_executor(workers: int) -> cf.Executor:
 
 def run_batch(
     items: Sequence[BatchItem],
-    options: BatchOptions,
+    options: BuildOptions,
     out_dir: str,
     executor: cf.Executor | None = None,
     workers: int | None = None,
@@ -772,7 +647,8 @@ def run_batch(
     item's problem becomes a failed record and never stops the batch.
     """
     start = time.perf_counter()
-    options = options.validate()
+    if not isinstance(options, BuildOptions):
+        raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     prepare_out_dir(out_dir, force)
     path = manifest_path(out_dir)
     manifest = _Manifest(path)
@@ -800,9 +676,8 @@ def run_batch(
         def finish(outcome: ItemOutcome) -> None:
             try:
                 files = write_outcome(outcome, out_dir)
-            except OSError as exc:
-                where = exc.filename or out_dir
-                outcome = replace(outcome, texts=(), error=f"{outcome.item.path}: cannot write {where} ({exc.strerror})")
+            except InputError as exc:
+                outcome = replace(outcome, texts=(), error=f"{outcome.item.path}: {exc}; no files written")
                 files = {}
             record = outcome_record(outcome, options, files)
             manifest.append([record])
@@ -893,7 +768,7 @@ def dask_executor(address: str):
 
 __all__ = [
     "BatchItem",
-    "BatchOptions",
+    "BuildOptions",
     "BatchSummary",
     "ItemOutcome",
     "MANIFEST_NAME",

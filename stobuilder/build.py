@@ -18,7 +18,6 @@ of r^(n−1) e^(−ζr).
 from __future__ import annotations
 
 import math
-from numbers import Real
 from collections.abc import Iterable, Mapping
 from itertools import groupby
 
@@ -26,6 +25,7 @@ from .basis import Basis, ElementBasis, Shell
 from .elements import Configuration, looks_like_configuration, normalise_symbol, resolve
 from .errors import InputError
 from .expansion import lookup
+from .limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
 from .screening import ShellExponent, shell_exponents
 
 ZetaOverrides = Mapping[str, float]
@@ -49,11 +49,7 @@ def apply_zeta_overrides(
         key = str(label).strip()
         if key not in known:
             raise InputError(f"zeta override {label!r}{where}: not a basis subshell (basis: {', '.join(known)})")
-        if isinstance(value, bool) or not isinstance(value, Real):
-            raise InputError(f"zeta override {key}={value!r}{where}: not a number")
-        v = float(value)
-        if not (math.isfinite(v) and v > 0):
-            raise InputError(f"zeta override {key}={value!r}{where}: must be a positive number")
+        v = zeta_value(value, f"zeta override {key}={value!r}{where}")
         s = known[key]
         out[key] = ShellExponent(s.label, s.n, s.l, v * s.n_eff, s.n_eff, v)
     return tuple(out[s.label] for s in stos)
@@ -68,7 +64,18 @@ def sto_exponents(
 ) -> tuple[Configuration, tuple[ShellExponent, ...]]:
     """The configuration and the STO exponents of every basis subshell of one element."""
     conf = resolve(element, charge, configuration)
-    stos = apply_zeta_overrides(shell_exponents(conf, rule), zeta, f" for {conf.symbol}")
+    stos = shell_exponents(conf, rule)
+    for s in stos:
+        if ZETA_MIN <= s.zeta <= ZETA_MAX:  # also False for NaN
+            continue
+        where = f"{conf.symbol}{f' (charge {conf.charge:+d})' if conf.charge else ''} {conf.label}"
+        if not (math.isfinite(s.zeta) and s.zeta > 0):
+            raise InputError(
+                f"{where}: rule {rule} gives subshell {s.label} ζ = {s.zeta:.6g} (Zeff = {s.zeff:.6g}); "
+                "the screening leaves it no positive effective charge"
+            )
+        zeta_value(s.zeta, f"{where}: rule {rule}, subshell {s.label}")
+    stos = apply_zeta_overrides(stos, zeta, f" for {conf.symbol}")
     return conf, stos
 
 
@@ -121,6 +128,9 @@ def expand(
             raise InputError(f"subshells {', '.join(labels)}: {exc}") from None
         for s in family:
             scale = (family[0].zeta if exponents == "shared" else s.zeta) ** 2
+            for a in (min(fit.exponents), max(fit.exponents)):
+                if not EXPONENT_MIN <= a * scale <= EXPONENT_MAX:
+                    exponent_value(a * scale, f"subshell {s.label} (ζ = {s.zeta:g})")
             shells.append(
                 Shell(
                     l=s.l,
@@ -161,7 +171,11 @@ def element_basis(
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
     conf, stos = sto_exponents(element, rule, charge, configuration, zeta)
-    return ElementBasis(conf.symbol, expand(stos, gaussians, norm, exponents, radial), conf.label, stos)
+    try:
+        shells = expand(stos, gaussians, norm, exponents, radial)
+    except InputError as exc:
+        raise InputError(f"{conf.symbol}: {exc}") from None
+    return ElementBasis(conf.symbol, shells, conf.label, stos)
 
 
 def build_basis(

@@ -9,16 +9,15 @@ A calculation that does not converge is reported as not converged, with its last
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 from .basis import Basis
 from .elements import M_FILL_ORDER, ground_state, parse_configuration
-from .errors import InputError
+from .methods import METHODS, free_atom_method, pick_method  # noqa: F401 (METHODS re-exported)
 from .structures import Structure
 
 MAX_BASIS_FUNCTIONS = 400  # beyond this a structure is checked on its free atoms
 STORED_SETS = {3: "sto-3g", 6: "sto-6g"}
-METHODS = ("auto", "rhf", "rohf", "uhf")
 
 
 @dataclass(frozen=True)
@@ -89,6 +88,7 @@ class Check:
     reason: str  # why free atoms were checked instead, "" otherwise
     results: tuple[ScfResult, ...] = field(default=())
     exact_atoms: tuple[ExactAtom, ...] = field(default=())
+    notes: tuple[str, ...] = field(default=())  # e.g. the method free atoms took instead of the one asked
 
     @property
     def converged(self) -> bool:
@@ -112,21 +112,6 @@ class Check:
             "atoms": [r.to_json() for r in self.results],
             "exact_sto_atoms": exact,
         }
-
-
-def pick_method(method: str, spin: int, what: str = "") -> str:
-    """"RHF", "ROHF" or "UHF": RHF for closed shells and ROHF for open ones under "auto"; an
-    explicit choice is validated (``what`` names the system in the message)."""
-    m = str(method).lower()
-    if m not in METHODS:
-        raise InputError(f"unknown SCF method {method!r}; choose one of {', '.join(METHODS)}")
-    if m == "auto":
-        return "RHF" if spin == 0 else "ROHF"
-    if m == "rhf" and spin != 0:
-        raise InputError(
-            f"RHF needs a closed shell{' ' + what if what else ''}; it has {spin} unpaired electrons (spin {spin})"
-        )
-    return m.upper()
 
 
 def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom", symmetry: bool = False):
@@ -258,14 +243,31 @@ def _atom_solver(occupations, method: str):
     return configure
 
 
+def _configuration(basis: Basis, symbol: str):
+    element = basis[symbol]
+    return parse_configuration(element.configuration, symbol) if element.configuration else ground_state(symbol)
+
+
+def _atom_methods(basis: Basis, symbols, method: str) -> tuple[dict[str, str], tuple[str, ...]]:
+    """The method each free atom takes beside a structure (``methods.free_atom_method``), and the
+    notes that say where it is not the one asked for."""
+    chosen, notes = {}, []
+    for symbol in symbols:
+        conf = _configuration(basis, symbol)
+        chosen[symbol], note = free_atom_method(method, conf.unpaired, f"free atom {symbol} {conf.label}")
+        if note:
+            notes.append(note)
+    return chosen, tuple(notes)
+
+
 def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: bool = True) -> ScfResult:
     """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for:
     the high-spin single determinant of ``irrep_occupations``, held fixed through PySCF's atomic
     (SO3) symmetry so that the SCF cannot drift to another configuration."""
-    element = basis[symbol]
-    conf = parse_configuration(element.configuration, symbol) if element.configuration else ground_state(symbol)
+    conf = _configuration(basis, symbol)
     spin = conf.unpaired
-    m = pick_method(method, spin)
+    m = pick_method(method, spin, f"({symbol} {conf.label})")
+    element = basis[symbol]
     atoms = [(symbol, (0.0, 0.0, 0.0))]
     mol = make_mole(atoms, {symbol: element.to_pyscf()}, conf.charge, spin, symmetry=True)
     configure = _atom_solver(irrep_occupations(conf), m)
@@ -284,13 +286,21 @@ def check_structure(
 ) -> Check:
     """Check ``basis`` on ``structure``: SCF of the structure itself, or of its free atoms when the
     structure is periodic or has more than ``max_basis_functions`` basis functions."""
-    pyscf_basis = {s: basis[s].to_pyscf() for s in structure.elements}
     atoms = list(zip(structure.symbols, structure.positions))
+    methods, notes = _atom_methods(basis, structure.elements, method)
     reason = ""
     if structure.periodic:
         reason = "periodic structure: checked on the free atoms of each element"
+    elif len(structure.symbols) == 1 and _is_its_configuration(basis, structure):
+        # a free atom or ion in the state its basis was built for: the same fixed-occupation SCF
+        # as ``stobuilder atom`` (check_free_atom), so both give the same energy
+        symbol = structure.symbols[0]
+        m = pick_method(method, structure.spin, f"({structure.formula})")
+        result = replace(check_free_atom(basis, symbol, m.lower(), reference), label=structure.formula)
+        return Check("structure", "", (result,), exact_sto_atoms(basis, structure.elements, method), notes)
     else:
-        m = pick_method(method, structure.spin)
+        pyscf_basis = {s: basis[s].to_pyscf() for s in structure.elements}
+        m = pick_method(method, structure.spin, f"({structure.formula})")
         mol = make_mole(atoms, pyscf_basis, structure.charge, structure.spin)
         if mol.nao > max_basis_functions:
             reason = (
@@ -304,10 +314,15 @@ def check_structure(
                 )
             else:
                 result = run_scf(mol, m, structure.formula)
-            return Check("structure", "", (result,), exact_sto_atoms(basis, structure.elements, method))
-    results = tuple(check_free_atom(basis, s, method, reference) for s in structure.elements)
+            return Check("structure", "", (result,), exact_sto_atoms(basis, structure.elements, method), notes)
+    results = tuple(check_free_atom(basis, s, methods[s].lower(), reference) for s in structure.elements)
     gaussian = {s: r.energy_hartree for s, r in zip(structure.elements, results) if r.converged}
-    return Check("free atoms", reason, results, exact_sto_atoms(basis, structure.elements, method, gaussian))
+    return Check("free atoms", reason, results, exact_sto_atoms(basis, structure.elements, method, gaussian), notes)
+
+
+def _is_its_configuration(basis: Basis, structure: Structure) -> bool:
+    conf = _configuration(basis, structure.symbols[0])
+    return conf.charge == structure.charge and conf.unpaired == structure.spin
 
 
 def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) -> tuple[ExactAtom, ...]:
@@ -317,6 +332,7 @@ def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) 
     non-integer n* (``radial="effective-n"``), which the exact-STO integrals do not cover."""
     from .atomic import atom_energy
 
+    methods, _ = _atom_methods(basis, symbols, method)
     out = []
     for symbol in symbols:
         element = basis[symbol]
@@ -329,12 +345,12 @@ def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) 
             rule=basis.rule,
             configuration=element.configuration,
             zeta={s.label: s.zeta for s in element.stos},
-            method=method,
+            method=methods[symbol].lower(),
         )
         if gaussian is not None and symbol in gaussian:
             e_gauss = gaussian[symbol]
         else:
-            r = check_free_atom(basis, symbol, method, reference=False)
+            r = check_free_atom(basis, symbol, methods[symbol].lower(), reference=False)
             if not r.converged:
                 continue
             e_gauss = r.energy_hartree

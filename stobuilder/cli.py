@@ -9,7 +9,7 @@ import argparse
 import json
 import sys
 
-from . import __version__
+from .version import __version__
 from .errors import InputError
 
 EXIT_BAD_INPUT = 2
@@ -36,31 +36,19 @@ def _add_rule(p, default="slater"):
     p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
 
 
-def _add_fit_options(p):
-    from .build import RADIAL_FORMS
-    from .expansion.fit import NORMS
-
-    p.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
-    group = p.add_mutually_exclusive_group()
-    group.add_argument(
-        "--shared-exponents", action="store_true",
-        help="one exponent set per n, fitted jointly at the rule's zeta ratios (allows sp shells)",
-    )
-    group.add_argument("--separate-fits", action="store_true", help="fit every subshell on its own")
-    p.add_argument(
-        "--radial", choices=RADIAL_FORMS, default="integer",
-        help="STO radial form: integer n, or the rule's effective n* (default integer)",
-    )
-
-
-def _exponent_mode(args) -> str:
-    return "shared" if args.shared_exponents else "separate" if args.separate_fits else "family"
+def _print_json(doc) -> None:
+    """Print strict JSON (no NaN or Infinity)."""
+    try:
+        text = json.dumps(doc, indent=2, allow_nan=False)
+    except ValueError:
+        raise InputError("the result holds a number that is not finite; nothing printed") from None
+    print(text)
 
 
 def _parser() -> argparse.ArgumentParser:
-    from .checks import METHODS
-    from .formats import formats
     from .expansion.fit import NORMS
+    from .methods import METHODS
+    from .options import add_arguments
 
     parser = _Parser(prog="stobuilder", description="Slater-type-orbital minimal bases expanded in Gaussians.")
     parser.add_argument("--version", action="version", version=f"stobuilder {__version__}")
@@ -68,21 +56,9 @@ def _parser() -> argparse.ArgumentParser:
 
     b = sub.add_parser("build", help="basis files (and SCF checks) for structure files")
     b.add_argument("structures", nargs="+", metavar="STRUCTURE", help="structure files ASE reads")
-    _add_rule(b)
-    b.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
-    b.add_argument(
-        "--code",
-        action="append",
-        metavar="CODE",
-        help=f"output format, repeatable: {', '.join(formats())}, or all (default nwchem)",
-    )
+    add_arguments(b, _whole_number)
     b.add_argument("--out", default="basis", metavar="DIR", help="output folder (default ./basis)")
     b.add_argument("--force", action="store_true", help="overwrite existing output files")
-    b.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis")
-    b.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
-    b.add_argument("--charge", type=int, help="total charge (overrides the file)")
-    b.add_argument("--spin", type=int, help="2S, the number of unpaired electrons (overrides the file)")
-    b.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
     b.add_argument(
         "--split-elements", action="store_true", help="one file per element: <structure>.<Symbol><extension>"
     )
@@ -91,18 +67,13 @@ def _parser() -> argparse.ArgumentParser:
         metavar="FILE",
         help="add or replace our elements in this existing basis file (one format; the old file is kept as FILE.bak)",
     )
-    b.add_argument(
-        "--zeta", action="append", metavar="ELEMENT:LABEL=VALUE", help="your own ζ for one subshell, e.g. Fe:3d=2.1 (repeatable)"
-    )
-    b.add_argument("--zeta-file", metavar="FILE.toml", help="your own ζ: a TOML table per element, e.g. [Fe] 3d = 2.1")
-    _add_fit_options(b)
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
 
     t = sub.add_parser("atom", help="one atom with exact STOs: energy, ζ, virial ratio, Gaussian-expansion error")
     t.add_argument("element", metavar="ELEMENT", help='element symbol, or a configuration such as "[Ar] 3d7 4s1"')
     _add_rule(t)
     t.add_argument("--configuration", metavar="CONFIG", help='explicit configuration, e.g. "1s2 2s1 2p3"')
-    t.add_argument("--charge", type=int, default=0, help="ion charge (default 0)")
+    t.add_argument("--charge", type=_whole_number, default=0, help="ion charge (default 0)")
     t.add_argument("--zeta", action="append", metavar="LABEL=VALUE", help="your own ζ for one subshell, e.g. 1s=1.6875")
     t.add_argument("--optimize", action="store_true", help="optimise every ζ variationally (from the rule's values)")
     t.add_argument(
@@ -126,17 +97,7 @@ def _parser() -> argparse.ArgumentParser:
     a.add_argument("--out", required=True, metavar="DIR", help="output folder; holds the files and the manifest")
     a.add_argument("--workers", type=_whole_number, metavar="N", help="local worker processes (default: the usable cores)")
     a.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786 (needs stobuilder[cluster])")
-    _add_rule(a)
-    a.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
-    a.add_argument(
-        "--code", action="append", metavar="CODE", help=f"output format, repeatable: {', '.join(formats())} (default nwchem)"
-    )
-    a.add_argument("--check", action="store_true", help="run PySCF SCF checks; an unconverged SCF fails the item")
-    a.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
-    a.add_argument("--charge", type=int, help="total charge of every structure (overrides the files)")
-    a.add_argument("--spin", type=int, help="2S of every structure (overrides the files)")
-    a.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
-    _add_fit_options(a)
+    add_arguments(a, _whole_number)
     a.add_argument("--force", action="store_true", help="recompute every item, whatever the manifest says")
     a.add_argument(
         "--progress", choices=("auto", "bar", "lines", "off"), default="auto",
@@ -155,7 +116,7 @@ def _parser() -> argparse.ArgumentParser:
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
     _add_rule(z)
-    z.add_argument("--charge", type=int, default=0, help="ion charge (default 0)")
+    z.add_argument("--charge", type=_whole_number, default=0, help="ion charge (default 0)")
     z.add_argument("--json", action="store_true", help="print JSON")
     return parser
 
@@ -164,45 +125,23 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _cmd_build(args) -> int:
+    from .formats import format_for_path
+    from .options import from_args
     from .pipeline import build_structures
 
+    options = from_args(args)
+    if args.merge_into and not args.code:
+        options = options.replace(codes=(format_for_path(args.merge_into),))
     reports = build_structures(
-        args.structures,
-        rule=args.rule,
-        gaussians=args.gaussians,
-        codes=args.code,
-        out_dir=args.out,
-        check=args.check,
-        force=args.force,
-        charge=args.charge,
-        spin=args.spin,
-        method=args.method,
-        sp_shells=args.sp_shells,
-        split_elements=args.split_elements,
+        args.structures, options, out_dir=args.out, force=args.force, split_elements=args.split_elements,
         merge_into=args.merge_into,
-        zeta=_build_zeta(args),
-        norm=args.fit,
-        exponents=_exponent_mode(args),
-        radial=args.radial,
     )
     if args.json:
-        print(json.dumps({"structures": [r.to_json() for r in reports]}, indent=2))
+        _print_json({"structures": [r.to_json() for r in reports]})
     else:
         for r in reports:
             print(_build_table(r))
     return 0
-
-
-def _build_zeta(args) -> dict | None:
-    """--zeta-file, then --zeta items on top: {symbol: {label: ζ}}."""
-    from .atomic import load_zeta_file, parse_zeta_overrides
-
-    zeta: dict = {}
-    if args.zeta_file:
-        zeta = load_zeta_file(args.zeta_file)
-    for symbol, table in parse_zeta_overrides(args.zeta or [], per_element=True).items():
-        zeta.setdefault(symbol, {}).update(table)
-    return zeta or None
 
 
 def _fmt_energy(e):
@@ -260,19 +199,9 @@ def _cmd_batch(args) -> int:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be >= 1, got {args.workers}")
-    options = batch.BatchOptions(
-        rule=args.rule,
-        gaussians=args.gaussians,
-        codes=tuple(args.code or ["nwchem"]),
-        check=args.check,
-        method=args.method,
-        charge=args.charge,
-        spin=args.spin,
-        sp_shells=args.sp_shells,
-        norm=args.fit,
-        exponents=_exponent_mode(args),
-        radial=args.radial,
-    ).validate()
+    from .options import from_args
+
+    options = from_args(args)
     items = batch.discover(args.inputs, exclude=args.out)
     client = executor = None
     if args.scheduler:
@@ -286,7 +215,7 @@ def _cmd_batch(args) -> int:
         if client is not None:
             client.close()
     if args.json:
-        print(json.dumps(summary.to_json(), indent=2))
+        _print_json(summary.to_json())
     else:
         for path, error in summary.failures:
             print(f"failed: {error}")
@@ -301,7 +230,8 @@ def _cmd_batch(args) -> int:
 
 
 def _cmd_atom(args) -> int:
-    from .atomic import atom_report, parse_zeta_overrides
+    from .atom import atom_report
+    from .options import parse_zeta_overrides
 
     doc = atom_report(
         args.element,
@@ -315,7 +245,7 @@ def _cmd_atom(args) -> int:
         norm=args.fit,
     )
     if args.json:
-        print(json.dumps(doc, indent=2))
+        _print_json(doc)
         return 0
     print(f"{doc['element']} {doc['configuration']}: {doc['state']}")
     source = "optimised" if args.optimize else f"rule {args.rule}" + (", your own ζ" if args.zeta else "")
@@ -341,7 +271,10 @@ def _cmd_fit(args) -> int:
     from .expansion import lookup
     from .expansion.report import fit_document, fit_table
 
+    from .limits import zeta_value
+
     labels = [x for item in args.subshells for x in item.split(",") if x]
+    zeta_value(args.zeta, "--zeta")
     fit = lookup(labels, args.gaussians, args.fit)
     doc = fit_document(fit, args.zeta)  # validates --zeta
     if args.plot:
@@ -349,7 +282,7 @@ def _cmd_fit(args) -> int:
 
         doc["plot"] = plot_fit(fit, args.plot, args.zeta)
     if args.json:
-        print(json.dumps(doc, indent=2))
+        _print_json(doc)
     else:
         print(fit_table(fit, args.zeta))
         if args.plot:
@@ -380,7 +313,7 @@ def _cmd_zeta(args) -> int:
                 for conf, stos in entries
             ],
         }
-        print(json.dumps(doc, indent=2))
+        _print_json(doc)
         return 0
     for conf, stos in entries:
         charge = f", charge {conf.charge:+d}" if conf.charge else ""
@@ -400,7 +333,7 @@ def _cmd_formats(args) -> int:
     table = formats().values()
     if args.json:
         doc = {"formats": [{"name": f.name, "extension": f.extension, "description": f.description} for f in table]}
-        print(json.dumps(doc, indent=2))
+        _print_json(doc)
         return 0
     print(f"{'name':<12}{'extension':<16}description")
     for f in table:

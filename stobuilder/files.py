@@ -1,30 +1,142 @@
-"""Writing output files safely: everything is checked first, then each file is written to a
-temporary file in the same folder and renamed into place, so no reader ever sees half a file."""
+"""Writing files safely, the one owner of it in stobuilder.
+
+Every file we write goes through a temporary file in the target's own folder (flushed and
+fsynced, its mode set from the umask, or kept from the file it replaces) and an atomic rename,
+so no reader ever sees half a file. ``write_all`` stages every file of a job first and renames
+them only when all are staged: a job writes all of its files or none. Errors name the target,
+never the temporary file.
+"""
 
 from __future__ import annotations
 
 import hashlib
 import os
+import stat
 import tempfile
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 
 from .errors import InputError
 
+TEMP_PREFIX = ".stobuilder-"
+TEMP_SUFFIX = ".tmp"
 
-def atomic_write(path: str, text: str) -> None:
-    """Write ``text`` to ``path`` through a temporary file and an atomic rename."""
+
+def default_mode() -> int:
+    """The mode a new file gets: 0o666 less the process umask (what ``open(path, "w")`` gives)."""
+    mask = os.umask(0)
+    os.umask(mask)
+    return 0o666 & ~mask
+
+
+def _mode_for(path: str, keep_mode: bool) -> int:
+    if keep_mode:
+        try:
+            return stat.S_IMODE(os.stat(path).st_mode)
+        except OSError:
+            pass
+    return default_mode()
+
+
+def _cannot(path: str, exc: OSError) -> InputError:
+    return InputError(f"{path}: cannot write it ({exc.strerror or exc})")
+
+
+def stage(path: str, data: str | bytes | Callable[[str], None], keep_mode: bool = False) -> str:
+    """Write a temporary file beside ``path`` with ``data`` (text, written UTF-8 with "\\n" line
+    ends; bytes; or a function that writes the file it is given) and return its name. The mode is
+    the umask's, or with ``keep_mode`` that of the existing ``path``. InputError names ``path``."""
     folder = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(prefix=".stobuilder-", suffix=".tmp", dir=folder)
     try:
-        with os.fdopen(fd, "w", encoding="utf-8", newline="\n") as handle:
-            handle.write(text)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
+        fd, tmp = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
+    except OSError as exc:
+        raise _cannot(path, exc) from None
+    try:
+        os.fchmod(fd, _mode_for(path, keep_mode))
+        if callable(data):
+            os.close(fd)
+            fd = -1
+            data(tmp)
+            with open(tmp, "rb+") as handle:
+                os.fsync(handle.fileno())
+        else:
+            raw = data.encode("utf-8") if isinstance(data, str) else bytes(data)
+            with os.fdopen(fd, "wb") as handle:
+                fd = -1
+                handle.write(raw)
+                handle.flush()
+                os.fsync(handle.fileno())
+    except BaseException as exc:
+        if fd >= 0:
+            os.close(fd)
+        _unlink(tmp)
+        if isinstance(exc, OSError):
+            raise _cannot(path, exc) from None
         raise
+    return tmp
+
+
+def _unlink(path: str) -> None:
+    try:
+        os.unlink(path)
+    except OSError:
+        pass
+
+
+def atomic_write(path: str | os.PathLike, data: str | bytes | Callable[[str], None], keep_mode: bool = False) -> None:
+    """Write ``data`` to ``path`` through a temporary file and an atomic rename (see ``stage``)."""
+    write_all({os.fspath(path): data}, keep_mode=keep_mode)
+
+
+def write_all(contents: Mapping[str, str | bytes], out_dir: str | None = None, keep_mode: bool = False) -> None:
+    """Write every file of ``contents`` (path → data) or none: create ``out_dir`` if needed, stage
+    every file, then rename them into place. If staging fails, nothing is renamed; if a rename
+    fails, the files already renamed are put back as they were (a replaced file from its hard-link
+    backup) as far as the file system allows."""
+    if out_dir is not None:
+        try:
+            os.makedirs(out_dir, exist_ok=True)
+        except OSError as exc:
+            raise InputError(f"{out_dir}: cannot create the output folder ({exc.strerror})") from None
+    staged: list[tuple[str, str]] = []
+    try:
+        for path, data in contents.items():
+            staged.append((path, stage(path, data, keep_mode)))
+    except BaseException:
+        for _, tmp in staged:
+            _unlink(tmp)
+        raise
+    done: list[tuple[str, str | None]] = []  # (target, backup of the file it replaced)
+    try:
+        for path, tmp in staged:
+            backup = None
+            if os.path.lexists(path) and not os.path.islink(path):
+                backup = tmp[: -len(TEMP_SUFFIX)] + "-old" + TEMP_SUFFIX
+                try:
+                    os.link(path, backup)
+                except OSError:
+                    backup = None
+            try:
+                os.replace(tmp, path)
+            except OSError as exc:
+                if backup:
+                    _unlink(backup)
+                raise _cannot(path, exc) from None
+            done.append((path, backup))
+    except BaseException:
+        for path, backup in reversed(done):
+            if backup:
+                try:
+                    os.replace(backup, path)
+                except OSError:
+                    pass
+            else:
+                _unlink(path)
+        for _, tmp in staged:
+            _unlink(tmp)
+        raise
+    for _, backup in done:
+        if backup:
+            _unlink(backup)
 
 
 def check_targets(targets: Mapping[str, str], force: bool) -> None:
@@ -36,20 +148,10 @@ def check_targets(targets: Mapping[str, str], force: bool) -> None:
         if real in seen:
             raise InputError(f"{source} and {seen[real]} would both write {path}")
         seen[real] = source
-        if os.path.exists(path) and not force:
-            raise InputError(f"{path} exists; use --force to overwrite it")
         if os.path.isdir(path):
             raise InputError(f"{path} is a folder")
-
-
-def write_all(contents: Mapping[str, str], out_dir: str) -> None:
-    """Create ``out_dir`` if needed and write every file atomically."""
-    try:
-        os.makedirs(out_dir, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"{out_dir}: cannot create the output folder ({exc.strerror})") from None
-    for path, text in contents.items():
-        atomic_write(path, text)
+        if os.path.exists(path) and not force:
+            raise InputError(f"{path} exists; use --force to overwrite it")
 
 
 def sha256_text(text: str) -> str:

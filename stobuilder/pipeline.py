@@ -1,23 +1,38 @@
-"""The main job as one function: structure files in, basis files (and checks) out.
+"""One path from a structure file to its basis, texts and checks, and the main job over it.
 
-The command line's ``build`` is a thin layer over ``build_structures``; pipelines call it directly.
+Every door (``build``, ``batch``'s workers, the Python API) walks the same path:
+
+    structure file ──read_structures──▶ frames (geometry checked: finite, atoms ≥ 0.1 Å apart)
+        ──basis_for(frames, options)──▶ Basis (ζ and every Gaussian exponent checked in range)
+        ──prepare──▶ Prepared: the basis and every file text, named by stobuilder.naming
+        ──run_checks──▶ the SCF checks (with ``options.check``)
+        ──files.write_all──▶ every file of the job, or none
+
+``build_structures`` prepares and checks every structure before the first file is written: a
+bad input or a check that fails (an SCF that raises, a method the structure cannot take) writes
+nothing. An SCF that does not converge is reported, not an error (the batch marks such an item
+failed, and writes nothing for it either).
 """
 
 from __future__ import annotations
 
 import os
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import dataclass, field, replace
 
 from .basis import Basis
 from .build import build_basis
-from .checks import Check, check_structure
+from .checks import Check
 from .errors import InputError
 from .files import atomic_write, check_targets, write_all
-from .formats import formats, get_format, merge_basis
-from .structures import Structure, elements_of, read_structures
+from .formats import format_for_path, get_format, merge_basis
+from .methods import pick_method
+from .naming import output_file, structure_name
+from .options import BuildOptions
+from .structures import Structure, check_geometry, elements_of, read_structures
 
-MAX_CHECK_FRAMES = 3
+__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "merge_file", "output_path",
+           "prepare", "run_checks"]
 
 
 @dataclass(frozen=True)
@@ -60,43 +75,163 @@ class StructureReport:
         return out
 
 
-def basis_for(
-    frames: Sequence[Structure], rule: str, gaussians: int, norm: str = "l2", zeta=None,
-    exponents: str = "family", radial: str = "integer",
-) -> Basis:
+@dataclass(frozen=True)
+class Prepared:
+    """A structure file on the path: its frames, basis and file texts (and, after ``run_checks``,
+    its checks).
+
+    texts   (key, file name relative to the output folder, text); key is the code, or
+            "code:Symbol" for one file per element
+    notes   the frames' notes, then what the checks add
+    """
+
+    path: str
+    name: str
+    frames: tuple[Structure, ...]
+    basis: Basis
+    texts: tuple[tuple[str, str, str], ...]
+    notes: tuple[str, ...] = ()
+    checks: tuple[Check, ...] = field(default=())
+
+    @property
+    def checked(self) -> tuple[Structure, ...]:
+        return self.frames[: len(self.checks)] if self.checks else ()
+
+
+def _single_atom_charge(frames: Sequence[Structure]) -> int | None:
+    """A structure of one atom is an atomic ion: its charge, when every frame agrees; else None."""
+    if all(len(f.symbols) == 1 for f in frames) and len({f.charge for f in frames}) == 1 and len(elements_of(tuple(frames))) == 1:
+        return frames[0].charge
+    return None
+
+
+def basis_for(frames: Sequence[Structure], options: BuildOptions) -> Basis:
     """The basis for the union of the frames' elements. A structure of one atom is an atomic ion:
     its basis follows the ion's configuration; atoms in molecules and solids use neutral atoms."""
     elements = elements_of(tuple(frames))
-    charge = None
-    if len(elements) == 1 and all(len(f.symbols) == 1 for f in frames) and len({f.charge for f in frames}) == 1:
-        charge = frames[0].charge
     return build_basis(
-        elements, rule=rule, gaussians=gaussians, charge=charge, zeta=zeta, norm=norm, exponents=exponents, radial=radial
+        elements, rule=options.rule, gaussians=options.gaussians, charge=_single_atom_charge(frames),
+        zeta=options.zeta_for(elements), norm=options.norm, exponents=options.exponents, radial=options.radial,
     )
 
 
+def basis_key(frames: Sequence[Structure], options: BuildOptions) -> tuple:
+    """The content key of a basis: everything ``basis_for`` looks at (the element set, a single
+    atom's charge, the options that shape it)."""
+    elements = elements_of(tuple(frames))
+    return (elements, _single_atom_charge(frames), options.rule, options.gaussians, options.norm,
+            options.exponents, options.radial, tuple((s, t) for s, t in options.zeta if s in elements))
+
+
 def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
-    """``<out_dir>/<structure stem><extension>``, or with ``symbol`` the per-element file
-    ``<out_dir>/<structure stem>.<Symbol><extension>`` (water.O.nw)."""
-    stem = os.path.splitext(os.path.basename(path))[0] or "structure"
-    middle = f".{symbol}" if symbol else ""
-    return os.path.join(out_dir, stem + middle + get_format(code).extension)
+    """``<out_dir>/<structure name><extension>`` (``naming``), or with ``symbol`` the per-element
+    file ``<out_dir>/<structure name>.<Symbol><extension>`` (water.O.nw)."""
+    return os.path.join(out_dir, *output_file(structure_name(os.path.basename(path)), code, symbol).split("/"))
 
 
-def expand_codes(codes: Sequence[str]) -> list[str]:
-    """The format names, with "all" standing for every registered format; duplicates dropped."""
-    out: list[str] = []
-    for code in codes:
-        out.extend(formats() if code == "all" else [get_format(code).name])
-    return list(dict.fromkeys(out))
+CACHE_LIMIT = 4096  # entries of a ``prepare`` cache before it is emptied
 
 
-def format_for_path(path: str) -> str:
-    """The format whose file extension ends ``path`` (the longest such extension wins)."""
-    hits = sorted((f for f in formats().values() if path.endswith(f.extension)), key=lambda f: -len(f.extension))
-    if not hits or (len(hits) > 1 and len(hits[0].extension) == len(hits[1].extension)):
-        raise InputError(f"{path}: cannot tell the format from the file name; name it with --code")
-    return hits[0].name
+def prepare(
+    path: str,
+    options: BuildOptions,
+    name: str | None = None,
+    split_elements: bool = False,
+    cache: dict | None = None,
+) -> Prepared:
+    """Read one structure file, check its geometry and electron counts, build its basis and make
+    every file text. Writes nothing; raises InputError (naming ``path``) for any bad input.
+
+    name   the output name (``naming``); default the file's own name without extension
+    cache  a dict kept between calls (a batch worker's): one basis and one text per content key
+    """
+    if not isinstance(options, BuildOptions):
+        raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
+    frames = read_structures(path, charge=options.charge, spin=options.spin)
+    for frame in frames:
+        check_geometry(frame)
+    key = basis_key(frames, options)
+    if cache is not None and len(cache) >= CACHE_LIMIT:
+        cache.clear()
+    basis = cache.get(("basis", key)) if cache is not None else None
+    if basis is None:
+        try:
+            basis = basis_for(frames, options)
+        except InputError as exc:
+            raise InputError(_named(os.fspath(path), str(exc))) from None
+        if cache is not None:
+            cache[("basis", key)] = basis
+    if options.check:
+        for frame in frames[: options.max_check_frames]:
+            _check_electrons(frame, basis, options.method)
+    name = name or structure_name(os.path.basename(path))
+    texts = []
+    for code in options.codes:
+        fmt = get_format(code)
+        parts = [(e.symbol, replace(basis, elements=(e,))) for e in basis.elements] if split_elements else [(None, basis)]
+        for symbol, part in parts:
+            text_key = ("text", key, fmt.name, options.sp_shells, symbol)
+            text = cache.get(text_key) if cache is not None else None
+            if text is None:
+                text = fmt.write(part, sp_shells=options.sp_shells)
+                if cache is not None:
+                    cache[text_key] = text
+            texts.append((fmt.name + (f":{symbol}" if symbol else ""), output_file(name, fmt.name, symbol), text))
+    notes = tuple(n for f in frames for n in f.notes)
+    return Prepared(path, name, frames, basis, tuple(texts), notes)
+
+
+def _where(frame: Structure) -> str:
+    return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
+
+
+def _check_electrons(frame: Structure, basis: Basis, method: str) -> None:
+    """Before any SCF: the method suits the structure, and the basis has room for its electrons
+    (α ≤ functions, β ≤ functions). Periodic structures are checked on free atoms instead."""
+    if frame.periodic:
+        return
+    try:
+        pick_method(method, frame.spin)
+    except InputError as exc:
+        raise InputError(f"{_where(frame)}: {exc}") from None
+    functions = sum(2 * s.l + 1 for symbol in frame.symbols for s in basis[symbol].shells)
+    alpha = (frame.electrons + frame.spin) // 2
+    if alpha > functions:
+        raise InputError(
+            f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
+            f"basis functions of the minimal basis (charge {frame.charge:+d}); nothing to check"
+        )
+
+
+def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
+    """The SCF checks of the first ``options.max_check_frames`` frames (PySCF's OpenMP threads
+    limited to ``threads`` when given). An SCF that raises is an InputError naming the file."""
+    from .checks import check_structure  # looked up at call time (tests replace it)
+
+    frames = prepared.frames
+    checked = frames[: options.max_check_frames]
+    try:
+        if threads is None:
+            checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+        else:
+            from pyscf import lib
+
+            with lib.with_omp_threads(threads):
+                checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+    except InputError as exc:
+        raise InputError(_named(prepared.path, str(exc))) from None
+    except Exception as exc:  # an SCF that fails numerically (LinAlgError, overflow, ...)
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(f"{prepared.path}: the SCF check failed ({type(exc).__name__}: {reason})") from None
+    notes = prepared.notes + tuple(dict.fromkeys(n for c in checks for n in c.notes))
+    if len(frames) > len(checked):
+        notes += (f"checked the first {len(checked)} of {len(frames)} frames",)
+    return replace(prepared, checks=checks, notes=notes)
+
+
+def _named(path: str, message: str) -> str:
+    message = " ".join(message.split())
+    return message if message.startswith(path) else f"{path}: {message}"
 
 
 def union_basis(bases: Sequence[Basis]) -> Basis:
@@ -151,107 +286,87 @@ def merge_file(path: str, basis: Basis, code: str | None = None, sp_shells: bool
     merged = merge_text(text, basis, code, sp_shells, source=path)
     backup = backup_path(path)
     atomic_write(backup, text)
-    atomic_write(path, merged)
+    atomic_write(path, merged, keep_mode=True)
     return path, backup
 
 
 def build_structures(
     paths: Sequence[str],
-    rule: str = "slater",
-    gaussians: int = 3,
-    codes: Sequence[str] | None = None,
+    options: BuildOptions | None = None,
     out_dir: str = "basis",
-    check: bool = False,
     force: bool = False,
-    charge: int | None = None,
-    spin: int | None = None,
-    method: str = "auto",
-    zeta: Mapping[str, Mapping[str, float]] | None = None,
-    norm: str = "l2",
-    sp_shells: bool = False,
-    max_check_frames: int = MAX_CHECK_FRAMES,
     write: bool = True,
     split_elements: bool = False,
     merge_into: str | None = None,
-    exponents: str = "family",
-    radial: str = "integer",
+    **option_values,
 ) -> tuple[StructureReport, ...]:
-    """Read every structure file, build its basis, write one file per structure and code, and
-    (with ``check``) run the SCF checks. All inputs are read and every text is made before the
-    first file is written; an existing file is kept unless ``force``.
+    """Read every structure file, build its basis, run the checks (``options.check``) and write
+    one file per structure and code. Every structure is prepared and checked before the first
+    file is written, and the files are then written all or none (``files.write_all``); an
+    existing file is kept unless ``force``.
 
-    codes           format names (``formats()``), "all" for every one; default nwchem, or with
-                    ``merge_into`` the format its file name tells
+    options         a BuildOptions; or give its fields as keywords (rule="molecular", gaussians=6, ...)
     split_elements  one file per structure, code and element: ``<stem>.<Symbol><extension>``
     merge_into      instead of new files, add or replace the elements of all structures in this
-                    existing basis file of one format (backed up first, see ``merge_file``)
-    norm, exponents, radial  expansion options, see ``stobuilder.build_basis``
+                    existing basis file of one format (backed up first, see ``merge_file``); the
+                    format is the one its file name tells unless the options name one
     """
+    if isinstance(paths, (str, os.PathLike)):
+        raise TypeError("paths must be a list of structure files, not one path")
+    if options is None:
+        if merge_into is not None and not option_values.get("codes"):
+            option_values["codes"] = (format_for_path(merge_into),)
+        options = BuildOptions(**option_values)
+    elif option_values:
+        raise TypeError(f"give either options or option keywords, not both ({', '.join(option_values)})")
     if not paths:
         raise InputError("no structure files given")
     if merge_into is not None:
         if split_elements:
             raise InputError("--merge-into and --split-elements exclude each other")
-        codes = expand_codes(codes) if codes else [format_for_path(merge_into)]
-        if len(codes) != 1:
-            raise InputError(f"--merge-into {merge_into}: give exactly one format, not {', '.join(codes)}")
+        if len(options.codes) != 1:
+            raise InputError(f"--merge-into {merge_into}: give exactly one format, not {', '.join(options.codes)}")
         if not os.path.isfile(merge_into):
             raise InputError(f"--merge-into {merge_into}: no such file")
-    codes = expand_codes(codes or ["nwchem"])
-    fmts = [get_format(c) for c in codes]
-    prepared = []
-    contents: dict[str, str] = {}
+    prepared: list[Prepared] = []
     sources: dict[str, str] = {}
+    contents: dict[str, str] = {}
     for path in paths:
-        frames = read_structures(path, charge=charge, spin=spin)
-        basis = basis_for(frames, rule, gaussians, norm, _zeta_for(zeta, frames), exponents, radial)
-        files = {}
-        for fmt in fmts if merge_into is None else ():
-            parts = [(e.symbol, replace(basis, elements=(e,))) for e in basis.elements]
-            for symbol, part in parts if split_elements else [(None, basis)]:
-                target = output_path(path, out_dir, fmt.name, symbol)
-                if target in sources:
-                    raise InputError(f"{path} and {sources[target]} would both write {target}")
-                sources[target] = path
-                contents[target] = fmt.write(part, sp_shells=sp_shells)
-                files[fmt.name + (f":{symbol}" if symbol else "")] = target
-        prepared.append((path, frames, basis, files))
-    if zeta:
-        named = {s for s in zeta}
-        present = {s for _, frames, _, _ in prepared for f in frames for s in f.symbols}
+        item = prepare(path, options, split_elements=split_elements)
+        for _, rel, text in item.texts if merge_into is None else ():
+            target = os.path.join(out_dir, *rel.split("/"))
+            if target in sources:
+                raise InputError(f"{path} and {sources[target]} would both write {target}")
+            sources[target] = path
+            contents[target] = text
+        prepared.append(item)
+    if options.zeta:
+        named = {s for s, _ in options.zeta}
+        present = {s for item in prepared for f in item.frames for s in f.symbols}
         if named - present:
             raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(named - present))}")
     if merge_into is not None:
-        merged = union_basis([basis for _, _, basis, _ in prepared])
-        code = codes[0]
-        if write:
-            target, backup = merge_file(merge_into, merged, code, sp_shells)
-        else:
-            with open(merge_into, encoding="utf-8") as handle:
-                merge_text(handle.read(), merged, code, sp_shells, source=merge_into)
-            target, backup = merge_into, None
-        for _, _, _, files in prepared:
-            files[code] = target
+        merged = union_basis([item.basis for item in prepared])
+        code = options.codes[0]
+        with open(merge_into, encoding="utf-8") as handle:
+            merge_text(handle.read(), merged, code, options.sp_shells, source=merge_into)
     elif write:
         check_targets(sources, force)
+    if options.check:  # before anything is written: a check that fails writes nothing
+        prepared = [run_checks(item, options) for item in prepared]
+    files_of = {item.path: {key: os.path.join(out_dir, *rel.split("/")) for key, rel, _ in item.texts} for item in prepared}
+    if merge_into is not None:
+        if write:
+            target, backup = merge_file(merge_into, merged, code, options.sp_shells)
+        else:
+            target, backup = merge_into, None
+        files_of = {item.path: {code: target} for item in prepared}
+    elif write:
         write_all(contents, out_dir)
     reports = []
-    for path, frames, basis, files in prepared:
-        notes = tuple(n for f in frames for n in f.notes)
+    for item in prepared:
+        notes = item.notes
         if merge_into is not None and write:
             notes += (f"merged into {target}; its former text is in {backup}",)
-        checks: tuple[Check, ...] = ()
-        if check:
-            checked = frames[:max_check_frames]
-            checks = tuple(check_structure(f, basis, method=method) for f in checked)
-            if len(frames) > len(checked):
-                notes += (f"checked the first {len(checked)} of {len(frames)} frames",)
-        reports.append(StructureReport(path, frames, basis, files, checks, notes))
+        reports.append(StructureReport(item.path, item.frames, item.basis, files_of[item.path], item.checks, notes))
     return tuple(reports)
-
-
-def _zeta_for(zeta, frames):
-    if not zeta:
-        return None
-    present = {s for f in frames for s in f.symbols}
-    return {s: v for s, v in zeta.items() if s in present} or None

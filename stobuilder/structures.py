@@ -75,6 +75,17 @@ def default_spin(electrons: int) -> int:
     return electrons % 2
 
 
+def atom_spin(symbol: str, charge: int, electrons: int) -> int:
+    """The default 2S of a free atom or ion: its ground state's unpaired electrons (Hund's rule,
+    the state ``stobuilder atom`` computes), or the lowest spin where no ground state is known."""
+    from .elements import ground_state
+
+    try:
+        return ground_state(symbol, charge).unpaired
+    except InputError:
+        return default_spin(electrons)
+
+
 def validate_charge_spin(where: str, electrons: int, charge: int, spin: int) -> None:
     """Raise InputError unless ``electrons`` electrons can have 2S = ``spin``."""
     if electrons < 1:
@@ -151,7 +162,7 @@ def read_structures(
             mult = _info_int(info, "multiplicity", label)
             s = None if mult is None else mult - 1
         electrons = sum(atomic_number(x) for x in symbols) - q
-        s = default_spin(electrons) if s is None else int(s)
+        s = (atom_spin(symbols[0], q, electrons) if len(symbols) == 1 else default_spin(electrons)) if s is None else int(s)
         validate_charge_spin(label, electrons, q, s)
         out.append(
             Structure(
@@ -171,3 +182,32 @@ def read_structures(
 def elements_of(structures: tuple[Structure, ...]) -> tuple[str, ...]:
     """The union of the elements of several frames, sorted by atomic number."""
     return tuple(sorted({s for st in structures for s in st.symbols}, key=atomic_number))
+
+
+def check_geometry(structure: Structure, min_distance: float | None = None) -> None:
+    """Raise InputError (naming the file and frame) unless every coordinate is finite and no two
+    atoms are closer than ``min_distance`` ångström (default ``limits.MIN_DISTANCE_ANGSTROM``).
+    Distances are those between the positions given (periodic images are not searched)."""
+    import numpy as np
+    from scipy.spatial import cKDTree
+
+    from .limits import MIN_DISTANCE_ANGSTROM
+
+    limit = MIN_DISTANCE_ANGSTROM if min_distance is None else min_distance
+    where = structure.path if structure.frame == 0 else f"{structure.path} (frame {structure.frame})"
+    xyz = np.array(structure.positions, dtype=float).reshape(-1, 3)
+    bad = np.flatnonzero(~np.isfinite(xyz).all(axis=1))
+    if bad.size:
+        i = int(bad[0])
+        raise InputError(f"{where}: atom {i + 1} ({structure.symbols[i]}) has a coordinate that is not a finite number")
+    if np.abs(xyz).max(initial=0.0) > 1e6:
+        raise InputError(f"{where}: coordinates beyond 1e6 Å; check the file's units")
+    if len(xyz) > 1:
+        pairs = cKDTree(xyz).query_pairs(limit, output_type="ndarray")
+        if len(pairs):
+            i, j = sorted(int(k) for k in pairs[np.lexsort(pairs.T[::-1])][0])
+            d = float(np.linalg.norm(xyz[i] - xyz[j]))
+            raise InputError(
+                f"{where}: atoms {i + 1} ({structure.symbols[i]}) and {j + 1} ({structure.symbols[j]}) are "
+                f"{d:.3g} Å apart, closer than the {limit:g} Å stobuilder accepts"
+            )

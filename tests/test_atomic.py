@@ -2,7 +2,9 @@
 
 import pytest
 
-from stobuilder.atomic import (atom_energy, atom_report, load_zeta_file, optimize_zeta, parse_zeta_overrides)
+from stobuilder.atom import atom_report
+from stobuilder.atomic import atom_energy, optimize_zeta
+from stobuilder.options import load_zeta_file, parse_zeta_overrides
 from stobuilder.errors import InputError
 from stobuilder.expansion import MAX_GAUSSIANS
 
@@ -118,8 +120,9 @@ def test_load_zeta_file(tmp_path):
 
 def test_report_gaussian_error_shrinks():
     # Exact STO vs its STO-nG imitation in PySCF (C, Slater exponents); the error must fall with N.
-    # Measured E(STO-nG) − E(exact), hartree: N=1 5.66, 2 1.49, 3 0.393, 4 0.118, 5 0.0377, 6 0.0132,
-    # and (slow, fitted on demand) 8 1.9e-3, 10 7.4e-4, 12 9.9e-5.
+    # Measured E(STO-nG) − E(exact), hartree, with the family fits build writes: N=1 5.67, 2 1.52, 3 0.391,
+    # 4 0.110, 5 0.0357, 6 0.0126 (one fit per subshell gave 5.66, 1.49, 0.393, 0.118, 0.0377, 0.0132),
+    # and (one fit per subshell, slow, fitted on demand) 8 1.9e-3, 10 7.4e-4, 12 9.9e-5.
     rep = atom_report("C", gaussians=[1, 2, 3, 4, 5, 6])
     assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree",
                         "virial_ratio", "gaussian", "orbital_energies"}
@@ -130,8 +133,8 @@ def test_report_gaussian_error_shrinks():
 
 L2_SHORTFALL = pytest.mark.xfail(
     strict=True,
-    reason="measured E(STO-12G, least squares) − E(exact) at the optimised ζ: Li 1.6e-5, C 6.7e-5, N 9.2e-5, "
-    "O 1.2e-4, F 1.5e-4, Ne 1.9e-4 hartree: the least-squares 1s fit misses the cusp and its energy error grows "
+    reason="measured E(STO-12G, least squares, the family fits build writes) − E(exact) at the optimised ζ: "
+    "Li 1.6e-5, C 6.7e-5, N 9.1e-5, O 1.2e-4, F 1.5e-4, Ne 1.8e-4 hartree: the least-squares 1s fit misses the cusp and its energy error grows "
     "about as Z², so O, F and Ne need more than 12 Gaussians in that norm; the H1 fits reach the target",
 )
 FIRST_ROW = ["Li", "B", "C", "N", "O", "F", "Ne"]

@@ -27,9 +27,10 @@ from ase.collections import g2
 from ase.io import write
 
 from stobuilder import batch
-from stobuilder.batch import BatchOptions, discover, read_manifest, run_batch
+from stobuilder.batch import discover, read_manifest, run_batch
 from stobuilder.cli import main
 from stobuilder.errors import InputError
+from stobuilder.options import BuildOptions
 from stobuilder.files import sha256_text
 from stobuilder.pipeline import build_structures
 
@@ -144,7 +145,7 @@ def test_discovery_errors(tmp_path):
 def test_output_folder_is_skipped_when_inside_the_input(tmp_path):
     make_library(tmp_path, ["H2O", "NH3"], split=False)
     out = tmp_path / "out"
-    summary = run_batch(discover([str(tmp_path)], exclude=str(out)), BatchOptions(codes=("nwchem", "pyscf")),
+    summary = run_batch(discover([str(tmp_path)], exclude=str(out)), BuildOptions(codes=("nwchem", "pyscf")),
                         str(out), executor=cf.ThreadPoolExecutor(1))
     assert (summary.done, summary.failed) == (2, 0)
     # the written .py files (pyscf format) in out/ are not taken as inputs on the re-run
@@ -162,7 +163,7 @@ def test_batch_files_equal_build_output_byte_for_byte(tmp_path):
     (src / "sodium_ion.extxyz").write_text('1\ncharge=1 pbc="F F F"\nNa 0.0 0.0 0.0\n')
     (src / "sodium_atom.xyz").write_text("1\n\nNa 0.0 0.0 0.0\n")
     codes = ("nwchem", "gaussian94", "pyscf")
-    summary = run_batch(discover([str(src)]), BatchOptions(codes=codes), str(tmp_path / "batch"),
+    summary = run_batch(discover([str(src)]), BuildOptions(codes=codes), str(tmp_path / "batch"),
                         executor=cf.ThreadPoolExecutor(2))
     assert (summary.total, summary.done, summary.failed) == (10, 10, 0)
     build_structures(sorted(str(p) for p in src.iterdir()), codes=codes, out_dir=str(tmp_path / "build"))
@@ -183,10 +184,9 @@ def test_one_basis_construction_per_element_set(tmp_path, monkeypatch):
     calls = []
     real = pipeline.basis_for
     monkeypatch.setattr(pipeline, "basis_for", lambda *a, **k: calls.append(a[0][0].elements) or real(*a, **k))
-    monkeypatch.setattr(batch, "_BASIS_CACHE", {})
-    monkeypatch.setattr(batch, "_TEXT_CACHE", {})
+    monkeypatch.setattr(batch, "_PREPARE_CACHE", {})
     paths = make_library(tmp_path, ["C2H6", "C3H8", "CH4", "H2O", "C2H6"], split=False)
-    options = BatchOptions().validate()
+    options = BuildOptions()
     outcomes = [batch.run_item(batch.Task(batch.BatchItem(str(p), p.stem), options)) for p in paths]
     assert all(o.error is None for o in outcomes)
     assert calls == [("H", "C"), ("H", "O")]  # C2H6, C3H8, CH4 and C2H6 share H+C
@@ -199,15 +199,15 @@ def test_resume_redoes_exactly_what_changed(tmp_path):
     out = tmp_path / "out"
     items = discover([str(tmp_path / "in")])
     pool = cf.ThreadPoolExecutor(2)
-    first = run_batch(items, BatchOptions(), str(out), executor=pool)
+    first = run_batch(items, BuildOptions(), str(out), executor=pool)
     assert (first.done, first.skipped) == (5, 0)
-    again = run_batch(items, BatchOptions(), str(out), executor=pool)
+    again = run_batch(items, BuildOptions(), str(out), executor=pool)
     assert (again.done, again.skipped) == (0, 5)
     # change one input, delete one output, tamper with another
     write(paths[0], g2["H2O"], format="xyz")
     (out / "mol_01.nw").unlink()
     (out / "mol_02.nw").write_text("edited by hand\n")
-    third = run_batch(items, BatchOptions(), str(out), executor=pool)
+    third = run_batch(items, BuildOptions(), str(out), executor=pool)
     assert (third.done, third.skipped, third.failed) == (3, 2, 0)
     last = read_manifest(str(out / batch.MANIFEST_NAME))
     assert {Path(p).name: r["status"] for p, r in last.items()} == {
@@ -216,10 +216,10 @@ def test_resume_redoes_exactly_what_changed(tmp_path):
     # other options: everything again; a torn last line (a killed append) is ignored
     with open(out / batch.MANIFEST_NAME, "a") as handle:
         handle.write('{"input": "/x", "sta')
-    fourth = run_batch(items, BatchOptions(gaussians=4), str(out), executor=pool)
+    fourth = run_batch(items, BuildOptions(gaussians=4), str(out), executor=pool)
     assert (fourth.done, fourth.skipped) == (5, 0)
     assert len(records(out)) == 5 + 5 + 5 + 5
-    assert run_batch(items, BatchOptions(gaussians=4), str(out), executor=pool).skipped == 5
+    assert run_batch(items, BuildOptions(gaussians=4), str(out), executor=pool).skipped == 5
 
 
 def test_a_folder_of_foreign_files_is_not_overwritten_without_force(tmp_path):
@@ -229,8 +229,8 @@ def test_a_folder_of_foreign_files_is_not_overwritten_without_force(tmp_path):
     (out / "mine.txt").write_text("keep me\n")
     items = discover([str(tmp_path / "in")])
     with pytest.raises(InputError, match="no batch manifest; use --force"):
-        run_batch(items, BatchOptions(), str(out), executor=cf.ThreadPoolExecutor(1))
-    assert run_batch(items, BatchOptions(), str(out), executor=cf.ThreadPoolExecutor(1), force=True).done == 1
+        run_batch(items, BuildOptions(), str(out), executor=cf.ThreadPoolExecutor(1))
+    assert run_batch(items, BuildOptions(), str(out), executor=cf.ThreadPoolExecutor(1), force=True).done == 1
 
 
 def test_mixed_bad_input_fails_item_by_item_with_exit_status_1(tmp_path, capsys):
@@ -260,9 +260,10 @@ def test_mixed_bad_input_fails_item_by_item_with_exit_status_1(tmp_path, capsys)
     assert not (tmp_path / "out" / "xenon.nw").exists()
 
 
-def test_an_unconverged_scf_fails_the_item_but_keeps_its_files(tmp_path, monkeypatch):
-    """SCF not converged is a failed item (recorded with its check), not a stopped batch. The
-    non-convergence is injected: PySCF converges these small molecules."""
+def test_an_unconverged_scf_fails_the_item_and_writes_nothing(tmp_path, monkeypatch):
+    """SCF not converged is a failed item (recorded with its check), not a stopped batch, and its
+    files are not written (checks run before files are written: the contract of build and batch).
+    The non-convergence is injected: PySCF converges these small molecules."""
     import stobuilder.checks as checks
 
     real = checks.check_structure
@@ -276,16 +277,17 @@ def test_an_unconverged_scf_fails_the_item_but_keeps_its_files(tmp_path, monkeyp
 
     monkeypatch.setattr(checks, "check_structure", unconverged_for_water)
     make_library(tmp_path / "in", ["H2O", "NH3"], split=False)
-    summary = run_batch(discover([str(tmp_path / "in")]), BatchOptions(check=True), str(tmp_path / "out"),
+    summary = run_batch(discover([str(tmp_path / "in")]), BuildOptions(check=True), str(tmp_path / "out"),
                         executor=cf.ThreadPoolExecutor(1))
     assert (summary.done, summary.failed, summary.exit_status) == (1, 1, 1)
     last = {Path(p).name: r for p, r in read_manifest(str(tmp_path / "out" / batch.MANIFEST_NAME)).items()}
     water = last["mol_00.xyz"]
-    assert water["status"] == "failed" and water["error"].endswith("mol_00.xyz: SCF not converged")
-    assert water["checks"][0]["converged"] is False and (tmp_path / "out" / "mol_00.nw").exists()
+    assert water["status"] == "failed" and water["error"].endswith("mol_00.xyz: SCF not converged; no files written")
+    assert water["checks"][0]["converged"] is False and not (tmp_path / "out" / "mol_00.nw").exists()
+    assert water["files"] == {} and (tmp_path / "out" / "mol_01.nw").exists()
     assert last["mol_01.xyz"]["status"] == "done"
     # a failed item is redone on the next run (here it fails again)
-    assert run_batch(discover([str(tmp_path / "in")]), BatchOptions(check=True), str(tmp_path / "out"),
+    assert run_batch(discover([str(tmp_path / "in")]), BuildOptions(check=True), str(tmp_path / "out"),
                      executor=cf.ThreadPoolExecutor(1)).skipped == 1
 
 
@@ -354,7 +356,7 @@ def library_50(tmp_path_factory):
 def test_dask_cluster_equals_local_pool_byte_for_byte(tmp_path, library_50, dask_client):
     items = discover([str(library_50)])
     assert len(items) == 50
-    options = BatchOptions(codes=("nwchem", "gaussian94"))
+    options = BuildOptions(codes=("nwchem", "gaussian94"))
     local = run_batch(items, options, str(tmp_path / "local"), workers=2)
     dask = run_batch(items, options, str(tmp_path / "dask"), executor=dask_client.get_executor(pure=False))
     assert (local.done, local.failed, dask.done, dask.failed) == (50, 0, 50, 0)
@@ -370,7 +372,7 @@ def test_dask_cluster_equals_local_pool_with_checks(tmp_path, dask_client):
     """A few structures with SCF checks: the same energies, bit for bit, on both."""
     make_library(tmp_path / "in", ["H2O", "NH3", "CH3CH2OH", "C2H6", "HCl", "CO"], split=False)
     items = discover([str(tmp_path / "in")])
-    options = BatchOptions(check=True)
+    options = BuildOptions(check=True)
     assert run_batch(items, options, str(tmp_path / "local"), workers=2).done == 6
     assert run_batch(items, options, str(tmp_path / "dask"), executor=dask_client.get_executor(pure=False)).done == 6
     local_records = {r["input"]: comparable(r) for r in records(tmp_path / "local")}
@@ -411,7 +413,7 @@ def test_a_killed_dask_worker_loses_no_item(tmp_path, library_50, dask_client):
     cloudpickle.register_pickle_by_value(sys.modules[__name__])
     try:
         executor = KillOneWorker(dask_client.get_executor(pure=False), victim, str(marker))
-        summary = run_batch(items, BatchOptions(), str(tmp_path / "out"), executor=executor)
+        summary = run_batch(items, BuildOptions(), str(tmp_path / "out"), executor=executor)
     finally:
         cloudpickle.unregister_pickle_by_value(sys.modules[__name__])
     killed_pid = int(marker.read_text())

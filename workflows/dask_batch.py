@@ -13,7 +13,8 @@ import sys
 
 from distributed import Client, LocalCluster
 
-from stobuilder.batch import BatchOptions, discover, make_progress, run_batch
+from stobuilder.batch import discover, make_progress, run_batch
+from stobuilder.options import BuildOptions
 
 
 def main(argv: list[str]) -> int:
@@ -21,7 +22,7 @@ def main(argv: list[str]) -> int:
         print(__doc__, file=sys.stderr)
         return 2
     structures, out_dir = argv[0], argv[1]
-    options = BatchOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian94"), check=True).validate()
+    options = BuildOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian94"), check=True)
     items = discover([structures], exclude=out_dir)
     cluster = None
     if len(argv) == 3:

@@ -18,13 +18,12 @@ from __future__ import annotations
 import hashlib
 import json
 import os
-import tempfile
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from typing import Iterable, Mapping
 
-from .. import __version__
+from ..version import __version__
 from .fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
 
 LIBRARY_MAX_GAUSSIANS = 12
@@ -151,15 +150,10 @@ def _cache_key(labels, gaussians, norm, n_eff, zeta_ratio) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> None:
+    from ..files import atomic_write
+
     path.parent.mkdir(parents=True, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=path.name + ".", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="ascii") as fh:
-            fh.write(text)
-        os.replace(tmp, path)
-    except BaseException:
-        os.unlink(tmp)
-        raise
+    atomic_write(path, text)
 
 
 def _cached_fit(labels, gaussians, norm, n_eff, zeta_ratio) -> Fit:

@@ -9,7 +9,6 @@ norms (log scale), the plotted fit marked.
 from __future__ import annotations
 
 import os
-import tempfile
 from typing import Callable
 
 import numpy as np
@@ -98,15 +97,10 @@ def plot_fit(fit: Fit, path: str, zeta: float = 1.0, family_fits: Callable[[str,
              + (", effective n* " + ", ".join(f"{k} {v:g}" for k, v in fit.n_eff.items()) if fit.n_eff else ""))
     fig.suptitle(title)
     fig.tight_layout()
-    directory = os.path.dirname(os.path.abspath(path))
-    fd, tmp = tempfile.mkstemp(dir=directory, prefix=os.path.basename(path) + ".", suffix=".png")
-    os.close(fd)
+    from ..files import atomic_write
+
     try:
-        fig.savefig(tmp, dpi=110, metadata={"Software": None})
-        os.replace(tmp, path)
-    except BaseException:
-        os.unlink(tmp)
-        raise
+        atomic_write(path, lambda tmp: fig.savefig(tmp, dpi=110, metadata={"Software": None}, format="png"))
     finally:
         plt.close(fig)
     return path

@@ -16,7 +16,6 @@ import json
 import math
 import os
 import sys
-import tempfile
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
@@ -148,15 +147,9 @@ def check_texts(texts: dict[str, str]) -> tuple[list[str], int]:
 
 
 def write_atomic(path: Path, text: str) -> None:
-    fd, tmp = tempfile.mkstemp(dir=path.parent, prefix=path.name + ".", suffix=".tmp")
-    try:
-        with os.fdopen(fd, "w", encoding="ascii") as fh:
-            fh.write(text)
-        os.chmod(tmp, 0o644)
-        os.replace(tmp, path)
-    except BaseException:
-        os.unlink(tmp)
-        raise
+    from ..files import atomic_write
+
+    atomic_write(path, text)
 
 
 def main(argv: list[str] | None = None) -> int:

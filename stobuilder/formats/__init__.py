@@ -94,3 +94,11 @@ def merge_basis(text: str, basis: Basis, code: str, sp_shells: bool = False) -> 
 
 
 __all__ = ["Format", "formats", "get_format", "merge_basis", "read_basis", "write_basis"]
+
+
+def format_for_path(path: str) -> str:
+    """The format whose file extension ends ``path`` (the longest such extension wins)."""
+    hits = sorted((f for f in formats().values() if path.endswith(f.extension)), key=lambda f: -len(f.extension))
+    if not hits or (len(hits) > 1 and len(hits[0].extension) == len(hits[1].extension)):
+        raise InputError(f"{path}: cannot tell the format from the file name; name it with --code")
+    return hits[0].name

@@ -7,7 +7,7 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from .. import __version__
+from ..version import __version__
 from ..basis import L_LETTERS, Basis, ElementBasis, Shell
 from ..elements import element_symbol, normalise_symbol
 from ..errors import InputError

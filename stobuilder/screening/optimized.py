@@ -48,8 +48,9 @@ def _cache_file(conf: Configuration):
 
 @lru_cache(maxsize=None)
 def _optimise(conf: Configuration) -> tuple[tuple[str, float], ...]:
-    from ..atomic import optimize_zeta
     from ..files import atomic_write
+    from ..sto_scf import optimize_exponents, pick_method
+    from .slater import shell_exponents as slater_exponents
 
     path = _cache_file(conf)
     try:
@@ -58,7 +59,8 @@ def _optimise(conf: Configuration) -> tuple[tuple[str, float], ...]:
             return tuple((k, float(v)) for k, v in doc["zeta"].items())
     except (OSError, ValueError, KeyError, AttributeError):
         pass  # missing or damaged: compute again
-    zeta = tuple(optimize_zeta(conf.symbol, configuration=conf).zeta.items())
+    start = tuple(e for e in slater_exponents(conf) if conf.occupation(e.n, e.l))
+    zeta = tuple(optimize_exponents(conf, start, pick_method(conf, "auto")).zeta.items())
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         doc = {"version": CACHE_VERSION, "symbol": conf.symbol, "configuration": conf.label, "zeta": dict(zeta)}

@@ -30,7 +30,7 @@ import numpy as np
 from ..elements import atomic_number
 from ..expansion import lookup
 from ..expansion.library import library_families
-from ..expansion.regenerate import write_atomic
+from ..files import atomic_write as write_atomic
 from ..tablecheck import Comparison, Tolerance, compare, report
 
 COMMAND = "python -m stobuilder.screening.regenerate_molecular"

@@ -1,0 +1,324 @@
+"""The build options: one frozen value, validated once, that every door passes down the path.
+
+``BuildOptions`` holds everything that decides a structure's basis, its files and its checks.
+It is validated when it is made (every bad value is a one-line InputError naming the option and
+the problem), so the rest of the path trusts it; it converts to and from plain JSON for the
+batch manifest (resume compares it) and for tasks sent to other processes or a Dask cluster.
+The command line makes it from one argparse group (``add_arguments`` / ``from_args``), shared
+by ``build`` and ``batch``. ζ overrides are parsed here (``--zeta`` items and zeta files) and
+held in the options as plain numbers; a zeta file is read once, when the options are made.
+"""
+
+from __future__ import annotations
+
+import json
+from collections.abc import Mapping
+from dataclasses import asdict, dataclass, fields
+
+from .errors import InputError
+from .limits import MAX_CHARGE, whole_number, zeta_value
+
+MAX_CHECK_FRAMES = 3
+
+
+# ---------------------------------------------------------------------------- ζ overrides
+
+
+def parse_zeta_overrides(items, per_element: bool = False) -> dict:
+    """Parse ``--zeta`` items: "1s=1.6875" → {"1s": 1.6875}; per element "Fe:3d=2.1" → {"Fe": {"3d": 2.1}}.
+
+    Labels are checked to be subshell labels (whether the basis has them is checked where the
+    overrides are applied); values must be numbers in the range of ``limits.zeta_value`` (bohr⁻¹).
+    """
+    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
+
+    out: dict = {}
+    for item in items or ():
+        text = str(item)
+        if "=" not in text:
+            raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
+        key, value = text.split("=", 1)
+        if per_element:
+            if ":" not in key:
+                raise InputError(f"--zeta {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
+            sym, label = key.split(":", 1)
+            try:
+                sym = normalise_symbol(sym)
+            except InputError as err:
+                raise InputError(f"--zeta {text!r}: {err}") from None
+        else:
+            sym, label = None, key
+        try:
+            n, l = parse_subshell_label(label)
+        except InputError as err:
+            raise InputError(f"--zeta {text!r}: {err}") from None
+        label = f"{n}{L_LETTERS[l]}"
+        try:
+            number = float(value)
+        except ValueError:
+            raise InputError(f"--zeta {text!r}: {value.strip()!r} is not a number") from None
+        v = zeta_value(number, f"--zeta {text!r}")
+        target = out.setdefault(sym, {}) if per_element else out
+        if label in target:
+            raise InputError(f"--zeta {text!r}: {label} is given twice")
+        target[label] = v
+    return out
+
+
+def load_zeta_file(path) -> dict[str, dict[str, float]]:
+    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
+    import sys
+
+    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
+
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover - Python 3.10
+        import tomli as tomllib
+    where = f"zeta file {str(path)!r}"
+    try:
+        with open(path, "rb") as fh:
+            doc = tomllib.load(fh)
+    except OSError as err:
+        raise InputError(f"{where}: cannot read it ({err.strerror})") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
+        raise InputError(f"{where}: not valid TOML ({err})") from None
+    out: dict[str, dict[str, float]] = {}
+    for sym, table in doc.items():
+        try:
+            symbol = normalise_symbol(sym)
+        except InputError as err:
+            raise InputError(f"{where}: {err}") from None
+        if not isinstance(table, dict):
+            raise InputError(f"{where}: {sym} must be a table of LABEL = VALUE")
+        if symbol in out:
+            raise InputError(f"{where}: [{sym}] names {symbol} a second time")
+        entry = out[symbol] = {}
+        for label, value in table.items():
+            try:
+                n, l = parse_subshell_label(str(label))
+            except InputError as err:
+                raise InputError(f"{where}: [{sym}] {err}") from None
+            key = f"{n}{L_LETTERS[l]}"
+            if key in entry:
+                raise InputError(f"{where}: [{sym}] {label} is given twice")
+            entry[key] = zeta_value(value, f"{where}: [{sym}] {label}")
+    return out
+
+
+def merge_zeta(*tables: Mapping | None) -> dict[str, dict[str, float]]:
+    """Later tables on top of earlier ones: {symbol: {label: ζ}}."""
+    out: dict[str, dict[str, float]] = {}
+    for table in tables:
+        for symbol, entries in (table or {}).items():
+            out.setdefault(symbol, {}).update(entries)
+    return out
+
+
+def _frozen_zeta(zeta) -> tuple[tuple[str, tuple[tuple[str, float], ...]], ...]:
+    """{symbol: {label: ζ}} (validated, symbols normalised) as a sorted tuple of tuples."""
+    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
+
+    if not zeta:
+        return ()
+    if isinstance(zeta, tuple):
+        zeta = {s: dict(t) for s, t in zeta}
+    if not isinstance(zeta, Mapping):
+        raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
+    out: dict[str, dict[str, float]] = {}
+    for symbol, table in zeta.items():
+        sym = normalise_symbol(str(symbol))
+        if not isinstance(table, Mapping):
+            raise InputError(f"zeta for {sym} must be a mapping label → value, got {type(table).__name__}")
+        entry = out.setdefault(sym, {})
+        for label, value in table.items():
+            n, l = parse_subshell_label(str(label).strip())
+            entry[f"{n}{L_LETTERS[l]}"] = zeta_value(value, f"zeta override {sym}:{label}")
+    return tuple((s, tuple(sorted(t.items()))) for s, t in sorted(out.items()) if t)
+
+
+# ---------------------------------------------------------------------------- the options
+
+
+@dataclass(frozen=True)
+class BuildOptions:
+    """Everything that decides a structure's basis, files and checks (validated when made).
+
+    rule              screening rule (``stobuilder.screening.rules()``)
+    gaussians         N, primitive Gaussians per STO (1–12)
+    norm              fitting norm of the expansions: "l2" or "h1"
+    exponents         "family", "shared" or "separate" (see ``stobuilder.build``)
+    radial            "integer" or "effective-n"
+    zeta              your own ζ (bohr⁻¹): {symbol: {label: ζ}}; held as a sorted tuple, see ``zeta_map``
+    sp_shells         write s and p shells that share exponents as sp shells
+    codes             output formats ("all" expands to every one); default nwchem
+    check             run the SCF checks (the first ``max_check_frames`` frames of a file)
+    method            SCF method of the checks: "auto", "rhf", "rohf", "uhf"
+    charge, spin      override the files' charge (e) and 2S; None keeps the file's
+    """
+
+    rule: str = "slater"
+    gaussians: int = 3
+    norm: str = "l2"
+    exponents: str = "family"
+    radial: str = "integer"
+    zeta: tuple = ()
+    sp_shells: bool = False
+    codes: tuple[str, ...] = ("nwchem",)
+    check: bool = False
+    method: str = "auto"
+    charge: int | None = None
+    spin: int | None = None
+    max_check_frames: int = MAX_CHECK_FRAMES
+
+    def __post_init__(self):
+        from .build import EXPONENT_MODES, RADIAL_FORMS
+        from .expansion.fit import MAX_GAUSSIANS, NORMS
+        from .formats import formats, get_format
+        from .methods import check_method
+        from .screening import get_rule
+
+        set_ = object.__setattr__
+        if not isinstance(self.rule, str):
+            raise InputError(f"--rule must be a rule name, got {self.rule!r}")
+        get_rule(self.rule)
+        set_(self, "gaussians", whole_number(self.gaussians, "--gaussians", 1, MAX_GAUSSIANS))
+        if self.norm not in NORMS:
+            raise InputError(f"--fit {self.norm!r}: unknown fitting norm; choose one of {', '.join(NORMS)}")
+        if self.exponents not in EXPONENT_MODES:
+            raise InputError(f"exponents {self.exponents!r}: choose one of {', '.join(EXPONENT_MODES)}")
+        if self.radial not in RADIAL_FORMS:
+            raise InputError(f"--radial {self.radial!r}: choose one of {', '.join(RADIAL_FORMS)}")
+        set_(self, "zeta", _frozen_zeta(self.zeta))
+        codes = (self.codes,) if isinstance(self.codes, str) else tuple(self.codes or ("nwchem",))
+        expanded: list[str] = []
+        for code in codes:
+            if not isinstance(code, str):
+                raise InputError(f"--code must be a format name, got {code!r}")
+            expanded.extend(formats() if code == "all" else [get_format(code).name])
+        set_(self, "codes", tuple(dict.fromkeys(expanded)))
+        for name in ("sp_shells", "check"):
+            if not isinstance(getattr(self, name), bool):
+                raise InputError(f"{name} must be True or False, got {getattr(self, name)!r}")
+        set_(self, "method", check_method(self.method))
+        if self.charge is not None:
+            set_(self, "charge", whole_number(self.charge, "--charge", -MAX_CHARGE, MAX_CHARGE))
+        if self.spin is not None:
+            set_(self, "spin", whole_number(self.spin, "--spin", 0, MAX_CHARGE))
+        set_(self, "max_check_frames", whole_number(self.max_check_frames, "max_check_frames", 1))
+
+    # -- views
+
+    @property
+    def zeta_map(self) -> dict[str, dict[str, float]] | None:
+        """The ζ overrides as {symbol: {label: ζ}}, or None."""
+        return {s: dict(t) for s, t in self.zeta} or None
+
+    def zeta_for(self, symbols) -> dict[str, dict[str, float]] | None:
+        """The ζ overrides of the elements in ``symbols`` only."""
+        present = set(symbols)
+        return {s: dict(t) for s, t in self.zeta if s in present} or None
+
+    def replace(self, **changes) -> "BuildOptions":
+        """A copy with ``changes`` (validated again)."""
+        values = {f.name: getattr(self, f.name) for f in fields(self)} | changes
+        return BuildOptions(**values)
+
+    # -- JSON
+
+    def to_json(self) -> dict:
+        """Plain JSON (the manifest's ``options`` record), with the stobuilder version."""
+        from .version import __version__
+
+        doc = asdict(self)
+        doc["codes"] = list(self.codes)
+        doc["zeta"] = self.zeta_map or {}
+        doc["stobuilder"] = __version__
+        return doc
+
+    @classmethod
+    def from_json(cls, doc: Mapping | str) -> "BuildOptions":
+        """The options of ``to_json`` (a dict or its text); unknown keys are an InputError."""
+        if isinstance(doc, str):
+            try:
+                doc = json.loads(doc)
+            except json.JSONDecodeError as exc:
+                raise InputError(f"build options: not JSON ({exc})") from None
+        if not isinstance(doc, Mapping):
+            raise InputError("build options: expected a JSON object")
+        doc = dict(doc)
+        doc.pop("stobuilder", None)
+        names = {f.name for f in fields(cls)}
+        unknown = set(doc) - names
+        if unknown:
+            raise InputError(f"build options: unknown option {', '.join(sorted(unknown))}")
+        if "codes" in doc and isinstance(doc["codes"], list):
+            doc["codes"] = tuple(doc["codes"])
+        return cls(**doc)
+
+
+# ---------------------------------------------------------------------------- the command line
+
+
+def add_arguments(parser, whole_number_type) -> None:
+    """The build options as one argparse group (``build`` and ``batch`` share it)."""
+    from .build import RADIAL_FORMS
+    from .expansion.fit import NORMS
+    from .formats import formats
+    from .methods import METHODS
+    from .screening import rules
+
+    g = parser.add_argument_group("build options")
+    g.add_argument("--rule", default="slater", help=f"screening rule: {', '.join(rules())} (default slater)")
+    g.add_argument("--gaussians", type=whole_number_type, default=3, metavar="N", help="Gaussians per STO, 1–12 (default 3)")
+    g.add_argument(
+        "--code", action="append", metavar="CODE",
+        help=f"output format, repeatable: {', '.join(formats())}, or all (default nwchem)",
+    )
+    g.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis before writing")
+    g.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
+    g.add_argument("--charge", type=whole_number_type, help="total charge (overrides the files)")
+    g.add_argument("--spin", type=whole_number_type, help="2S, the number of unpaired electrons (overrides the files)")
+    g.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
+    g.add_argument(
+        "--zeta", action="append", metavar="ELEMENT:LABEL=VALUE",
+        help="your own ζ for one subshell, e.g. Fe:3d=2.1 (repeatable; on top of --zeta-file)",
+    )
+    g.add_argument("--zeta-file", metavar="FILE.toml", help="your own ζ: a TOML table per element, e.g. [Fe] 3d = 2.1")
+    g.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
+    mode = g.add_mutually_exclusive_group()
+    mode.add_argument(
+        "--shared-exponents", action="store_true",
+        help="one exponent set per n, fitted jointly at the rule's zeta ratios (allows sp shells)",
+    )
+    mode.add_argument("--separate-fits", action="store_true", help="fit every subshell on its own")
+    g.add_argument(
+        "--radial", choices=RADIAL_FORMS, default="integer",
+        help="STO radial form: integer n, or the rule's effective n* (default integer)",
+    )
+
+
+def from_args(args) -> BuildOptions:
+    """The BuildOptions of parsed ``add_arguments`` options (the zeta file read now)."""
+    zeta = merge_zeta(
+        load_zeta_file(args.zeta_file) if args.zeta_file else None,
+        parse_zeta_overrides(args.zeta or [], per_element=True),
+    )
+    return BuildOptions(
+        rule=args.rule,
+        gaussians=args.gaussians,
+        norm=args.fit,
+        exponents="shared" if args.shared_exponents else "separate" if args.separate_fits else "family",
+        radial=args.radial,
+        zeta=zeta,
+        sp_shells=args.sp_shells,
+        codes=tuple(args.code or ("nwchem",)),
+        check=args.check,
+        method=args.method,
+        charge=args.charge,
+        spin=args.spin,
+    )
+
+
+__all__ = ["BuildOptions", "MAX_CHECK_FRAMES", "add_arguments", "from_args", "load_zeta_file", "merge_zeta",
+           "parse_zeta_overrides"]

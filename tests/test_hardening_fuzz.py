@@ -1,0 +1,156 @@
+"""Fuzzing the command line's numeric options (issue 16): --gaussians, --charge, --spin and
+--zeta values, on a molecule and a free atom, with and without --check, through build and batch.
+
+Every run ends in the contract: exit 0 with every file written and readable by PySCF's own
+NWChem-format parser (pyscf.gto.basis.parse_nwchem, an independent reader), or exit 2 with one
+line ``stobuilder: error: ...`` and nothing written; never a traceback (main() lets any other
+exception through, which fails the test).
+"""
+
+import concurrent.futures as cf
+import contextlib
+import io
+import os
+import tempfile
+from unittest import mock
+
+import pytest
+from ase.build import molecule
+from ase.io import write
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
+
+from stobuilder import batch
+from stobuilder.cli import main
+
+EXAMPLES = 150
+
+numbers = st.one_of(
+    st.integers(-30, 30).map(str),
+    st.integers(-(10**30), 10**30).map(str),
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.sampled_from(["1e400", "-0", "0x10", "", " 3", "٣", "1_0", "nan", "+inf"]),
+)
+def mostly(valid, junk, percent=75):
+    """``valid`` about ``percent`` % of the time, else ``junk``."""
+    return st.integers(0, 99).flatmap(lambda k: valid if k < percent else junk)
+
+
+good_zetas = st.floats(min_value=0.2, max_value=20).map(repr)
+zetas = st.one_of(
+    st.floats(min_value=1e-6, max_value=1e4).map(repr),
+    st.floats(allow_nan=True, allow_infinity=True).map(repr),
+    st.sampled_from(["1e-160", "1e300", "1e-400", "5e-324", "abc", "", "1.0.0"]),
+)
+
+
+def _structures(folder):
+    water = os.path.join(folder, "water.xyz")
+    write(water, molecule("H2O"))  # ASE G2 geometry
+    oxygen = os.path.join(folder, "o.xyz")
+    with open(oxygen, "w") as handle:
+        handle.write("1\n\nO 0 0 0\n")
+    return {"water": water, "o": oxygen}
+
+
+def _element_blocks(text):
+    """{symbol: the shell lines of that element} of an NWChem basis block, for PySCF's parser."""
+    blocks, symbol = {}, None
+    for line in text.splitlines():
+        words = line.split()
+        if not words or line.startswith("#") or words[0] in ("BASIS", "END"):
+            continue
+        if words[0].isalpha():
+            symbol = words[0]
+        blocks.setdefault(symbol, []).append(line)
+    return {k: "\n".join(v) for k, v in blocks.items()}
+
+
+@settings(max_examples=EXAMPLES, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    command=st.sampled_from(["build", "build", "batch"]),
+    structure=st.sampled_from(["water", "o"]),
+    gaussians=mostly(st.one_of(st.none(), st.integers(1, 12).map(str)), st.one_of(st.integers(-2, 14).map(str), numbers)),
+    charge=mostly(st.one_of(st.none(), st.integers(-1, 1).map(str)), st.one_of(st.integers(-12, 12).map(str), numbers)),
+    spin=mostly(st.none(), st.one_of(st.integers(-2, 8).map(str), numbers)),
+    zeta=st.lists(st.tuples(st.sampled_from(["O:1s", "O:2p", "O:2s", "H:1s", "O:3d"]), mostly(good_zetas, zetas)),
+                  max_size=2, unique_by=lambda kv: kv[0]),
+    check=st.booleans(),
+)
+def test_numeric_options_end_in_the_contract(command, structure, gaussians, charge, spin, zeta, check):
+    from pyscf.gto.basis import parse_nwchem
+
+    with tempfile.TemporaryDirectory() as folder:
+        paths = _structures(folder)
+        out_dir = os.path.join(folder, "out")
+        argv = [command, paths[structure], "--out", out_dir]
+        for option, value in (("--gaussians", gaussians), ("--charge", charge), ("--spin", spin)):
+            if value is not None:
+                argv.append(f"{option}={value}")
+        for key, value in zeta:
+            argv.append(f"--zeta={key}={value}")
+        if check:
+            argv.append("--check")
+        if command == "batch":
+            argv += ["--workers", "1", "--progress", "off"]
+        err, out = io.StringIO(), io.StringIO()
+        # batch's process pool is not under test here: threads keep each example fast
+        threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
+        with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
+            code = main(argv)
+        message = err.getvalue()
+        event(f"{command} exit {code}{' --check' if check else ''}")
+        written = sorted(os.listdir(out_dir)) if os.path.isdir(out_dir) else []
+        if code == 0:
+            assert message == ""
+            nw = os.path.join(out_dir, f"{structure}.nw")
+            with open(nw) as handle:
+                blocks = _element_blocks(handle.read())
+            assert set(blocks) == ({"O", "H"} if structure == "water" else {"O"})
+            for text in blocks.values():
+                shells = parse_nwchem.parse(text, optimize=False)
+                assert shells and all(0 < p[0] < float("inf") for s in shells for p in s[1:])
+        elif command == "batch" and code == 1:
+            # an item that failed (e.g. its SCF did not converge): recorded, none of its files written
+            assert written == ["stobuilder-batch.jsonl"]
+        else:
+            assert code == 2, (argv, message)
+            assert message.startswith("stobuilder: error: ") and message.count("\n") == 1, message
+            assert [f for f in written if f != "stobuilder-batch.jsonl"] == []
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    element=st.sampled_from(["He", "C", "O"]),
+    charge=mostly(st.one_of(st.none(), st.integers(-1, 2).map(str)), st.one_of(st.integers(-12, 12).map(str), numbers)),
+    gaussians=st.lists(mostly(st.integers(1, 6).map(str), st.one_of(st.integers(-2, 14).map(str), numbers)),
+                       max_size=2),
+    zeta=st.lists(st.tuples(st.sampled_from(["1s", "2s", "2p", "3d"]), mostly(good_zetas, zetas)),
+                  max_size=2, unique_by=lambda kv: kv[0]),
+)
+def test_atom_numeric_options_end_in_the_contract(element, charge, gaussians, zeta):
+    """The same contract for ``atom``: strict JSON with finite energies (exit 0), or one line
+    and exit 2; the exact-STO SCF on far-off ζ fails as an error naming the atom, never a
+    traceback."""
+    import json
+    import math
+
+    argv = ["atom", element, "--json"]
+    if charge is not None:
+        argv.append(f"--charge={charge}")
+    if gaussians:
+        argv += ["--gaussians", *gaussians]
+    for key, value in zeta:
+        argv.append(f"--zeta={key}={value}")
+    err, out = io.StringIO(), io.StringIO()
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out):
+        code = main(argv)
+    event(f"atom exit {code}")
+    if code == 0:
+        doc = json.loads(out.getvalue(), parse_constant=lambda name: pytest.fail(f"not strict JSON: {name}"))
+        assert math.isfinite(doc["energy_exact_hartree"])
+        assert all(math.isfinite(row["energy_hartree"]) for row in doc["gaussian"])
+    else:
+        assert code == 2, (argv, err.getvalue())
+        message = err.getvalue()
+        assert message.startswith("stobuilder: error: ") and message.count("\n") == 1, message
