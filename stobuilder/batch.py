@@ -380,12 +380,12 @@ def _cached_basis(key: tuple, frames, options: BatchOptions):
 
 
 def _cached_text(key: tuple, basis, code: str, sp_shells: bool) -> str:
-    from .formats import write_basis
+    from .formats import render_checked
 
     text_key = (key, code, sp_shells)
     text = _TEXT_CACHE.get(text_key)
     if text is None:
-        text = _TEXT_CACHE[text_key] = write_basis(basis, code, sp_shells=sp_shells)
+        text = _TEXT_CACHE[text_key] = render_checked(basis, code, sp_shells=sp_shells)
     return text
 
 

@@ -14,7 +14,7 @@ from .build import build_basis
 from .checks import Check, check_structure
 from .errors import InputError
 from .files import atomic_write, check_targets, write_all
-from .formats import formats, get_format, merge_basis
+from .formats import formats, get_format, merge_basis, render_checked
 from .structures import Structure, elements_of, read_structures
 
 MAX_CHECK_FRAMES = 3
@@ -213,7 +213,7 @@ def build_structures(
                 if target in sources:
                     raise InputError(f"{path} and {sources[target]} would both write {target}")
                 sources[target] = path
-                contents[target] = fmt.write(part, sp_shells=sp_shells)
+                contents[target] = render_checked(part, fmt.name, sp_shells, source=path)
                 files[fmt.name + (f":{symbol}" if symbol else "")] = target
         prepared.append((path, frames, basis, files))
     if zeta:

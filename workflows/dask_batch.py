@@ -21,7 +21,7 @@ def main(argv: list[str]) -> int:
         print(__doc__, file=sys.stderr)
         return 2
     structures, out_dir = argv[0], argv[1]
-    options = BatchOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian94"), check=True).validate()
+    options = BatchOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian"), check=True).validate()
     items = discover([structures], exclude=out_dir)
     cluster = None
     if len(argv) == 3:
