@@ -335,9 +335,10 @@ def _cmd_formats(args) -> int:
         doc = {"formats": [{"name": f.name, "extension": f.extension, "description": f.description} for f in table]}
         _print_json(doc)
         return 0
-    print(f"{'name':<12}{'extension':<16}description")
+    width = max(len(f.extension) for f in table) + 2
+    print(f"{'name':<12}{'extension':<{width}}description")
     for f in table:
-        print(f"{f.name:<12}{f.extension:<16}{f.description}")
+        print(f"{f.name:<12}{f.extension:<{width}}{f.description}")
     return 0
 
 

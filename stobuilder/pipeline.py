@@ -25,7 +25,7 @@ from .build import build_basis
 from .checks import Check
 from .errors import InputError
 from .files import atomic_write, check_targets, write_all
-from .formats import format_for_path, get_format, merge_basis
+from .formats import format_for_path, get_format, merge_basis, render_checked
 from .methods import pick_method
 from .naming import output_file, structure_name
 from .options import BuildOptions
@@ -173,7 +173,7 @@ def prepare(
             text_key = ("text", key, fmt.name, options.sp_shells, symbol)
             text = cache.get(text_key) if cache is not None else None
             if text is None:
-                text = fmt.write(part, sp_shells=options.sp_shells)
+                text = render_checked(part, fmt.name, options.sp_shells, source=os.fspath(path))
                 if cache is not None:
                     cache[text_key] = text
             texts.append((fmt.name + (f":{symbol}" if symbol else ""), output_file(name, fmt.name, symbol), text))

@@ -42,7 +42,7 @@ def read_dalton(text):
     return result
 
 
-def read_molcas(text):
+def read_openmolcas(text):
     lines = [x.strip() for x in text.splitlines()]
     lines = [x for x in lines if x and not x.startswith("*")]
     result, i = {}, 0

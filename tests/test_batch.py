@@ -162,7 +162,7 @@ def test_batch_files_equal_build_output_byte_for_byte(tmp_path):
     shutil.copytree(EXAMPLES, src)
     (src / "sodium_ion.extxyz").write_text('1\ncharge=1 pbc="F F F"\nNa 0.0 0.0 0.0\n')
     (src / "sodium_atom.xyz").write_text("1\n\nNa 0.0 0.0 0.0\n")
-    codes = ("nwchem", "gaussian94", "pyscf")
+    codes = ("nwchem", "gaussian", "pyscf")
     summary = run_batch(discover([str(src)]), BuildOptions(codes=codes), str(tmp_path / "batch"),
                         executor=cf.ThreadPoolExecutor(2))
     assert (summary.total, summary.done, summary.failed) == (10, 10, 0)
@@ -356,7 +356,7 @@ def library_50(tmp_path_factory):
 def test_dask_cluster_equals_local_pool_byte_for_byte(tmp_path, library_50, dask_client):
     items = discover([str(library_50)])
     assert len(items) == 50
-    options = BuildOptions(codes=("nwchem", "gaussian94"))
+    options = BuildOptions(codes=("nwchem", "gaussian"))
     local = run_batch(items, options, str(tmp_path / "local"), workers=2)
     dask = run_batch(items, options, str(tmp_path / "dask"), executor=dask_client.get_executor(pure=False))
     assert (local.done, local.failed, dask.done, dask.failed) == (50, 0, 50, 0)
@@ -494,7 +494,7 @@ def test_snakemake_workflow_end_to_end(tmp_path):
         for ext in (".nw", ".gbs"):
             assert (out / f"{stem}{ext}").is_file()
     # the files are those `build` writes
-    build_structures([str(p) for p in EXAMPLES.iterdir()], codes=("nwchem", "gaussian94"), out_dir=str(tmp_path / "b"))
+    build_structures([str(p) for p in EXAMPLES.iterdir()], codes=("nwchem", "gaussian"), out_dir=str(tmp_path / "b"))
     for p in (tmp_path / "b").iterdir():
         assert (out / p.name).read_bytes() == p.read_bytes()
     with open(out / "check_summary.tsv") as handle:

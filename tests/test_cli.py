@@ -25,14 +25,14 @@ def test_build_writes_files_and_json(tmp_path, capsys):
     write(src, molecule("SH2"))  # ASE G2 geometry
     out_dir = tmp_path / "out"
     code, out, err = run(
-        ["build", str(src), "--out", str(out_dir), "--code", "nwchem", "--code", "gaussian94", "--code", "pyscf", "--json"],
+        ["build", str(src), "--out", str(out_dir), "--code", "nwchem", "--code", "gaussian", "--code", "pyscf", "--json"],
         capsys,
     )
     assert code == 0, err
     doc = json.loads(out)
     (entry,) = doc["structures"]
     assert entry["elements"] == ["H", "S"] and entry["charge"] == 0 and entry["spin"] == 0
-    assert set(entry["files"]) == {"nwchem", "gaussian94", "pyscf"}
+    assert set(entry["files"]) == {"nwchem", "gaussian", "pyscf"}
     for path in entry["files"].values():
         assert os.path.getsize(path) > 0
     assert entry["check"] is None

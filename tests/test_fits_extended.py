@@ -406,7 +406,7 @@ def test_cli_build_fit_options(tmp_path):
                   "--json")
     assert out.returncode == 0, out.stderr
     text = (tmp_path / "b" / "lih.nw").read_text()
-    assert "fit: Sobolev H1 fit" in text and "\nLi   SP\n" in text
+    assert "fit: Sobolev H1 fit" in text and "\nLi SP\n" in text
     assert json.loads(out.stdout)["structures"][0]["fit"]["norm"] == "h1"
     out = run_cli("build", str(xyz), "--separate-fits", "--out", str(tmp_path / "s"), "--json")
     errors = json.loads(out.stdout)["structures"][0]["fit"]["error"]["Li"]

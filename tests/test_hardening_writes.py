@@ -52,7 +52,7 @@ def test_new_files_respect_the_umask(tmp_path, capsys, two, umask, mask, mode):
     out_dir = tmp_path / "o"
     assert run(["build", *map(str, two), "--code", "nwchem", "--code", "cp2k", "--out", str(out_dir)], capsys)[0] == 0
     written = sorted(os.listdir(out_dir))
-    assert written == ["a.cp2k", "a.nw", "b.cp2k", "b.nw"]
+    assert written == ["a.cp2k.basis", "a.nw", "b.cp2k.basis", "b.nw"]
     assert {stat.S_IMODE(os.stat(out_dir / f).st_mode) for f in written} == {mode}
 
 

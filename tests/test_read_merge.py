@@ -41,11 +41,11 @@ def _line_of(text, needle):
 # A line inside the last element's entry after which the text is cut: a shell/block header.
 _HEADER = {
     "nwchem": r"^\w+\s+[SPD]$",
-    "gaussian94": r"^[SPD]\s+\d+\s+1\.00$",
-    "psi4": r"^[SPD]\s+\d+\s+1\.00$",
+    "gaussian": r"^[SPD] \d+ 1\.0$",
+    "psi4": r"^[SPD] \d+ 1\.0$",
     "cp2k": r"^\s+\d+\s+\d+\s+\d+\s+\d+\s+\d",
     "dalton": r"^\s+\d+\s+\d+\s+0$",
-    "molcas": r"^\s+\d+\s+\d+$",
+    "openmolcas": r"^\s+\d+\s+\d+$",
 }
 
 
@@ -61,12 +61,12 @@ def test_truncated_text_names_the_line(basis, code):
 
 
 _WRONG_ELEMENT = {
-    "nwchem": ("O    S", "Xx   S"),
-    "gaussian94": ("O     0", "Xx    0"),
-    "psi4": ("O     0", "Xx    0"),
+    "nwchem": ("O S", "Xx S"),
+    "gaussian": ("O 0", "Xx 0"),
+    "psi4": ("O 0", "Xx 0"),
     "cp2k": ("O  STO", "Xx  STO"),
     "dalton": ("a 8\n", "a 200\n"),
-    "molcas": ("O..... / inline", "Xx..... / inline"),
+    "openmolcas": ("O..... / inline", "Xx..... / inline"),
     "qcschema": ('"O": {', '"Xx": {'),
     "pyscf": ("'O': [", "'Xx': ["),
 }
@@ -94,7 +94,7 @@ def test_non_numeric_field_names_the_line(basis, code):
     assert f"line {_line_of(bad, bad_token)}" in message, message
 
 
-_TERMINATOR = {"nwchem": "END", "gaussian94": "****", "psi4": "****", "molcas": "End of basis", "qcschema": "}", "pyscf": "}"}
+_TERMINATOR = {"nwchem": "END", "gaussian": "****", "psi4": "****", "openmolcas": "End of basis", "qcschema": "}", "pyscf": "}"}
 # CP2K and Dalton entries have no terminator in their layouts: a truncated entry is caught above.
 
 
@@ -139,15 +139,36 @@ def test_merge_replaces_ours_and_keeps_theirs(basis, users, code):
     assert stobuilder.merge_basis(merged, basis, code) == merged
 
 
-def test_merge_keeps_molcas_centre_lines(basis, users):
-    lines = stobuilder.write_basis(users, "molcas").splitlines()
+@pytest.mark.parametrize("code", ["nwchem", "cp2k"])
+def test_merged_file_loads_by_path_in_pyscf(basis, users, code, tmp_path):
+    # PySCF's path loader (pyscf.gto.basis.load, what gto.M(basis=path) calls) finds every element
+    # of the merged file, ours replaced and theirs kept: the replaced element's separator line goes
+    # with it, and an added element brings its own.
+    from pyscf import gto
+
+    theirs = stobuilder.write_basis(users, code)
+    if code == "cp2k":
+        theirs = theirs.replace("STO-6G-slater", "STO-3G-slater")
+    merged = stobuilder.merge_basis(theirs, basis, code)
+    assert merged.count("# BASIS SET for O:") == 1
+    path = tmp_path / ("merged" + stobuilder.formats()[code].extension)
+    path.write_text(merged)
+    for symbol, source in (("H", basis), ("O", basis), ("N", users), ("Cl", users)):
+        loaded, ours = gto.basis.load(str(path), symbol, optimize=False), source[symbol].to_pyscf()
+        assert [s[0] for s in loaded] == [s[0] for s in ours], symbol
+        for a, b in zip(loaded, ours):  # 16 significant digits written
+            assert [x for p in a[1:] for x in p] == pytest.approx([x for p in b[1:] for x in p], rel=1e-15), symbol
+
+
+def test_merge_keeps_openmolcas_centre_lines(basis, users):
+    lines = stobuilder.write_basis(users, "openmolcas").splitlines()
     ends = [i for i, x in enumerate(lines) if x == "End of basis"]
     lines.insert(ends[1], "O1   0.0 0.0 0.0 Angstrom")  # the centre of their O block (N, O, Cl)
     theirs = "\n".join(lines) + "\n"
-    merged = stobuilder.merge_basis(theirs, basis, "molcas")
+    merged = stobuilder.merge_basis(theirs, basis, "openmolcas")
     assert merged.count("O1   0.0 0.0 0.0 Angstrom") == 1
-    assert stobuilder.read_basis(merged, "molcas")["O"].shells == stobuilder.read_basis(
-        stobuilder.write_basis(basis, "molcas"), "molcas"
+    assert stobuilder.read_basis(merged, "openmolcas")["O"].shells == stobuilder.read_basis(
+        stobuilder.write_basis(basis, "openmolcas"), "openmolcas"
     )["O"].shells
 
 
@@ -198,10 +219,10 @@ def test_cli_code_all_writes_every_format(water, tmp_path, capsys):
 
 def test_cli_split_elements(water, tmp_path, capsys):
     out_dir = tmp_path / "out"
-    code, _, err = _run(["build", water, "--code", "gaussian94", "--split-elements", "--out", str(out_dir)], capsys)
+    code, _, err = _run(["build", water, "--code", "gaussian", "--split-elements", "--out", str(out_dir)], capsys)
     assert code == 0, err
     assert sorted(os.listdir(out_dir)) == ["water.H.gbs", "water.O.gbs"]
-    assert stobuilder.read_basis((out_dir / "water.O.gbs").read_text(), "gaussian94").symbols == ("O",)
+    assert stobuilder.read_basis((out_dir / "water.O.gbs").read_text(), "gaussian").symbols == ("O",)
 
 
 def test_cli_merge_into_backs_up_then_merges(water, users, tmp_path, capsys):
@@ -218,7 +239,7 @@ def test_cli_merge_into_backs_up_then_merges(water, users, tmp_path, capsys):
 
 def test_cli_merge_into_bad_file_exits_2_and_writes_nothing(water, basis, tmp_path, capsys):
     target = tmp_path / "mine.gbs"
-    bad = stobuilder.write_basis(basis, "gaussian94").replace("O     0", "Qq    0")
+    bad = stobuilder.write_basis(basis, "gaussian").replace("O 0", "Qq 0")
     target.write_text(bad)
     code, _, err = _run(["build", water, "--merge-into", str(target), "--out", str(tmp_path / "out")], capsys)
     assert code == 2

@@ -1,10 +1,11 @@
-"""Writers, proven by PySCF's own parsers: what we write reads back to the same basis and the
-same SCF energy."""
+"""Writers, proven by PySCF's own loaders on whole files by path: what we write reads back to the
+same basis and the same SCF energy."""
 
 import runpy
 
 import pytest
-from pyscf.gto.basis import parse_gaussian, parse_nwchem
+from pyscf import gto
+from pyscf.gto.basis import parse_gaussian
 
 import stobuilder
 from stobuilder.checks import make_mole, run_scf
@@ -19,12 +20,6 @@ def basis():
     return stobuilder.build_basis(["H", "O", "S", "Zn"], rule="slater", gaussians=3)
 
 
-def _single(basis, symbol):
-    """The basis of one element alone: PySCF's parse() without a symbol reads a whole text as one
-    element's shells."""
-    return stobuilder.Basis((basis[symbol],), rule=basis.rule, gaussians=basis.gaussians)
-
-
 def _same(parsed, ours, rel=1e-14):
     assert len(parsed) == len(ours)
     for a, b in zip(parsed, ours):
@@ -33,20 +28,25 @@ def _same(parsed, ours, rel=1e-14):
             assert ea == pytest.approx(eb, rel=rel) and ca == pytest.approx(cb, rel=rel, abs=1e-15)
 
 
+def _file(tmp_path, basis, code, sp=False):
+    path = tmp_path / ("b" + stobuilder.formats()[code].extension)
+    path.write_text(stobuilder.write_basis(basis, code, sp_shells=sp))
+    return str(path)
+
+
 @pytest.mark.parametrize("sp", [False, True])
-def test_nwchem_parses_back(basis, sp):
+def test_nwchem_file_loads_back_by_path(basis, sp, tmp_path):
+    # the whole file, element by element, through PySCF's path loader (what gto.M(basis=path) calls)
+    path = _file(tmp_path, basis, "nwchem", sp)
     for el in basis.elements:
-        text = stobuilder.write_basis(_single(basis, el.symbol), "nwchem", sp_shells=sp)
-        _same(parse_nwchem.parse(text, optimize=False), el.to_pyscf())
+        _same(gto.basis.load(path, el.symbol, optimize=False), el.to_pyscf())
 
 
 @pytest.mark.parametrize("sp", [False, True])
-def test_gaussian94_parses_back(basis, sp):
-    text = stobuilder.write_basis(basis, "gaussian94", sp_shells=sp)
-    chunks = text.split("****")[1:-1]
-    assert len(chunks) == len(basis.elements)
-    for el, chunk in zip(basis.elements, chunks):
-        _same(parse_gaussian.parse(chunk, optimize=False), el.to_pyscf())
+def test_gaussian_file_loads_back_by_path(basis, sp, tmp_path):
+    path = _file(tmp_path, basis, "gaussian", sp)
+    for el in basis.elements:
+        _same(parse_gaussian.load(path, el.symbol, optimize=False), el.to_pyscf())
 
 
 def test_pyscf_file_loads_bit_for_bit(basis, tmp_path):
@@ -56,15 +56,12 @@ def test_pyscf_file_loads_bit_for_bit(basis, tmp_path):
 
 
 def test_same_scf_energy_from_every_file(basis, tmp_path):
-    # Water with the basis as we hold it, and as PySCF reads each file back: same energy.
+    # Water with the basis as we hold it, and with each whole file as PySCF loads it: same energy.
     ours = run_scf(make_mole(WATER, {s: basis[s].to_pyscf() for s in ("H", "O")}, 0, 0), "RHF").energy_hartree
-    g94 = stobuilder.write_basis(basis, "gaussian94")
-    chunks = dict(zip(basis.symbols, g94.split("****")[1:-1]))
+    gbs = _file(tmp_path, basis, "gaussian", sp=True)
     readers = {
-        "nwchem": {
-            s: parse_nwchem.parse(stobuilder.write_basis(_single(basis, s), "nwchem", sp_shells=True)) for s in ("H", "O")
-        },
-        "gaussian94": {s: parse_gaussian.parse(chunks[s]) for s in ("H", "O")},
+        "nwchem": _file(tmp_path, basis, "nwchem", sp=True),  # gto.M(basis=path)
+        "gaussian": {s: parse_gaussian.load(gbs, s) for s in ("H", "O")},
     }
     for name, parsed in readers.items():
         e = run_scf(make_mole(WATER, parsed, 0, 0), "RHF").energy_hartree

@@ -22,7 +22,7 @@ def main(argv: list[str]) -> int:
         print(__doc__, file=sys.stderr)
         return 2
     structures, out_dir = argv[0], argv[1]
-    options = BuildOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian94"), check=True)
+    options = BuildOptions(rule="slater", gaussians=3, codes=("nwchem", "gaussian"), check=True)
     items = discover([structures], exclude=out_dir)
     cluster = None
     if len(argv) == 3:

@@ -14,7 +14,7 @@ from typing import Callable
 from ..basis import Basis
 from ..errors import InputError
 
-_MODULES = ("nwchem", "gaussian94", "pyscf_format", "psi4", "cp2k", "qcschema", "dalton", "molcas")
+_MODULES = ("nwchem", "gaussian", "pyscf_format", "psi4", "cp2k", "qcschema", "dalton", "openmolcas")
 
 
 @dataclass(frozen=True)
@@ -73,6 +73,51 @@ def write_basis(basis: Basis, code: str, sp_shells: bool = False) -> str:
     return get_format(code).write(basis, sp_shells=sp_shells)
 
 
+# The text formats write 16 significant digits: a number reads back within 5e-16 of itself,
+# relative, plus the rounding of the parse; JSON and Python files use repr() and read back exactly.
+READBACK_RTOL = 1e-15
+
+
+def readback_problem(basis: Basis, text: str, code: str) -> str | None:
+    """What is wrong when ``text`` (written for ``basis`` in the format of ``code``) is read back
+    with our own reader, or None when it gives every element of ``basis`` with the same shells:
+    the same l in the same order, the same number of primitives, exponents and coefficients within
+    ``READBACK_RTOL`` relative."""
+    try:
+        back = read_basis(text, code)
+    except InputError as exc:
+        return str(exc)
+    if back.symbols != basis.symbols:
+        return f"it holds the elements {', '.join(back.symbols) or 'none'}, not {', '.join(basis.symbols)}"
+    for ours in basis.elements:
+        theirs = back[ours.symbol].to_pyscf()
+        mine = ours.to_pyscf()
+        if [s[0] for s in theirs] != [s[0] for s in mine]:
+            return f"{ours.symbol} reads back with the shells l = {[s[0] for s in theirs]}, not {[s[0] for s in mine]}"
+        for k, (a, b) in enumerate(zip(theirs, mine)):
+            if len(a) != len(b):
+                return f"{ours.symbol} shell {k + 1} reads back with {len(a) - 1} primitives, not {len(b) - 1}"
+            for x, y in zip((v for p in a[1:] for v in p), (v for p in b[1:] for v in p)):
+                if not abs(x - y) <= READBACK_RTOL * abs(y):
+                    return f"{ours.symbol} shell {k + 1} reads back as {x!r} where the basis has {y!r}"
+    return None
+
+
+def render_checked(basis: Basis, code: str, sp_shells: bool = False, source: str = "") -> str:
+    """The text of ``basis`` in the format of ``code``, after the self-check: the text is read back
+    with our own reader of the format and must give ``basis`` again (``readback_problem``).
+    A failed self-check raises InputError naming ``source`` (the structure the text is for), so
+    nothing is written. Every door that writes basis files (``build``, ``batch``) makes its texts
+    here."""
+    text = write_basis(basis, code, sp_shells=sp_shells)
+    problem = readback_problem(basis, text, code)
+    if problem is not None:
+        where = f"{source}: " if source else ""
+        problem = " ".join(problem.split())
+        raise InputError(f"{where}the {code} file made for it does not read back as written ({problem}); nothing written")
+    return text
+
+
 def read_basis(text: str, code: str) -> Basis:
     """The basis in ``text``, a file in the format of ``code``: a Basis with rule "file" and the
     shells as written (contraction coefficients of normalised primitives, exponents in bohr⁻²).
@@ -93,7 +138,9 @@ def merge_basis(text: str, basis: Basis, code: str, sp_shells: bool = False) -> 
     return fmt.merge(text, basis, sp_shells=sp_shells)
 
 
-__all__ = ["Format", "formats", "get_format", "merge_basis", "read_basis", "write_basis"]
+__all__ = [
+    "Format", "formats", "get_format", "merge_basis", "read_basis", "readback_problem", "render_checked", "write_basis",
+]
 
 
 def format_for_path(path: str) -> str:

@@ -4,6 +4,7 @@ for the strict readers, general contractions (one block per l), and line-preserv
 from __future__ import annotations
 
 import math
+import re
 from collections.abc import Callable
 from dataclasses import dataclass
 
@@ -29,6 +30,31 @@ def provenance_lines(basis: Basis) -> list[str]:
             lines.append(f"{element.symbol} [{element.configuration}]: zeta/bohr^-1 {zetas}")
     lines.extend(basis.notes)
     return lines
+
+
+# PySCF's NWChem and CP2K file loaders (pyscf/gto/basis/parse_nwchem.py and parse_cp2k.py, read
+# for PySCF 2.14) find one element of a multi-element file only after a comment line that begins
+# "# BASIS SET" (their regular expression '# *BASIS SET.*\n'); without one they read the whole
+# file as the element's shells, silently. Our NWChem and CP2K writers therefore open every element
+# with such a line; the words after the prefix are ours.
+SEPARATOR_PREFIX = "# BASIS SET"
+_SEPARATOR = re.compile(r"\s*# *BASIS SET")
+
+
+def separator_line(element: ElementBasis, rule: str) -> str:
+    """The comment line in front of an element's block in the NWChem and CP2K files: the prefix
+    PySCF's loaders split at, then the element, its configuration and the screening rule."""
+    facts = [f"configuration {element.configuration}"] if element.configuration else []
+    facts.append("shells as read from a file" if rule == "file" else f"screening rule {rule}")
+    return f"{SEPARATOR_PREFIX} for {element.symbol}: {', '.join(facts)}"
+
+
+def separator_start(text_lines: list[str], start: int) -> int:
+    """The 0-based line where an element's block begins once the separator comment lines right
+    before its first line ``start`` are counted in (a merge replaces them with the block)."""
+    while start > 0 and _SEPARATOR.match(text_lines[start - 1]):
+        start -= 1
+    return start
 
 
 def shell_blocks(element: ElementBasis, sp_shells: bool) -> list[tuple[str, tuple[Shell, ...]]]:

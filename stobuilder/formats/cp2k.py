@@ -7,6 +7,11 @@ nc(lmax)`` (n the principal quantum number, nc(l) the contractions of each l) fo
 rows ``exponent  c(lmin,1) … c(lmax,nc)``. A set with lmin = 0, lmax = 1 and one contraction of
 each is CP2K's sp shell. CP2K always works with spherical functions, so nothing is marked. An
 entry has no terminator: it ends with its last set.
+
+Every entry opens with the comment line ``common.separator_line`` (``# BASIS SET for ...``): CP2K
+skips it as a comment, and PySCF's file loader (``gto.M(basis=path)``,
+``gto.basis.load(path, symbol)``, ``parse_cp2k.load``) needs it to find each element of a
+multi-element file. CP2K defines no file extension; ours is ``.cp2k.basis``.
 """
 
 from __future__ import annotations
@@ -27,11 +32,13 @@ from .common import (
     read_float,
     read_int,
     read_symbol,
+    separator_line,
+    separator_start,
     shell_blocks,
 )
 
 NAME = "cp2k"
-EXTENSION = ".cp2k"
+EXTENSION = ".cp2k.basis"
 DESCRIPTION = "CP2K basis-set file (BASIS_SET_FILE_NAME), one entry per element"
 
 
@@ -44,9 +51,10 @@ def _n(shell) -> int:
     return parse_subshell_label(shell.label)[0] if shell.label else shell.l + 1
 
 
-def element_lines(element: ElementBasis, name: str, sp_shells: bool = False) -> list[str]:
+def element_lines(element: ElementBasis, name: str, sp_shells: bool = False, rule: str = "file") -> list[str]:
+    """One element's entry, after its separator comment line."""
     blocks = shell_blocks(element, sp_shells)
-    lines = [f"{element.symbol}  {name}", f"  {len(blocks)}"]
+    lines = [separator_line(element, rule), f"{element.symbol}  {name}", f"  {len(blocks)}"]
     for _, shells in blocks:
         lmin, lmax = shells[0].l, shells[-1].l
         counts = " ".join("1" for _ in shells)
@@ -59,14 +67,14 @@ def element_lines(element: ElementBasis, name: str, sp_shells: bool = False) -> 
 def write(basis: Basis, sp_shells: bool = False) -> str:
     lines = [f"# {line}" for line in provenance_lines(basis)]
     for element in basis.elements:
-        lines.append("#")
-        lines.extend(element_lines(element, basis_name(basis), sp_shells))
+        lines.extend(element_lines(element, basis_name(basis), sp_shells, basis.rule))
     return "\n".join(lines) + "\n"
 
 
 def parse(text: str) -> tuple[list[tuple], Lines]:
     """Every entry of the text: (symbol, name, shells, 0-based line span, first line)."""
     lines = Lines(text, NAME, comment="#")
+    raw = text.splitlines()
     records = []
     while lines.peek() is not None:
         n0, line = lines.next("an element line 'Symbol NAME'")
@@ -103,7 +111,7 @@ def parse(text: str) -> tuple[list[tuple], Lines]:
                 for _ in range(count):
                     shells.append(make_shell(l, exps, [r[col] for r in rows], n, lines))
                     col += 1
-        records.append((symbol, tokens[1], shells, (n0 - 1, last), n0))
+        records.append((symbol, tokens[1], shells, (separator_start(raw, n0 - 1), last), n0))
     return records, lines
 
 
@@ -134,4 +142,4 @@ def merge(text: str, basis: Basis, sp_shells: bool = False) -> str:
     ours = [
         ParsedElement(s, (), (span,)) for s, entry, _, span, _ in records if entry.upper() == name.upper() and s in basis
     ]
-    return merge_lines(text, ours, lines.last_line, basis, lambda e: element_lines(e, name, sp_shells))
+    return merge_lines(text, ours, lines.last_line, basis, lambda e: element_lines(e, name, sp_shells, basis.rule))

@@ -9,7 +9,8 @@ primitive). Coefficients refer to normalised primitives. We write each row on on
 reader also takes a row continued on the following lines) and "0 0 0" for an l without
 functions below the highest l. Not relied on: the meaning of the third integer (we write 0 and
 read only 0) and any fixed column widths. Dalton has no sp shells (``sp_shells`` is ignored) and
-chooses spherical or Cartesian functions in the .mol file, so nothing is marked here.
+chooses spherical or Cartesian functions in the .mol file, so nothing is marked here. Dalton
+defines no file extension (it finds a library file by its name); ours is ``.dalton.basis``.
 """
 
 from __future__ import annotations
@@ -32,7 +33,7 @@ from .common import (
 )
 
 NAME = "dalton"
-EXTENSION = ".dalton"
+EXTENSION = ".dalton.basis"
 DESCRIPTION = "Dalton basis-set library file: 'a Z' entries, one general contraction per l"
 
 

@@ -1,10 +1,15 @@
-"""NWChem basis input: a ``BASIS ... END`` block, one ``Symbol  L`` header per shell.
+"""NWChem basis input: a ``BASIS ... END`` block, one ``Symbol L`` header per shell.
 
 Layout relied on (NWChem user manual, BASIS directive): ``#`` starts a comment; ``BASIS "ao basis"
 SPHERICAL`` opens the block and marks spherical functions (CARTESIAN the other choice); each shell
-is ``Symbol  S|P|D|F|G|H|I|SP`` followed by rows ``exponent  coefficient(s)`` (several coefficient
+is ``Symbol S|P|D|F|G|H|I|SP`` followed by rows ``exponent coefficient(s)`` (several coefficient
 columns make a general contraction, one shell each; SP rows carry the s and the p coefficient);
 ``END`` closes the block. The reader takes one BASIS block and nothing after its END.
+
+Every element opens with the comment line ``common.separator_line`` (``# BASIS SET for ...``):
+NWChem skips it as a comment, and PySCF's file loader (``gto.M(basis=path)``,
+``gto.basis.load(path, symbol)``) needs it to find each element of a multi-element file. A merge
+replaces an element together with the separator lines right before it.
 """
 
 from __future__ import annotations
@@ -19,6 +24,8 @@ from .common import (
     merge_lines,
     number,
     provenance_lines,
+    separator_line,
+    separator_start,
     read_float,
     read_letter,
     read_symbol,
@@ -30,10 +37,11 @@ EXTENSION = ".nw"
 DESCRIPTION = "NWChem BASIS block (also read by PySCF's parse_nwchem)"
 
 
-def element_lines(element: ElementBasis, sp_shells: bool = False) -> list[str]:
-    lines = []
+def element_lines(element: ElementBasis, sp_shells: bool = False, rule: str = "file") -> list[str]:
+    """One element's shells, after its separator comment line."""
+    lines = [separator_line(element, rule)]
     for letter, shells in shell_blocks(element, sp_shells):
-        lines.append(f"{element.symbol:<4} {letter}")
+        lines.append(f"{element.symbol} {letter}")
         for k, a in enumerate(shells[0].exponents):
             lines.append("  " + "  ".join(number(x) for x in (a, *(s.coefficients[k] for s in shells))))
     return lines
@@ -41,9 +49,9 @@ def element_lines(element: ElementBasis, sp_shells: bool = False) -> list[str]:
 
 def write(basis: Basis, sp_shells: bool = False) -> str:
     lines = [f"# {line}" for line in provenance_lines(basis)]
-    lines.append('BASIS "ao basis" SPHERICAL PRINT')
+    lines.append('BASIS "ao basis" SPHERICAL')
     for element in basis.elements:
-        lines.extend(element_lines(element, sp_shells))
+        lines.extend(element_lines(element, sp_shells, basis.rule))
     lines.append("END")
     return "\n".join(lines) + "\n"
 
@@ -56,6 +64,8 @@ def parse(text: str) -> tuple[list[ParsedElement], int, Lines]:
     if line.split()[0].upper() != "BASIS":
         raise lines.error(n, f"a BASIS line expected first, found {line!r}")
     records = []
+    raw = text.splitlines()
+    seen = set()
     while True:
         n, line = lines.next("a shell header or the END that closes the BASIS block")
         tokens = line.split()
@@ -84,7 +94,9 @@ def parse(text: str) -> tuple[list[ParsedElement], int, Lines]:
             shells = [make_shell(l, exps, c, n, lines) for l, c in zip(ls, columns)]
         else:
             shells = [make_shell(ls[0], exps, c, n, lines) for c in columns]
-        records.append((symbol, shells, (n - 1, last), n))
+        start = n - 1 if symbol in seen else separator_start(raw, n - 1)
+        seen.add(symbol)
+        records.append((symbol, shells, (start, last), n))
     if (item := lines.peek()) is not None:
         raise lines.error(item[0], f"text after the END of the BASIS block: {item[1]!r}")
     return collect(records), end, lines
@@ -100,4 +112,4 @@ def merge(text: str, basis: Basis, sp_shells: bool = False) -> str:
     """``text`` with the shells of our elements in place of the text's own (other elements, comments
     and the BASIS line untouched); new elements go before END."""
     elements, end, _ = parse(text)
-    return merge_lines(text, elements, end, basis, lambda e: element_lines(e, sp_shells))
+    return merge_lines(text, elements, end, basis, lambda e: element_lines(e, sp_shells, basis.rule))

@@ -11,6 +11,7 @@ primitive; coefficients of normalised primitives); then the centres (``label x y
 before its ``End of basis`` and put the blocks into &SEWARD. The reader takes centre lines and
 skips them. Spherical functions are SEWARD's default and are not marked in the data; there are
 no sp shells (``sp_shells`` is ignored); only all-electron data (charge = Z) are read.
+OpenMolcas defines no file extension for such blocks; ours is ``.openmolcas.basis``.
 """
 
 from __future__ import annotations
@@ -32,8 +33,8 @@ from .common import (
     split_general,
 )
 
-NAME = "molcas"
-EXTENSION = ".molcas"
+NAME = "openmolcas"
+EXTENSION = ".openmolcas.basis"
 DESCRIPTION = "OpenMolcas inline basis blocks for &SEWARD (Basis set ... / inline ... End of basis)"
 OPEN, END = "basis set", "end of basis"
 

@@ -1,11 +1,16 @@
-"""Gaussian-94 basis format: elements separated by ``****``.
+"""Gaussian's general basis input (``.gbs``): element blocks separated by ``****``.
 
 Layout relied on (Gaussian's General basis input, also read by PySCF's parse_gaussian, Psi4 and
-others): ``!`` starts a comment; each element opens with ``Symbol 0`` and closes with ``****``;
-each shell is ``L  nprim  scale`` (letters S, P, D, F, G, H, I or SP; the scale factor multiplies
-the exponents by its square, we write 1.00) followed by nprim rows ``exponent  coefficient(s)``,
-two coefficients (s, then p) for SP. Pure or Cartesian functions are chosen in Gaussian's route
-section, not in the basis text, so this file does not mark them.
+others): fields are free-spaced; ``!`` starts a comment; each element opens with ``Symbol 0`` and
+closes with ``****``; each shell is ``L nprim scale`` (letters S, P, D, F, G, H, I or SP; the
+scale factor multiplies the exponents by its square) followed by nprim rows
+``exponent coefficient(s)``, two coefficients (s, then p) for SP. Pure or Cartesian functions are
+chosen in Gaussian's route section, not in the basis text, so this file does not mark them.
+
+What we write, for the readers users have: single spaces between fields (``C 0``, ``S 3 1.0``),
+the element line right after the ``****`` above it (PySCF's ``parse_gaussian.load`` looks for the
+symbol on the line after a ``****``, up to its first space), and the scale factor with a decimal
+point (gbasis' ``parse_gbs`` finds shell lines by ``word word word.word``).
 """
 
 from __future__ import annotations
@@ -27,17 +32,17 @@ from .common import (
     shell_blocks,
 )
 
-NAME = "gaussian94"
+NAME = "gaussian"
 EXTENSION = ".gbs"
-DESCRIPTION = "Gaussian 94 general-basis format, elements separated by ****"
+DESCRIPTION = "Gaussian general basis input (.gbs): element blocks closed by ****"
 SEPARATOR = "****"
 
 
 def element_lines(element: ElementBasis, sp_shells: bool = False) -> list[str]:
     """One element's block, from ``Symbol 0`` to the closing ``****``."""
-    lines = [f"{element.symbol}     0"]
+    lines = [f"{element.symbol} 0"]
     for letter, shells in shell_blocks(element, sp_shells):
-        lines.append(f"{letter:<2} {len(shells[0].exponents):3d}   1.00")
+        lines.append(f"{letter} {len(shells[0].exponents)} 1.0")
         for k, a in enumerate(shells[0].exponents):
             lines.append("  " + "  ".join(number(x) for x in (a, *(s.coefficients[k] for s in shells))))
     lines.append(SEPARATOR)
@@ -53,7 +58,7 @@ def write(basis: Basis, sp_shells: bool = False) -> str:
 
 
 def parse(text: str, code: str = NAME, header: tuple[str, ...] = ()) -> tuple[list[ParsedElement], Lines]:
-    """The elements of a Gaussian-94 text with their line spans. With ``header`` (Psi4), the first
+    """The elements of a Gaussian .gbs text with their line spans. With ``header`` (Psi4), the first
     line that is not a comment must be one of those words."""
     lines = Lines(text, code, comment="!")
     if header:
@@ -99,7 +104,7 @@ def parse(text: str, code: str = NAME, header: tuple[str, ...] = ()) -> tuple[li
 
 
 def read(text: str) -> Basis:
-    """The basis of a Gaussian-94 text (strict: every problem names its line)."""
+    """The basis of a Gaussian .gbs text (strict: every problem names its line)."""
     elements, lines = parse(text)
     return file_basis(elements, lines)
 
