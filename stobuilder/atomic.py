@@ -23,7 +23,9 @@ Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963)
 from __future__ import annotations
 
 import math
+import numbers
 import warnings
+from collections.abc import Iterable
 from dataclasses import dataclass, field
 from numbers import Real
 
@@ -476,7 +478,14 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    counts = [gaussians] if isinstance(gaussians, int) else list(gaussians or ())
+    if isinstance(gaussians, numbers.Real):
+        counts = [gaussians]
+    elif isinstance(gaussians, Iterable) and not isinstance(gaussians, (str, bytes)):
+        counts = list(gaussians)
+    elif gaussians is None:
+        counts = []
+    else:
+        raise TypeError(f"gaussians must be a number of Gaussians or a list of them, got {type(gaussians).__name__}")
     for n in counts:
         if isinstance(n, bool) or not isinstance(n, int) or n < 1:
             raise InputError(f"number of Gaussians {n!r} must be a positive integer")
@@ -525,8 +534,12 @@ def parse_zeta_overrides(items, per_element: bool = False) -> dict:
     from .elements import normalise_symbol
 
     out: dict = {}
+    if isinstance(items, str):
+        items = [items]  # one item, never its characters
     for item in items or ():
-        text = str(item)
+        if not isinstance(item, str):
+            raise TypeError(f"zeta overrides: {item!r} is not a text such as '1s=1.6875'")
+        text = item
         if "=" not in text:
             raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
         key, value = text.split("=", 1)
@@ -563,6 +576,9 @@ def load_zeta_file(path) -> dict[str, dict[str, float]]:
         import tomllib
     else:  # pragma: no cover - Python 3.10
         import tomli as tomllib
+    from . import arguments
+
+    path = arguments.path(path, "path")
     try:
         with open(path, "rb") as fh:
             doc = tomllib.load(fh)

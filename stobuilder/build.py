@@ -22,6 +22,7 @@ from numbers import Real
 from collections.abc import Iterable, Mapping
 from itertools import groupby
 
+from . import arguments
 from .basis import Basis, ElementBasis, Shell
 from .elements import Configuration, looks_like_configuration, normalise_symbol, resolve
 from .errors import InputError
@@ -160,6 +161,8 @@ def element_basis(
     """The STO-NG basis of one element (or ion, or explicit configuration); options as ``build_basis``."""
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
+    arguments.text(element, "element")
+    arguments.mapping(zeta, "zeta")
     conf, stos = sto_exponents(element, rule, charge, configuration, zeta)
     return ElementBasis(conf.symbol, expand(stos, gaussians, norm, exponents, radial), conf.label, stos)
 
@@ -179,7 +182,7 @@ def build_basis(
     Parameters
     ----------
     elements : symbols ("Fe"), configuration strings ("Fe: [Ar] 3d7 4s1", "[Ar] 3d7 4s1") or
-        Configuration objects; repeats are ignored.
+        Configuration objects; repeats are ignored. One string is one element ("Co" is cobalt).
     rule : screening rule name (see ``stobuilder.screening.rules()``).
     gaussians : N, the number of primitive Gaussians per STO.
     charge : None (neutral atoms), an int applied to every element, or {symbol: charge}.
@@ -191,6 +194,13 @@ def build_basis(
         (one fit per subshell).
     radial : "integer" (r^(n−1) e^(−ζr)) or "effective-n" (r^(n*−1) e^(−ζr), the rule's n*).
     """
+    elements = arguments.elements(elements)
+    if isinstance(charge, Mapping):
+        charge = {k: arguments.whole_number(v, f"charge[{k!r}]", allow_none=False) for k, v in charge.items()}
+    else:
+        charge = arguments.whole_number(charge, "charge")
+    for symbol, table in (arguments.mapping(zeta, "zeta") or {}).items():
+        arguments.mapping(table, f"zeta[{symbol!r}]")
     check_options(exponents, radial)
     built: dict[str, ElementBasis] = {}
     zeta = dict(zeta or {})

@@ -180,7 +180,11 @@ def read_structures(
     """
     import ase.io
 
-    where = os.fspath(path)
+    from . import arguments
+
+    where = arguments.path(path, "path")
+    charge = arguments.whole_number(charge, "charge")
+    spin = arguments.whole_number(spin, "spin")
     if not os.path.exists(where):
         raise InputError(f"{where}: no such file")
     if os.path.isdir(where):
