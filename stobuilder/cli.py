@@ -256,10 +256,15 @@ def _build_table(report) -> str:
 def _cmd_batch(args) -> int:
     from . import batch
 
-    if args.scheduler and args.workers is not None:
+    if args.scheduler is not None and args.workers is not None:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
-    if args.workers is not None and args.workers < 1:
-        raise InputError(f"--workers must be >= 1, got {args.workers}")
+    notes: list[str] = []
+    if args.scheduler is not None:
+        batch.check_scheduler_address(args.scheduler)
+    workers = None
+    if args.scheduler is None:
+        workers, note = batch.worker_count(args.workers)
+        notes += [note] if note else []
     options = batch.BatchOptions(
         rule=args.rule,
         gaussians=args.gaussians,
@@ -273,18 +278,22 @@ def _cmd_batch(args) -> int:
         exponents=_exponent_mode(args),
         radial=args.radial,
     ).validate()
-    items = batch.discover(args.inputs, exclude=args.out)
+    items = batch.discover(args.inputs, exclude=args.out, notes=notes)
+    for note in notes:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
     client = executor = None
-    if args.scheduler:
+    if args.scheduler is not None:
         client, executor = batch.dask_executor(args.scheduler)
     try:
         summary = batch.run_batch(
-            items, options, args.out, executor=executor, workers=args.workers, force=args.force,
+            items, options, args.out, executor=executor, workers=workers, force=args.force,
             progress=batch.make_progress(len(items), args.progress),
         )
     finally:
         if client is not None:
             client.close()
+    for note in summary.notes:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
     if args.json:
         print(json.dumps(summary.to_json(), indent=2))
     else:
