@@ -376,13 +376,15 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",
-                  zeta=None) -> AtomResult:
+                  zeta=None, progress=None) -> AtomResult:
     """Variationally optimal single-ζ exponents: minimum of the SCF energy over every occupied ζ.
 
     Only occupied subshells enter (basis and result). Starts from ``rule`` (with ``zeta`` overrides),
     BFGS in ln ζ with analytic gradients, then
     Newton steps on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree; the returned result
     satisfies the virial theorem −V/T = 2 to about 1e-9. Energies in hartree, ζ in bohr⁻¹.
+    ``progress``, if given, is called with one line of text after every BFGS iteration and Newton
+    step (step count, energy, largest |ζ dE/dζ|).
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
@@ -409,11 +411,28 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
         r, g = evaluate(x)
         return r.energy, g
 
+    steps = [0]
+
+    def report(stage, x):
+        """One progress line; reads only what is already computed (no extra SCF, so the result is
+        the same with and without ``progress``)."""
+        if progress is None:
+            return
+        steps[0] += 1
+        known = cache.get(tuple(float(v) for v in x))
+        if known is None:
+            progress(f"{stage} step {steps[0]}")
+        else:
+            r, g = known
+            progress(f"{stage} step {steps[0]}: E = {r.energy:.8f} hartree, max |ζ dE/dζ| = {np.max(np.abs(g)):.1e}")
+
     x = np.array([math.log(e.zeta) for e in exps])
-    opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500})
+    opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500},
+                                  callback=(lambda xk: report("BFGS", xk)) if progress is not None else None)
     x = opt.x
     for _ in range(8):  # Newton polish on the analytic gradient (central-difference Hessian)
         r, g = evaluate(x)
+        report("Newton", x)
         if np.max(np.abs(g)) < 1e-10:
             break
         h = 1e-4
@@ -472,7 +491,8 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     """The exact-STO atom and its N-Gaussian imitations, as a JSON-ready dict.
 
     Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
-    virial_ratio, gaussian [{gaussians, energy_hartree}], orbital_energies
+    converged (the exact-STO SCF met its convergence test), virial_ratio, gaussian
+    [{gaussians, fit, energy_hartree, converged}], orbital_energies
     [{label, spin, energy_hartree, occupation}]. With ``optimize`` the ζ of the occupied subshells are
     optimised first (from ``rule`` and ``zeta``) and only those subshells form the basis.
     """
@@ -497,7 +517,10 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     else:
         exps = apply_zeta_overrides(shell_exponents(conf, rule), zeta)
         result = _solve(conf, exps, m).result
-    rows = [{"gaussians": n, "fit": norm, "energy_hartree": gaussian_energy(conf, exps, m, n, norm).energy} for n in counts]
+    rows = []
+    for n in counts:
+        g = gaussian_energy(conf, exps, m, n, norm)
+        rows.append({"gaussians": n, "fit": norm, "energy_hartree": g.energy, "converged": g.converged})
     return {
         "element": result.element,
         "configuration": result.configuration,
@@ -505,6 +528,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         "method": result.method,
         "zeta": dict(result.zeta),
         "energy_exact_hartree": result.energy,
+        "converged": result.converged,
         "virial_ratio": result.virial_ratio,
         "gaussian": rows,
         "orbital_energies": [
@@ -594,6 +618,9 @@ def load_zeta_file(path) -> dict[str, dict[str, float]]:
             raise InputError(f"zeta file {str(path)!r}: {err}") from None
         if not isinstance(table, dict):
             raise InputError(f"zeta file {str(path)!r}: {sym} must be a table of LABEL = VALUE")
+        if symbol in out:  # TOML keys are case-sensitive, element symbols are not: [H] and [h]
+            first = next(k for k in doc if k != sym and _same_symbol(k, symbol))
+            raise InputError(f"zeta file {str(path)!r}: [{first}] and [{sym}] are both element {symbol}; give one table")
         entry = out.setdefault(symbol, {})
         for label, value in table.items():
             try:
@@ -604,8 +631,20 @@ def load_zeta_file(path) -> dict[str, dict[str, float]]:
                 raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} is not a number")
             if not (math.isfinite(value) and value > 0):
                 raise InputError(f"zeta file {str(path)!r}: [{sym}] {label} = {value!r} must be positive")
-            entry[f"{n}{L_LETTERS[l]}"] = float(value)
+            key = f"{n}{L_LETTERS[l]}"
+            if key in entry:
+                raise InputError(f"zeta file {str(path)!r}: [{sym}] gives {key} twice")
+            entry[key] = float(value)
     return out
+
+
+def _same_symbol(text: str, symbol: str) -> bool:
+    from .elements import normalise_symbol
+
+    try:
+        return normalise_symbol(text) == symbol
+    except InputError:
+        return False
 
 
 __all__ = ["AtomResult", "OrbitalEnergy", "apply_zeta_overrides", "atom_energy", "atom_report", "describe_state",

@@ -36,8 +36,9 @@ def check_targets(targets: Mapping[str, str], force: bool) -> None:
         if real in seen:
             raise InputError(f"{source} and {seen[real]} would both write {path}")
         seen[real] = source
-        if os.path.exists(path) and not force:
-            raise InputError(f"{path} exists; use --force to overwrite it")
+        if os.path.lexists(path) and not force:  # a dangling symbolic link is not replaced either
+            what = "exists" if os.path.exists(path) else "is a dangling symbolic link"
+            raise InputError(f"{path} {what}; use --force to overwrite it")
         if os.path.isdir(path):
             raise InputError(f"{path} is a folder")
 

@@ -121,7 +121,7 @@ def test_report_gaussian_error_shrinks():
     # Measured E(STO-nG) − E(exact), hartree: N=1 5.66, 2 1.49, 3 0.393, 4 0.118, 5 0.0377, 6 0.0132,
     # and (slow, fitted on demand) 8 1.9e-3, 10 7.4e-4, 12 9.9e-5.
     rep = atom_report("C", gaussians=[1, 2, 3, 4, 5, 6])
-    assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree",
+    assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree", "converged",
                         "virial_ratio", "gaussian", "orbital_energies"}
     diffs = [g["energy_hartree"] - rep["energy_exact_hartree"] for g in rep["gaussian"]]
     assert all(d > 0 for d in diffs)  # the Gaussian imitation is variationally worse
