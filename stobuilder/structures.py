@@ -189,6 +189,8 @@ def read_structures(
         raise InputError(f"{where}: no such file")
     if os.path.isdir(where):
         raise InputError(f"{where}: is a folder, not a structure file")
+    if not os.path.isfile(where):  # a FIFO or device: reading could block or never end
+        raise InputError(f"{where}: not a regular file (a FIFO or a device?), not a structure file")
     if os.path.getsize(where) == 0:
         raise InputError(f"{where}: the file is empty")
     try:

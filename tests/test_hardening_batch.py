@@ -97,6 +97,16 @@ def test_an_explicit_input_that_is_not_a_regular_file_is_an_error(library, tmp_p
     assert not (tmp_path / "out").exists()
 
 
+def test_build_of_a_fifo_or_device_is_an_error_not_a_hang(tmp_path):
+    fifo = tmp_path / "pipe.xyz"
+    os.mkfifo(fifo)
+    for target in (str(fifo), os.devnull):
+        run = _cli(["build", target, "--out", str(tmp_path / "out")])
+        _one_line_error(run)
+        assert "not a regular file" in run.stderr
+    assert not (tmp_path / "out").exists()
+
+
 def test_a_manifest_that_is_a_fifo_is_an_error_not_a_hang(library, tmp_path):
     out = tmp_path / "out"
     out.mkdir()
