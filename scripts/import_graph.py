@@ -38,12 +38,25 @@ def _resolve(current: str, is_package: bool, level: int, module: str | None) -> 
     return ".".join(base + ([module] if module else []))
 
 
+def _runtime_nodes(tree):
+    """Every node of ``tree`` except those under ``if TYPE_CHECKING:`` (imports for annotations
+    only, never executed)."""
+    stack = [tree]
+    while stack:
+        node = stack.pop()
+        yield node
+        if isinstance(node, ast.If) and isinstance(node.test, ast.Name) and node.test.id == "TYPE_CHECKING":
+            stack.extend(node.orelse)
+            continue
+        stack.extend(ast.iter_child_nodes(node))
+
+
 def graph(root: Path) -> dict[str, set[str]]:
     known = modules(root)
     edges: dict[str, set[str]] = {m: set() for m in known}
     for name, path in known.items():
         is_package = path.name == "__init__.py"
-        for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        for node in _runtime_nodes(ast.parse(path.read_text(encoding="utf-8"))):
             targets = []
             if isinstance(node, ast.Import):
                 targets = [a.name for a in node.names]

@@ -11,11 +11,11 @@ from .basis import Basis, ElementBasis, Shell  # noqa: E402
 from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
 from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
 from .errors import InputError  # noqa: E402
-from .expansion import Fit, fit_sto  # noqa: E402
-from .formats import formats, write_basis  # noqa: E402
-from .formats import merge_basis, read_basis  # noqa: E402
+from .expansion import Fit  # noqa: E402
+from .formats import formats  # noqa: E402
 from .options import BuildOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
-from .pipeline import Prepared, build_structures, prepare  # noqa: E402
+from .pipeline import Prepared, prepare  # noqa: E402
+from .public import build_structures, fit_sto, merge_basis, read_basis, write_basis  # noqa: E402  (argument checks)
 from .screening import ShellExponent, rules  # noqa: E402
 from .structures import Structure, read_structures  # noqa: E402
 

@@ -9,6 +9,9 @@ by its own ζ²) in the same determinant, computed by the free-atom SCF of the c
 
 from __future__ import annotations
 
+import numbers
+from collections.abc import Iterable
+
 import numpy as np
 
 from .atomic import _conf, optimize_zeta, pick_method, solve
@@ -49,7 +52,14 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
-    counts = [gaussians] if isinstance(gaussians, int) else list(gaussians or ())
+    if isinstance(gaussians, numbers.Real):
+        counts = [gaussians]
+    elif isinstance(gaussians, Iterable) and not isinstance(gaussians, (str, bytes)):
+        counts = list(gaussians)
+    elif gaussians is None:
+        counts = []
+    else:
+        raise TypeError(f"gaussians must be a number of Gaussians or a list of them, got {type(gaussians).__name__}")
     counts = [whole_number(n, "number of Gaussians", 1) for n in counts]
     if optimize:
         result = optimize_zeta(conf.symbol, configuration=conf, method=m, rule=rule, zeta=zeta)
@@ -66,6 +76,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         "method": result.method,
         "zeta": dict(result.zeta),
         "energy_exact_hartree": result.energy,
+        "converged": result.converged,
         "virial_ratio": result.virial_ratio,
         "gaussian": rows,
         "orbital_energies": [

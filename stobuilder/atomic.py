@@ -91,13 +91,15 @@ def solve(conf: Configuration, exps, method: str) -> AtomResult:
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",
-                  zeta=None) -> AtomResult:
+                  zeta=None, progress=None) -> AtomResult:
     """Variationally optimal single-ζ exponents: minimum of the SCF energy over every occupied ζ.
 
     Only occupied subshells enter (basis and result). Starts from ``rule`` (with ``zeta`` overrides),
     BFGS in ln ζ with analytic gradients, then
     Newton steps on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree; the returned result
     satisfies the virial theorem −V/T = 2 to about 1e-9. Energies in hartree, ζ in bohr⁻¹.
+    ``progress``, if given, is called with one line of text after every BFGS iteration and Newton
+    step (step count, energy, largest |ζ dE/dζ|).
     """
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)

@@ -29,6 +29,7 @@ import hashlib
 import json
 import os
 import socket
+import stat
 import sys
 import time
 from collections.abc import Callable, Iterable, Mapping, Sequence
@@ -117,6 +118,7 @@ class BatchSummary:
     failed: int
     failures: tuple[tuple[str, str], ...]  # (input path, error message)
     seconds: float
+    notes: tuple[str, ...] = ()  # manifest lines skipped, the backup of a --force run
 
     @property
     def exit_status(self) -> int:
@@ -133,6 +135,7 @@ class BatchSummary:
             "failed": self.failed,
             "failures": [{"input": p, "error": e} for p, e in self.failures],
             "seconds": round(self.seconds, 3),
+            "notes": list(self.notes),
         }
 
 
@@ -163,11 +166,28 @@ def _structure_globs() -> tuple[str, ...]:
     return tuple(sorted({g for fmt in ioformats.values() if fmt.can_read for g in fmt.globs}))
 
 
+def own_output_name(filename: str) -> bool:
+    """True for a name stobuilder itself writes: a file with the extension of a registered basis
+    format (``water.qcschema.json``, which ASE would read as JSON), a merge backup of one
+    (``lib.nw.bak2``), or a batch manifest and its backups."""
+    from .formats import formats
+
+    base = os.path.basename(filename)
+    if base == MANIFEST_NAME or base.startswith(MANIFEST_NAME + "."):
+        return True
+    stem = base
+    root, ext = os.path.splitext(stem)
+    if ext.startswith(".bak") and ext[4:].isdigit() or ext == ".bak":
+        stem = root
+    return any(stem.endswith(f.extension) for f in formats().values())
+
+
 def is_structure_name(filename: str) -> bool:
     """True when ASE would recognise the file by its name: a readable extension (optionally
-    compressed: .gz, .bz2, .xz) or one of ASE's file-name patterns (POSCAR, CONTCAR, ...)."""
+    compressed: .gz, .bz2, .xz) or one of ASE's file-name patterns (POSCAR, CONTCAR, ...), and
+    it is not one of stobuilder's own outputs (``own_output_name``)."""
     base = os.path.basename(filename)
-    if base.startswith("."):
+    if base.startswith(".") or own_output_name(base):
         return False
     root, ext = os.path.splitext(base)
     if ext[1:].lower() in _COMPRESSIONS:
@@ -197,17 +217,47 @@ def read_list(path: str) -> list[str]:
     return out
 
 
-def _walk(folder: str, exclude: str | None) -> list[str]:
+def _file_kind(path: str) -> str | None:
+    """None for a regular file (after symbolic links), else what it is: "a FIFO", "a device",
+    "a socket", "a dangling symbolic link", ... (os.stat never opens, so a FIFO cannot block)."""
+    try:
+        mode = os.stat(path).st_mode
+    except FileNotFoundError:
+        return "a dangling symbolic link" if os.path.islink(path) else "missing"
+    except OSError as exc:
+        return f"unreadable ({exc.strerror})"
+    if stat.S_ISREG(mode):
+        return None
+    if stat.S_ISFIFO(mode):
+        return "a FIFO (named pipe)"
+    if stat.S_ISCHR(mode) or stat.S_ISBLK(mode):
+        return "a device"
+    if stat.S_ISSOCK(mode):
+        return "a socket"
+    if stat.S_ISDIR(mode):
+        return "a folder"
+    return "not a regular file"
+
+
+def _walk(folder: str, exclude: str | None, notes: list[str] | None = None) -> list[str]:
     found = []
     for root, dirs, files in os.walk(folder):
         dirs[:] = sorted(
             d for d in dirs if not d.startswith(".") and os.path.join(root, d) != exclude
         )
-        found.extend(os.path.join(root, f) for f in files if is_structure_name(f))
+        for f in files:
+            if not is_structure_name(f):
+                continue
+            path = os.path.join(root, f)
+            kind = _file_kind(path)
+            if kind is None:
+                found.append(path)
+            elif notes is not None:
+                notes.append(f"skipped {path}: {kind}, not a regular file")
     return sorted(found, key=lambda p: os.path.relpath(p, folder).split(os.sep))
 
 
-def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchItem, ...]:
+def discover(inputs: Sequence[str], exclude: str | None = None, notes: list[str] | None = None) -> tuple[BatchItem, ...]:
     """The structure files named by ``inputs``, each with its output name.
 
     Parameters
@@ -216,10 +266,13 @@ def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchIt
         names ``is_structure_name`` accepts; hidden files and folders skipped) and ``@FILE`` list
         files (see ``read_list``; entries may be files or folders).
     exclude : a folder not to search (the output folder).
+    notes : a list that gets one line per file skipped in a folder (a FIFO, a device, a dangling
+        link: only regular files are inputs, so nothing can block on opening one).
 
     Names are the paths relative to the common folder of all inputs, without the extension;
-    a file given twice is one item. Raises InputError for a missing input, no structure files at
-    all, or two items with the same name.
+    a file given twice is one item. Raises InputError for a missing input, an input named
+    explicitly that is not a regular file, no structure files at all, or two items with the same
+    name.
     """
     if not inputs:
         raise InputError("no inputs given")
@@ -231,12 +284,15 @@ def discover(inputs: Sequence[str], exclude: str | None = None) -> tuple[BatchIt
         path = os.path.abspath(path)
         if os.path.isdir(path):
             anchors.append(path)
-            files.extend(_walk(path, exclude))
-        elif os.path.exists(path):
-            anchors.append(os.path.dirname(path))
-            files.append(path)
-        else:
+            files.extend(_walk(path, exclude, notes))
+            return
+        kind = _file_kind(path)
+        if kind == "missing":
             raise InputError(f"{origin}: no such file or folder")
+        if kind is not None:
+            raise InputError(f"{origin}: {kind}, not a regular file; only regular files are structure inputs")
+        anchors.append(os.path.dirname(path))
+        files.append(path)
 
     for arg in inputs:
         if arg.startswith("@"):
@@ -345,26 +401,65 @@ def manifest_path(out_dir: str) -> str:
     return os.path.join(out_dir, MANIFEST_NAME)
 
 
-def read_manifest(path: str) -> dict[str, dict]:
-    """The last record of every input in a manifest (input path → record). A torn last line (the
-    run was killed while appending) is ignored; any other bad line is an InputError."""
+def _record_problem(record) -> str | None:
+    """Why a decoded manifest line is not a batch record this version can use, or None."""
+    if not isinstance(record, dict):
+        return "not a JSON object"
+    if not isinstance(record.get("input"), str):
+        return "no input path"
+    if record.get("status") not in STATUSES:
+        return f"status {record.get('status')!r} is none of {', '.join(STATUSES)}"
+    if not isinstance(record.get("options", {}), dict):
+        return "options is not an object"
+    files = record.get("files") or {}
+    if not isinstance(files, dict) or not all(
+        isinstance(e, dict) and isinstance(e.get("path"), str) and isinstance(e.get("sha256"), (str, type(None)))
+        for e in files.values()
+    ):
+        return "files is not a table of {path, sha256}"
+    if not isinstance(record.get("input_sha256"), (str, type(None))):
+        return "input_sha256 is not a text"
+    return None
+
+
+def read_manifest(path: str, notes: list[str] | None = None) -> dict[str, dict]:
+    """The last record of every input in a manifest (input path → record).
+
+    A line that is not a usable record (not UTF-8, not JSON, nested too deeply, not a record of
+    this layout) is skipped, and ``notes`` (if given) gets one line naming the line number and the
+    problem; a torn last line (the run was killed while appending) is dropped without a note. The
+    item of a skipped record is simply computed again. Never raises for the file's contents."""
     last: dict[str, dict] = {}
     if not os.path.exists(path):
         return last
-    with open(path, encoding="utf-8") as handle:
-        lines = handle.read().split("\n")
-    for number, line in enumerate(lines, 1):
-        if not line.strip():
+    with open(path, "rb") as handle:
+        lines = handle.read().split(b"\n")
+    bad: list[tuple[int, str]] = []
+    for number, raw in enumerate(lines, 1):
+        if not raw.strip():
             continue
         try:
-            record = json.loads(line)
-        except json.JSONDecodeError:
+            record = json.loads(raw.decode("utf-8"))
+        except UnicodeDecodeError:
+            bad.append((number, "not UTF-8 text"))
+            continue
+        except RecursionError:
+            bad.append((number, "JSON nested too deeply"))
+            continue
+        except ValueError:
             if number == len(lines):  # no newline after it: a torn final append
                 continue
-            raise InputError(f"{path}: line {number} is not a JSON record") from None
-        if not isinstance(record, dict) or "input" not in record or record.get("status") not in STATUSES:
-            raise InputError(f"{path}: line {number} is not a batch record")
+            bad.append((number, "not JSON"))
+            continue
+        problem = _record_problem(record)
+        if problem:
+            bad.append((number, problem))
+            continue
         last[record["input"]] = record
+    if bad and notes is not None:
+        shown = "; ".join(f"line {n}: {why}" for n, why in bad[:5]) + (f"; and {len(bad) - 5} more" if len(bad) > 5 else "")
+        notes.append(f"{path}: skipped {len(bad)} unusable line(s) ({shown}); their items are computed again "
+                     f"(--force starts a fresh manifest, keeping this one as a backup)")
     return last
 
 
@@ -429,9 +524,19 @@ def _utc_now() -> str:
 class _Manifest:
     """The open manifest: an exclusive lock (one batch per folder), appends flushed and fsynced."""
 
-    def __init__(self, path: str):
+    def __init__(self, path: str, fresh: bool = False):
+        """Open (creating) and lock the manifest ``path``. With ``fresh`` (``--force``) an existing
+        manifest is first copied byte for byte to a new backup (``MANIFEST.bak``, ``.bak2``, …;
+        named in ``notes``) and emptied, under the lock. InputError when another batch holds
+        the lock or ``path`` is not a regular file (a FIFO would block the open)."""
         self.path = path
-        self.handle = open(path, "a", encoding="utf-8", newline="\n")
+        self.notes: list[str] = []
+        if os.path.lexists(path) and not os.path.isfile(path):
+            raise InputError(f"{path}: the batch manifest is not a regular file")
+        try:
+            self.handle = open(path, "a", encoding="utf-8", newline="\n")
+        except OSError as exc:
+            raise InputError(f"{path}: cannot open the batch manifest ({exc.strerror})") from None
         try:
             import fcntl
 
@@ -441,7 +546,28 @@ class _Manifest:
         except OSError:
             self.handle.close()
             raise InputError(f"{path}: another batch is running on this output folder") from None
+        if fresh:
+            self._start_fresh()
         self._drop_torn_line()
+
+    def _start_fresh(self) -> None:
+        from .files import create_bytes
+
+        with open(self.path, "rb") as old:
+            data = old.read()
+        if not data:
+            return
+        k = 1
+        while True:
+            backup = f"{self.path}.bak" + (str(k) if k > 1 else "")
+            if not os.path.lexists(backup) and create_bytes(backup, data, stat.S_IMODE(os.stat(self.path).st_mode)):
+                break
+            k += 1
+        self.handle.truncate(0)
+        self.handle.seek(0)
+        self.handle.flush()
+        os.fsync(self.handle.fileno())
+        self.notes.append(f"--force: started a fresh manifest; the former one is kept as {backup}")
 
     def _drop_torn_line(self) -> None:
         """A run killed while appending leaves a last line without its newline: an unfinished
@@ -612,11 +738,62 @@ def default_workers() -> int:
         return os.cpu_count() or 1
 
 
+PARENT_POLL_SECONDS = 0.5  # how often a worker looks whether the batch's main process still lives
+
+
+def worker_count(requested: int | None) -> tuple[int, str | None]:
+    """The local workers for a request: the usable cores when None, else ``requested`` capped
+    at the usable cores (more processes than cores only contend for them), with a note saying
+    so. InputError for a count below 1."""
+    cores = default_workers()
+    if requested is None:
+        return cores, None
+    if isinstance(requested, bool) or not isinstance(requested, int) or requested < 1:
+        raise InputError(f"--workers must be a whole number >= 1, got {requested!r}")
+    if requested > cores:
+        return cores, f"--workers {requested} is more than the {cores} usable core(s); using {cores}"
+    return requested, None
+
+
+def _watch_parent(parent: int) -> None:
+    """Pool initializer: a daemon thread that ends this worker as soon as the process that
+    started it is gone (its parent id changes: the orphan is adopted by init or a subreaper), so
+    that a batch killed with SIGKILL leaves no worker computing for nobody. On Linux the kernel
+    is also asked to send SIGKILL on the parent's death (prctl PR_SET_PDEATHSIG; the poll covers
+    the other systems and the window before the call)."""
+    import threading
+
+    if sys.platform.startswith("linux"):
+        try:
+            import ctypes
+            import signal
+
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # PR_SET_PDEATHSIG = 1 (linux/prctl.h)
+        except (OSError, AttributeError):
+            pass
+
+    def watch():
+        while os.getppid() == parent:
+            time.sleep(PARENT_POLL_SECONDS)
+        os._exit(1)
+
+    if os.getppid() != parent:
+        os._exit(1)
+    threading.Thread(target=watch, name="stobuilder-parent-watch", daemon=True).start()
+
+
 def local_executor(workers: int) -> cf.Executor:
-    """A process pool of ``workers`` processes, started by spawn (no inherited threads or state)."""
+    """A process pool of ``workers`` processes (capped at the usable cores, ``worker_count``),
+    started by spawn (no inherited threads or state); every worker exits when the process that
+    made the pool dies (``_watch_parent``)."""
     import multiprocessing
 
-    return cf.ProcessPoolExecutor(max_workers=workers, mp_context=multiprocessing.get_context("spawn"))
+    count, _ = worker_count(workers)
+    return cf.ProcessPoolExecutor(
+        max_workers=count, mp_context=multiprocessing.get_context("spawn"),
+        initializer=_watch_parent, initargs=(os.getpid(),),
+    )
 
 
 def run_batch(
@@ -651,12 +828,13 @@ def run_batch(
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     prepare_out_dir(out_dir, force)
     path = manifest_path(out_dir)
-    manifest = _Manifest(path)
+    manifest = _Manifest(path, fresh=force)
+    notes = manifest.notes
     progress = progress or NoProgress()
     final: dict[str, dict] = {}
     try:
         _remove_stale_temporaries(out_dir)
-        previous = {} if force else read_manifest(path)
+        previous = {} if force else read_manifest(path, notes)
         todo, skipped = [], []
         for item in items:
             try:
@@ -695,7 +873,7 @@ def run_batch(
     failures = tuple((p, r["error"]) for p, r in final.items() if r["status"] == "failed")
     counts = {s: sum(1 for r in final.values() if r["status"] == s) for s in STATUSES}
     return BatchSummary(out_dir, path, len(final), counts["done"], counts["skipped"], counts["failed"],
-                        failures, time.perf_counter() - start)
+                        failures, time.perf_counter() - start, tuple(notes))
 
 
 def _worker_failure(task: Task, exc: BaseException) -> ItemOutcome:
@@ -752,17 +930,52 @@ def _run_local(tasks: Sequence[Task], workers: int, finish) -> None:
         pending = broken
 
 
+SCHEDULER_PROTOCOLS = ("tcp", "tls", "ucx", "ws", "wss", "inproc")  # distributed's comm back-ends
+
+
+def check_scheduler_address(address: str) -> str:
+    """``address`` when it has the form of a Dask scheduler address, ``PROTOCOL://HOST:PORT``
+    (protocols of SCHEDULER_PROTOCOLS; tcp:// may be left out) with a port 1–65535; InputError
+    otherwise. Checked before anything starts, and before dask is imported."""
+    from urllib.parse import urlsplit
+
+    text = address.strip() if isinstance(address, str) else ""
+    problem = None
+    if not text or any(c.isspace() for c in text):
+        problem = "not an address"
+    else:
+        parts = urlsplit(text if "://" in text else "tcp://" + text)
+        if parts.scheme not in SCHEDULER_PROTOCOLS:
+            problem = f"unknown protocol {parts.scheme!r} (use {', '.join(p + '://' for p in SCHEDULER_PROTOCOLS)})"
+        elif parts.scheme != "inproc":
+            try:
+                port = parts.port
+            except ValueError:
+                port = -1
+            if not parts.hostname:
+                problem = "no host"
+            elif port is None or not 1 <= port <= 65535:
+                problem = "no port 1-65535"
+            elif parts.path not in ("", "/") or parts.query or parts.fragment:
+                problem = "extra text after HOST:PORT"
+    if problem:
+        raise InputError(f"--scheduler {address!r}: {problem}; expected an address such as tcp://host:8786")
+    return text
+
+
 def dask_executor(address: str):
     """A Client connected to the Dask scheduler at ``address`` and its Executor (pure=False:
     every submission runs). Needs dask.distributed (``pip install stobuilder[cluster]``)."""
+    address = check_scheduler_address(address)
     try:
         from distributed import Client
     except ImportError:
         raise InputError("--scheduler needs dask.distributed: pip install 'stobuilder[cluster]'") from None
     try:
         client = Client(address, timeout="10s")
-    except (OSError, TimeoutError) as exc:
-        raise InputError(f"{address}: cannot reach the Dask scheduler ({exc})") from None
+    except (OSError, TimeoutError, ValueError, TypeError) as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(f"{address}: cannot reach the Dask scheduler ({reason})") from None
     return client, client.get_executor(pure=False)
 
 
@@ -773,6 +986,7 @@ __all__ = [
     "ItemOutcome",
     "MANIFEST_NAME",
     "Task",
+    "check_scheduler_address",
     "dask_executor",
     "discover",
     "is_structure_name",
@@ -783,4 +997,5 @@ __all__ = [
     "run_batch",
     "run_item",
     "structure_extensions",
+    "worker_count",
 ]

@@ -18,9 +18,11 @@ of r^(n−1) e^(−ζr).
 from __future__ import annotations
 
 import math
+import numbers
 from collections.abc import Iterable, Mapping
 from itertools import groupby
 
+from . import arguments
 from .basis import Basis, ElementBasis, Shell
 from .elements import Configuration, looks_like_configuration, normalise_symbol, resolve
 from .errors import InputError
@@ -170,6 +172,8 @@ def element_basis(
     """The STO-NG basis of one element (or ion, or explicit configuration); options as ``build_basis``."""
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
+    arguments.text(element, "element")
+    arguments.mapping(zeta, "zeta")
     conf, stos = sto_exponents(element, rule, charge, configuration, zeta)
     try:
         shells = expand(stos, gaussians, norm, exponents, radial)
@@ -193,7 +197,7 @@ def build_basis(
     Parameters
     ----------
     elements : symbols ("Fe"), configuration strings ("Fe: [Ar] 3d7 4s1", "[Ar] 3d7 4s1") or
-        Configuration objects; repeats are ignored.
+        Configuration objects; repeats are ignored. One string is one element ("Co" is cobalt).
     rule : screening rule name (see ``stobuilder.screening.rules()``).
     gaussians : N, the number of primitive Gaussians per STO.
     charge : None (neutral atoms), an int applied to every element, or {symbol: charge}.
@@ -205,6 +209,13 @@ def build_basis(
         (one fit per subshell).
     radial : "integer" (r^(n−1) e^(−ζr)) or "effective-n" (r^(n*−1) e^(−ζr), the rule's n*).
     """
+    elements = _element_items(elements)
+    if isinstance(charge, Mapping):
+        charge = {k: arguments.whole_number(v, f"charge[{k!r}]", allow_none=False) for k, v in charge.items()}
+    else:
+        charge = arguments.whole_number(charge, "charge")
+    for symbol, table in (arguments.mapping(zeta, "zeta") or {}).items():
+        arguments.mapping(table, f"zeta[{symbol!r}]")
     check_options(exponents, radial)
     built: dict[str, ElementBasis] = {}
     zeta = dict(zeta or {})
@@ -225,3 +236,18 @@ def build_basis(
     return Basis(
         tuple(built.values()), rule=rule, gaussians=gaussians, norm=norm, notes=option_notes(exponents, radial), radial=radial
     )
+
+
+def _element_items(value, name: str = "elements") -> tuple:
+    """The items of ``value``: element symbols or configuration strings, or Configurations. One
+    string is one item (``"Co"`` is cobalt, never C and O)."""
+    if isinstance(value, (str, Configuration)):
+        return (value,)
+    if isinstance(value, (bytes, Mapping)) or not isinstance(value, Iterable):
+        raise TypeError(f"{name} must be an element symbol or a list of them, got {arguments._kind(value)} {arguments._shown(value)}")
+    items = tuple(value)
+    for item in items:
+        if not isinstance(item, (str, Configuration)):
+            hint = " (give symbols such as 'Fe', not atomic numbers)" if isinstance(item, numbers.Integral) else ""
+            raise TypeError(f"{name}: {item!r} is not an element symbol{hint}; got {arguments._kind(item)}")
+    return items

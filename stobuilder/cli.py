@@ -111,6 +111,7 @@ def _parser() -> argparse.ArgumentParser:
     t.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
     t.add_argument("--zeta", type=float, default=1.0, metavar="Z", help="zeta of the (first) STO in bohr^-1 (default 1)")
     t.add_argument("--plot", metavar="FILE.png", help="draw the STO, its expansion, the residual and epsilon against N")
+    t.add_argument("--force", action="store_true", help="overwrite an existing --plot file")
     t.add_argument("--json", action="store_true", help="print JSON")
 
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
@@ -195,25 +196,36 @@ def _build_table(report) -> str:
 def _cmd_batch(args) -> int:
     from . import batch
 
-    if args.scheduler and args.workers is not None:
+    if args.scheduler is not None and args.workers is not None:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be >= 1, got {args.workers}")
+    notes: list[str] = []
+    if args.scheduler is not None:
+        batch.check_scheduler_address(args.scheduler)
+    workers = None
+    if args.scheduler is None:
+        workers, note = batch.worker_count(args.workers)
+        notes += [note] if note else []
     from .options import from_args
 
     options = from_args(args)
-    items = batch.discover(args.inputs, exclude=args.out)
+    items = batch.discover(args.inputs, exclude=args.out, notes=notes)
+    for note in notes:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
     client = executor = None
-    if args.scheduler:
+    if args.scheduler is not None:
         client, executor = batch.dask_executor(args.scheduler)
     try:
         summary = batch.run_batch(
-            items, options, args.out, executor=executor, workers=args.workers, force=args.force,
+            items, options, args.out, executor=executor, workers=workers, force=args.force,
             progress=batch.make_progress(len(items), args.progress),
         )
     finally:
         if client is not None:
             client.close()
+    for note in summary.notes:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
     if args.json:
         _print_json(summary.to_json())
     else:
@@ -250,12 +262,13 @@ def _cmd_atom(args) -> int:
     print(f"{doc['element']} {doc['configuration']}: {doc['state']}")
     source = "optimised" if args.optimize else f"rule {args.rule}" + (", your own ζ" if args.zeta else "")
     print(f"  STOs ({source}): " + "  ".join(f"{k} {v:.6f}" for k, v in doc["zeta"].items()))
-    print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}")
+    print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}"
+          + ("" if doc["converged"] else "  NOT CONVERGED"))
     for row in doc["gaussian"]:
         diff = row["energy_hartree"] - doc["energy_exact_hartree"]
         print(
             f"  STO-{row['gaussians']}G ({row['fit']} fit): E = {row['energy_hartree']:.10f} hartree, "
-            f"E - E(exact) = {diff:+.3e}"
+            f"E - E(exact) = {diff:+.3e}" + ("" if row["converged"] else "  NOT CONVERGED")
         )
     print("  orbital energies/hartree: " + "  ".join(
         f"{o['label']}{'' if o['spin'] == 'both' else '(' + o['spin'][0] + ')'} {o['energy_hartree']:.5f}"
@@ -267,6 +280,18 @@ def _cmd_atom(args) -> int:
 # ---------------------------------------------------------------------------- fit
 
 
+def _check_new_file(path: str, force: bool, option: str) -> None:
+    """Before any work: ``path`` may be written (it does not exist, not even as a dangling
+    symbolic link, unless ``force``; it is not a folder)."""
+    import os
+
+    if os.path.isdir(path):
+        raise InputError(f"{option} {path}: is a folder")
+    if os.path.lexists(path) and not force:
+        what = "is a dangling symbolic link" if not os.path.exists(path) else "exists"
+        raise InputError(f"{option} {path}: {what}; use --force to replace it")
+
+
 def _cmd_fit(args) -> int:
     from .expansion import lookup
     from .expansion.report import fit_document, fit_table
@@ -275,6 +300,8 @@ def _cmd_fit(args) -> int:
 
     labels = [x for item in args.subshells for x in item.split(",") if x]
     zeta_value(args.zeta, "--zeta")
+    if args.plot:
+        _check_new_file(args.plot, args.force, "--plot")
     fit = lookup(labels, args.gaussians, args.fit)
     doc = fit_document(fit, args.zeta)  # validates --zeta
     if args.plot:
@@ -352,10 +379,57 @@ COMMANDS = {
 }
 
 
+EXIT_BROKEN_PIPE = 141  # 128 + SIGPIPE, what a shell reports for a command killed by a closed pipe
+
+
+class _StderrHandler:
+    """Log records of the stobuilder loggers (progress of long computations) as
+    ``stobuilder: message`` lines on whatever sys.stderr is at the time."""
+
+    @staticmethod
+    def install() -> None:
+        import logging
+
+        logger = logging.getLogger("stobuilder")
+        if any(getattr(h, "_stobuilder_cli", False) for h in logger.handlers):
+            return
+
+        class Handler(logging.Handler):
+            _stobuilder_cli = True
+
+            def emit(self, record):
+                try:
+                    print(f"stobuilder: {record.getMessage()}", file=sys.stderr, flush=True)
+                except (OSError, ValueError):
+                    pass
+
+        logger.addHandler(Handler(logging.INFO))
+        logger.setLevel(logging.INFO)
+        logger.propagate = False
+
+
+def _quiet_broken_pipe() -> int:
+    """stdout's reader has gone (``stobuilder formats | head -1``): stop quietly, as command-line
+    tools do, with no message and no second error when Python flushes stdout at exit."""
+    import os
+
+    try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+    return EXIT_BROKEN_PIPE
+
+
 def main(argv=None) -> int:
     try:
+        _StderrHandler.install()
         args = _parser().parse_args(argv)
-        return COMMANDS[args.command](args)
+        status = COMMANDS[args.command](args)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handlers, not at exit
+        return status
+    except BrokenPipeError:
+        return _quiet_broken_pipe()
     except InputError as exc:
         print(f"stobuilder: error: {exc}", file=sys.stderr)
         return EXIT_BAD_INPUT

@@ -14,6 +14,7 @@ from dataclasses import dataclass
 
 from ase.data import atomic_numbers, chemical_symbols
 
+from . import arguments
 from .errors import InputError
 
 L_LETTERS = "spdfghi"
@@ -181,9 +182,11 @@ def _neutral_occupations(symbol: str, z: int) -> dict[tuple[int, int], int]:
 def ground_state(element: str, charge: int = 0) -> Configuration:
     """Ground-state configuration of a neutral atom or of an ion of charge ``charge``.
 
-    Raises InputError for elements beyond Rn or charges that leave no electrons.
+    Raises InputError for elements beyond Rn, fractional charges or charges that leave no
+    electrons; TypeError for an element that is not a str or a charge that is not a number.
     """
-    symbol = normalise_symbol(element)
+    symbol = normalise_symbol(arguments.text(element, "element"))
+    charge = arguments.whole_number(charge, "charge", allow_none=False)
     z = atomic_numbers[symbol]
     if z > MAX_Z:
         raise InputError(f"element {symbol} (Z = {z}) is beyond Rn; configurations cover H–Rn")
@@ -211,7 +214,9 @@ def parse_configuration(text: str, element: str | None = None) -> Configuration:
     The element is ``element`` if given, else the symbol before a colon, else the neutral atom
     with as many electrons as the configuration holds.
     """
-    raw = text.strip()
+    raw = arguments.text(text, "configuration").strip()
+    if element is not None:
+        arguments.text(element, "element")
     if ":" in raw:
         head, raw = raw.split(":", 1)
         element = element or head
@@ -265,11 +270,12 @@ def looks_like_configuration(text: str) -> bool:
 
 def resolve(element: str, charge: int = 0, configuration: str | Configuration | None = None) -> Configuration:
     """The configuration meant by an element symbol, a configuration string, or both."""
+    charge = arguments.whole_number(charge, "charge", allow_none=False)
     if isinstance(configuration, Configuration):
         return configuration
     if configuration is not None:
         conf = parse_configuration(configuration, element)
-    elif looks_like_configuration(element):
+    elif looks_like_configuration(arguments.text(element, "element")):
         conf = parse_configuration(element)
     else:
         return ground_state(element, charge)

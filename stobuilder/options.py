@@ -33,8 +33,12 @@ def parse_zeta_overrides(items, per_element: bool = False) -> dict:
     from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
 
     out: dict = {}
+    if isinstance(items, str):
+        items = [items]  # one item, never its characters
     for item in items or ():
-        text = str(item)
+        if not isinstance(item, str):
+            raise TypeError(f"zeta overrides: {item!r} is not a text such as '1s=1.6875'")
+        text = item
         if "=" not in text:
             raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
         key, value = text.split("=", 1)
@@ -65,9 +69,22 @@ def parse_zeta_overrides(items, per_element: bool = False) -> dict:
     return out
 
 
+def _normalised_or_none(text: str):
+    from .elements import normalise_symbol
+
+    try:
+        return normalise_symbol(text)
+    except InputError:
+        return None
+
+
 def load_zeta_file(path) -> dict[str, dict[str, float]]:
     """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
     import sys
+
+    from . import arguments
+
+    path = arguments.path(path, "path")
 
     from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
 
@@ -91,8 +108,9 @@ def load_zeta_file(path) -> dict[str, dict[str, float]]:
             raise InputError(f"{where}: {err}") from None
         if not isinstance(table, dict):
             raise InputError(f"{where}: {sym} must be a table of LABEL = VALUE")
-        if symbol in out:
-            raise InputError(f"{where}: [{sym}] names {symbol} a second time")
+        if symbol in out:  # TOML keys are case-sensitive, element symbols are not: [H] and [h]
+            first = next(k for k in doc if k != sym and _normalised_or_none(k) == symbol)
+            raise InputError(f"{where}: [{first}] and [{sym}] are both element {symbol}; give one table")
         entry = out[symbol] = {}
         for label, value in table.items():
             try:
@@ -101,7 +119,7 @@ def load_zeta_file(path) -> dict[str, dict[str, float]]:
                 raise InputError(f"{where}: [{sym}] {err}") from None
             key = f"{n}{L_LETTERS[l]}"
             if key in entry:
-                raise InputError(f"{where}: [{sym}] {label} is given twice")
+                raise InputError(f"{where}: [{sym}] gives {key} twice")
             entry[key] = zeta_value(value, f"{where}: [{sym}] {label}")
     return out
 

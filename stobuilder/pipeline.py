@@ -17,6 +17,7 @@ failed, and writes nothing for it either).
 from __future__ import annotations
 
 import os
+import stat
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
@@ -24,7 +25,7 @@ from .basis import Basis
 from .build import build_basis
 from .checks import Check
 from .errors import InputError
-from .files import atomic_write, check_targets, write_all
+from .files import check_targets, create_bytes, replace_bytes, write_all
 from .formats import format_for_path, get_format, merge_basis, render_checked
 from .methods import pick_method
 from .naming import output_file, structure_name
@@ -249,12 +250,47 @@ def union_basis(bases: Sequence[Basis]) -> Basis:
 
 
 def backup_path(path: str) -> str:
-    """The first of ``path.bak``, ``path.bak2``, ``path.bak3`` … that does not exist."""
+    """The first of ``path.bak``, ``path.bak2``, ``path.bak3`` … that does not exist (a dangling
+    symbolic link counts as existing)."""
     candidate, k = path + ".bak", 1
     while os.path.lexists(candidate):
         k += 1
         candidate = f"{path}.bak{k}"
     return candidate
+
+
+def _write_backup(path: str, data: bytes, mode: int) -> str:
+    """A new backup file beside ``path`` holding ``data`` (permission bits ``mode``), never
+    replacing an existing file, even one another process creates meanwhile."""
+    while True:
+        backup = backup_path(path)
+        if create_bytes(backup, data, mode):
+            return backup
+
+
+def read_merge_target(path: str) -> tuple[str, bytes, str, int]:
+    """The basis file that ``--merge-into path`` updates: (real path after symbolic links, its
+    bytes, its text with line ends as \\n, its permission bits). InputError for a missing file,
+    a folder, a FIFO or device (never opened: it could block), or bytes that are not UTF-8."""
+    real = os.path.realpath(path)
+    try:
+        info = os.stat(real)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError(f"{path}: not a regular file")
+    try:
+        with open(real, "rb") as handle:
+            data = handle.read()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a UTF-8 text file") from None
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    return real, data, text.replace("\r\n", "\n").replace("\r", "\n"), stat.S_IMODE(info.st_mode)
 
 
 def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, source: str = "text") -> str:
@@ -275,18 +311,37 @@ def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, sour
 
 def merge_file(path: str, basis: Basis, code: str | None = None, sp_shells: bool = False) -> tuple[str, str]:
     """Add or replace the elements of ``basis`` in the basis file ``path`` (format ``code``, or
-    told by the file name). The old file is first copied to a backup (``backup_path``), then the
-    merged text replaces it; both writes are atomic. Returns (path, backup path)."""
+    told by the file name). Returns (path, backup path).
+
+    The old bytes are first copied, byte for byte and with the file's permission bits, to a new
+    backup beside ``path`` (``backup_path``: FILE.bak, FILE.bak2, …; an existing file is never
+    replaced); then the merged text replaces the file atomically, through a temporary file in the
+    file's own folder, with the file's permission bits and its line ends (CRLF stays CRLF). When
+    ``path`` is a symbolic link, the file it points at is updated and the link stays a link. If
+    the update fails, the backup is removed again and the file is as it was; errors are
+    InputError naming ``path``.
+    """
     code = code or format_for_path(path)
-    try:
-        with open(path, encoding="utf-8") as handle:
-            text = handle.read()
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not a text file") from None
+    real, data, text, mode = read_merge_target(path)
     merged = merge_text(text, basis, code, sp_shells, source=path)
-    backup = backup_path(path)
-    atomic_write(backup, text)
-    atomic_write(path, merged, keep_mode=True)
+    crlf = b"\r\n" in data and data.count(b"\n") == data.count(b"\r\n")
+    out = (merged.replace("\n", "\r\n") if crlf else merged).encode("utf-8")
+    if data.startswith(b"\xef\xbb\xbf"):
+        out = b"\xef\xbb\xbf" + out
+    try:
+        backup = _write_backup(path, data, mode)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot write the backup ({exc.strerror}); nothing changed") from None
+    try:
+        replace_bytes(real, out, mode)
+    except BaseException as exc:
+        try:
+            os.unlink(backup)
+        except OSError:
+            pass
+        if isinstance(exc, OSError):
+            raise InputError(f"{path}: cannot replace the file ({exc.strerror}); nothing changed") from None
+        raise
     return path, backup
 
 
@@ -348,8 +403,7 @@ def build_structures(
     if merge_into is not None:
         merged = union_basis([item.basis for item in prepared])
         code = options.codes[0]
-        with open(merge_into, encoding="utf-8") as handle:
-            merge_text(handle.read(), merged, code, options.sp_shells, source=merge_into)
+        merge_text(read_merge_target(merge_into)[2], merged, code, options.sp_shells, source=merge_into)
     elif write:
         check_targets(sources, force)
     if options.check:  # before anything is written: a check that fails writes nothing

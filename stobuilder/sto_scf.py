@@ -341,7 +341,7 @@ def _orbitals(mf, method, basis, classify) -> tuple[OrbitalEnergy, ...]:
 
 
 # ---------------------------------------------------------------- exponent optimisation
-def optimize_exponents(conf: Configuration, exps: tuple[ShellExponent, ...], method: str) -> AtomResult:
+def optimize_exponents(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, progress=None) -> AtomResult:
     """Variationally optimal single-ζ exponents of the subshells ``exps`` (the occupied ones of
     ``conf``, starting values), method "rhf", "rohf" or "uhf": BFGS in ln ζ with analytic
     gradients, then Newton steps on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree."""
@@ -370,10 +370,26 @@ def optimize_exponents(conf: Configuration, exps: tuple[ShellExponent, ...], met
         return r.energy, g
 
     x = np.array([math.log(e.zeta) for e in exps])
-    opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500})
+    steps = [0]
+
+    def report(stage, x):
+        """One progress line for ``progress``; reads only what is already computed (no extra SCF, so
+        the result is the same with and without ``progress``)."""
+        steps[0] += 1
+        known = cache.get(tuple(float(v) for v in x))
+        if known is None:
+            progress(f"{stage} step {steps[0]}")
+        else:
+            r, g = known
+            progress(f"{stage} step {steps[0]}: E = {r.energy:.8f} hartree, max |ζ dE/dζ| = {np.max(np.abs(g)):.1e}")
+
+    opt = scipy.optimize.minimize(fun, x, jac=True, method="BFGS", options={"gtol": 1e-7, "maxiter": 500},
+                                  callback=(lambda xk: report("BFGS", xk)) if progress is not None else None)
     x = opt.x
     for _ in range(8):  # Newton polish on the analytic gradient (central-difference Hessian)
         r, g = evaluate(x)
+        if progress is not None:
+            report("Newton", x)
         if np.max(np.abs(g)) < 1e-10:
             break
         h = 1e-4

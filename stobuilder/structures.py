@@ -7,9 +7,15 @@ values override them. Ghost/dummy atoms (ASE's symbol X) are skipped with a note
 
 from __future__ import annotations
 
+import decimal
+import math
+import numbers
 import os
+import re
 import warnings
 from dataclasses import dataclass
+
+import numpy as np
 
 from .elements import MAX_Z, atomic_number
 from .errors import InputError
@@ -57,17 +63,78 @@ def _hill_key(symbol: str):
     return (0 if symbol == "C" else 1 if symbol == "H" else 2, symbol)
 
 
-def _info_int(info: dict, key: str, where: str) -> int | None:
+def _shown(value) -> str:
+    """A value as the file gave it, for a message: strings quoted, numbers as numbers."""
+    text = str(value)
+    return " ".join(text.split())[:60]
+
+
+INFO_KEYS = ("charge", "spin", "multiplicity")
+_DELIMITERS = {'"': '"', "'": "'", "{": "}", "[": "]"}
+_RAW_VALUE = re.compile(r"""(?:^|\s)(charge|spin|multiplicity)\s*=\s*("[^"]*"|'[^']*'|\{[^}]*\}|\[[^\]]*\]|[^\s"'{\[]\S*)""")
+
+
+def _extxyz_properties(string: str, sep=None) -> dict:
+    """ASE's extxyz comment-line parser, with the text of our keys kept as written: ASE turns
+    ``charge=1e-400`` into 0.0 and ``2.0000000000000001`` into 2.0, so the exact check needs the
+    text."""
+    from ase.io.extxyz import key_val_str_to_dict
+
+    info = key_val_str_to_dict(string, sep=sep)
+    if sep is None:
+        for match in _RAW_VALUE.finditer(string):
+            if match.group(1) in info:
+                info[match.group(1)] = match.group(2)
+    return info
+
+
+def _number_text(text: str, shown: str, where: str) -> int:
+    """The whole number a text denotes exactly (decimal arithmetic: no rounding to a double)."""
+    inner = text.strip()
+    if len(inner) >= 2 and _DELIMITERS.get(inner[0]) == inner[-1]:
+        inner = inner[1:-1].strip()
+    try:
+        value = decimal.Decimal(inner)
+    except decimal.InvalidOperation:
+        raise InputError(f"{where}: {shown} is not a number; a whole number is expected") from None
+    if not value.is_finite():
+        raise InputError(f"{where}: {shown} is not a finite number; a whole number is expected")
+    if value.adjusted() > 30:  # far out of any range; int() of 1e999999999 would take a billion digits
+        raise InputError(f"{where}: {shown} is out of range")
+    if value != value.to_integral_value():
+        raise InputError(f"{where}: {shown} is not a whole number")
+    return int(value)
+
+
+def _info_int(info: dict, key: str, where: str, low: int, high: int) -> int | None:
+    """The whole number in the comment-line key ``key`` (extxyz ``charge``, ``spin``,
+    ``multiplicity``), or None when the file has no such key. InputError naming the file and the
+    key for a value that is not one finite whole number (nan, inf, 1e400, 1.5, 1e-400, T, a
+    string, an array) or lies outside ``low`` … ``high``."""
     if key not in info:
         return None
     value = info[key]
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        raise InputError(f"{where}: {key}={value!r} is not a number") from None
-    if number != int(number):
-        raise InputError(f"{where}: {key}={value!r} is not a whole number")
-    return int(number)
+    shown = f"{key}={_shown(value)}"
+    if isinstance(value, (bool, np.bool_)):
+        raise InputError(f"{where}: {shown} is not a number; a whole number is expected")
+    if isinstance(value, np.ndarray) and value.ndim == 0:
+        value = value[()]
+    if isinstance(value, str):
+        number = _number_text(value, shown, where)
+    elif isinstance(value, numbers.Integral):
+        number = int(value)
+    elif isinstance(value, numbers.Real):
+        x = float(value)
+        if not math.isfinite(x):
+            raise InputError(f"{where}: {shown} is not a finite number; a whole number is expected")
+        if not x.is_integer():
+            raise InputError(f"{where}: {shown} is not a whole number")
+        number = int(x)
+    else:
+        raise InputError(f"{where}: {shown} is not a single number; a whole number is expected")
+    if not low <= number <= high:
+        raise InputError(f"{where}: {shown} is out of range; this structure allows {low} to {high}")
+    return number
 
 
 def default_spin(electrons: int) -> int:
@@ -100,6 +167,17 @@ def validate_charge_spin(where: str, electrons: int, charge: int, spin: int) -> 
         )
 
 
+def _reader_options(path: str, format: str | None) -> dict:
+    """Extra keywords for ASE's reader: extxyz gets the parser that keeps our keys' text."""
+    from ase.io.formats import filetype
+
+    try:
+        kind = format or filetype(path, read=True)
+    except Exception:  # ASE's own read reports an unreadable file
+        return {}
+    return {"properties_parser": _extxyz_properties} if kind == "extxyz" else {}
+
+
 def read_structures(
     path: str | os.PathLike,
     charge: int | None = None,
@@ -113,17 +191,23 @@ def read_structures(
     """
     import ase.io
 
-    where = os.fspath(path)
+    from . import arguments
+
+    where = arguments.path(path, "path")
+    charge = arguments.whole_number(charge, "charge")
+    spin = arguments.whole_number(spin, "spin")
     if not os.path.exists(where):
         raise InputError(f"{where}: no such file")
     if os.path.isdir(where):
         raise InputError(f"{where}: is a folder, not a structure file")
+    if not os.path.isfile(where):  # a FIFO or device: reading could block or never end
+        raise InputError(f"{where}: not a regular file (a FIFO or a device?), not a structure file")
     if os.path.getsize(where) == 0:
         raise InputError(f"{where}: the file is empty")
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            frames = ase.io.read(where, index=":", format=format)
+            frames = ase.io.read(where, index=":", format=format, **_reader_options(where, format))
     except Exception as exc:  # ASE raises many types for unreadable input
         reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise InputError(f"{where}: not a structure file ASE can read ({reason})") from None
@@ -153,17 +237,27 @@ def read_structures(
         if not symbols:
             raise InputError(f"{label}: no atoms (after skipping ghost atoms)")
         info = dict(atoms.info)
-        q = charge if charge is not None else _info_int(info, "charge", label)
+        nuclear = sum(atomic_number(x) for x in symbols)
+        # a file's charge leaves 1 … 2Z electrons (no bound system holds more than twice its
+        # nuclear charge in electrons: common practice, no source)
+        q = charge if charge is not None else _info_int(info, "charge", label, -nuclear, nuclear - 1)
         q = int(q or 0)
-        s = spin
+        if nuclear - q < 1:
+            validate_charge_spin(label, nuclear - q, q, 0)  # names the charge
+        s, origin = spin, ""
         if s is None:
-            s = _info_int(info, "spin", label)
+            s = _info_int(info, "spin", label, 0, max(nuclear - q, 0))
+            origin = "" if s is None else f" (the file's spin={s})"
         if s is None:
-            mult = _info_int(info, "multiplicity", label)
+            mult = _info_int(info, "multiplicity", label, 1, max(nuclear - q, 0) + 1)
             s = None if mult is None else mult - 1
-        electrons = sum(atomic_number(x) for x in symbols) - q
+            origin = "" if s is None else f" (the file's multiplicity={mult})"
+        electrons = nuclear - q
         s = (atom_spin(symbols[0], q, electrons) if len(symbols) == 1 else default_spin(electrons)) if s is None else int(s)
-        validate_charge_spin(label, electrons, q, s)
+        try:
+            validate_charge_spin(label, electrons, q, s)
+        except InputError as exc:
+            raise InputError(f"{exc}{origin}") from None
         out.append(
             Structure(
                 path=where,

@@ -124,7 +124,7 @@ def test_report_gaussian_error_shrinks():
     # 4 0.110, 5 0.0357, 6 0.0126 (one fit per subshell gave 5.66, 1.49, 0.393, 0.118, 0.0377, 0.0132),
     # and (one fit per subshell, slow, fitted on demand) 8 1.9e-3, 10 7.4e-4, 12 9.9e-5.
     rep = atom_report("C", gaussians=[1, 2, 3, 4, 5, 6])
-    assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree",
+    assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree", "converged",
                         "virial_ratio", "gaussian", "orbital_energies"}
     diffs = [g["energy_hartree"] - rep["energy_exact_hartree"] for g in rep["gaussian"]]
     assert all(d > 0 for d in diffs)  # the Gaussian imitation is variationally worse

@@ -48,7 +48,7 @@ def test_zeta_in_a_zeta_file(tmp_path, capsys, water, value):
 def test_zeta_file_naming_one_element_twice(tmp_path):
     zfile = tmp_path / "z.toml"
     zfile.write_text("[H]\n1s = 1.2\n[h]\n1s = 1.3\n")
-    with pytest.raises(InputError, match=r"\[h\] names H a second time"):
+    with pytest.raises(InputError, match=r"\[H\] and \[h\] are both element H"):
         load_zeta_file(zfile)
 
 
@@ -67,7 +67,7 @@ def test_a_negative_zeta_from_the_rule_is_refused(tmp_path, capsys):
     src = xyz(tmp_path / "h.xyz", ["H 0 0 0"])
     out_dir = tmp_path / "o"
     code, _, err = run(["build", str(src), "--charge", "-5", "--out", str(out_dir)], capsys)
-    assert_bad_input(code, err, out_dir, str(src), "ζ = -0.875", "no positive effective charge")
+    assert_bad_input(code, err, out_dir, str(src), "ζ = -0.875", "needs a positive ζ")
     code, _, err = run(["atom", "H", "--charge", "-5"], capsys)
     assert code == 2 and "ζ = -0.875" in err and err.count("\n") == 1
 
@@ -104,7 +104,7 @@ def test_the_python_api_goes_through_the_same_checks():
     for bad in (1e-200, 1e200, float("inf"), -2.0):
         with pytest.raises(InputError, match="zeta override 2p"):
             element_basis("O", zeta={"2p": bad})
-    with pytest.raises(InputError, match="no positive effective charge"):
+    with pytest.raises(InputError, match="needs a positive ζ"):
         build_basis(["H"], charge=-5)
     basis = build_basis(["O"], gaussians=12, zeta={"O": {"1s": ZETA_MAX, "2p": ZETA_MIN}})
     assert all(EXPONENT_MIN <= a <= EXPONENT_MAX for s in basis["O"].shells for a in s.exponents)

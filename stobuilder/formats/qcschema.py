@@ -91,6 +91,8 @@ def _load(text: str) -> tuple[dict, Lines]:
         doc = json.loads(text)
     except json.JSONDecodeError as exc:
         raise lines.error(exc.lineno, f"not JSON: {exc.msg} (column {exc.colno})") from None
+    except RecursionError:  # json's decoder recurses once per nesting level
+        raise lines.error(1, "JSON nested too deeply to be a basis-set document") from None
     if not isinstance(doc, dict):
         raise lines.error(1, "a JSON object expected")
     _precheck(text, doc, lines)

@@ -6,6 +6,7 @@ and one line in ``_MODULES`` (see DEVELOPERS.md).
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import import_module
@@ -48,8 +49,28 @@ def get_rule(name: str) -> Rule:
 
 
 def shell_exponents(conf: Configuration, rule: str = "slater") -> tuple[ShellExponent, ...]:
-    """ζ of every basis subshell of ``conf`` under the named rule."""
-    return get_rule(rule).shell_exponents(conf)
+    """ζ of every basis subshell of ``conf`` under the named rule.
+
+    The one door to every rule: a rule's error is given the element, the configuration and the
+    rule's name, and every ζ the rule gives is checked here to be a finite positive number (an
+    absurd anion such as H⁵⁻ drives Slater's Zeff below zero)."""
+    chosen = get_rule(rule)
+    where = f"{conf.symbol} {conf.label}" + (f" (charge {conf.charge:+d})" if conf.charge else "")
+    try:
+        stos = chosen.shell_exponents(conf)
+    except InputError as exc:
+        message = str(exc)
+        for prefix in (f"{conf.symbol} {conf.label}", f"{conf.symbol}:"):
+            if message.startswith(prefix):
+                message = message[len(prefix):].lstrip(" :")
+        raise InputError(f"{where}, rule {chosen.name}: {message}") from None
+    for s in stos:
+        if not (math.isfinite(s.zeta) and s.zeta > 0):
+            raise InputError(
+                f"{where}, rule {chosen.name}: subshell {s.label} gets Zeff = {s.zeff:.4g} and ζ = {s.zeta:.4g} "
+                "bohr⁻¹; an STO needs a positive ζ (too many electrons for this nucleus?)"
+            )
+    return stos
 
 
 __all__ = ["Rule", "ShellExponent", "basis_subshells", "get_rule", "rules", "shell_exponents"]

@@ -12,6 +12,8 @@ takes the ζ of that s. Method as in Clementi & Raimondi, J. Chem. Phys. 38, 268
 from __future__ import annotations
 
 import json
+import logging
+import time
 from functools import lru_cache
 from importlib import resources
 
@@ -34,6 +36,7 @@ def table() -> dict:
     return json.loads(path.read_text())
 
 
+PROGRESS_SECONDS = 2.0  # at most one progress line (logger stobuilder.screening.optimized) this often
 CACHE_VERSION = "exact-sto-single-zeta-1"  # bump when the optimisation changes its results
 
 
@@ -59,8 +62,21 @@ def _optimise(conf: Configuration) -> tuple[tuple[str, float], ...]:
             return tuple((k, float(v)) for k, v in doc["zeta"].items())
     except (OSError, ValueError, KeyError, AttributeError):
         pass  # missing or damaged: compute again
-    start = tuple(e for e in slater_exponents(conf) if conf.occupation(e.n, e.l))
-    zeta = tuple(optimize_exponents(conf, start, pick_method(conf, "auto")).zeta.items())
+    log = logging.getLogger(__name__)
+    start = time.monotonic()
+    log.info(f"optimising ζ of {conf.symbol} {conf.label} (not in the shipped table; heavy elements take "
+             f"minutes; the result is cached in {path.parent})")
+    last = [start]
+
+    def progress(line: str) -> None:
+        now = time.monotonic()
+        if now - last[0] >= PROGRESS_SECONDS:
+            last[0] = now
+            log.info(f"{conf.symbol}: {line}, {now - start:.0f} s")
+
+    initial = tuple(e for e in slater_exponents(conf) if conf.occupation(e.n, e.l))
+    zeta = tuple(optimize_exponents(conf, initial, pick_method(conf, "auto"), progress=progress).zeta.items())
+    log.info(f"{conf.symbol}: ζ optimised in {time.monotonic() - start:.0f} s")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
         doc = {"version": CACHE_VERSION, "symbol": conf.symbol, "configuration": conf.label, "zeta": dict(zeta)}
