@@ -220,3 +220,20 @@ def create_bytes(path: str, data: bytes, mode: int | None = None) -> bool:
     finally:
         _unlink_quietly(tmp)
     return True
+
+
+CACHE_ENV = "STOBUILDER_CACHE_DIR"
+
+
+def cache_folder(kind: str):
+    """The one place cache folders come from: ``$STOBUILDER_CACHE_DIR/<kind>`` if the variable is
+    set, else ``platformdirs.user_cache_dir("stobuilder")/<kind>`` (never the package folder).
+    ``kind`` is "fits" (fits computed on demand) or "optimized" (optimised ζ beyond the table)."""
+    from pathlib import Path
+
+    env = os.environ.get(CACHE_ENV)
+    if env:
+        return Path(env) / kind
+    import platformdirs
+
+    return Path(platformdirs.user_cache_dir("stobuilder")) / kind

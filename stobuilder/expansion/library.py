@@ -17,17 +17,16 @@ from __future__ import annotations
 
 import hashlib
 import json
-import os
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
 from typing import Iterable, Mapping
 
+from ..files import CACHE_ENV, cache_folder
 from ..version import __version__
 from .fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
 
 LIBRARY_MAX_GAUSSIANS = 12
-CACHE_ENV = "STOBUILDER_CACHE_DIR"
 REGENERATE_COMMAND = "python -m stobuilder.expansion.regenerate"
 
 
@@ -134,13 +133,8 @@ def _library(norm: str) -> dict:
 
 
 def cache_dir() -> Path:
-    """The folder of fits computed on demand: $STOBUILDER_CACHE_DIR, else the user cache folder."""
-    env = os.environ.get(CACHE_ENV)
-    if env:
-        return Path(env) / "fits"
-    import platformdirs
-
-    return Path(platformdirs.user_cache_dir("stobuilder")) / "fits"
+    """The folder of fits computed on demand (``files.cache_folder("fits")``)."""
+    return cache_folder("fits")
 
 
 def _cache_key(labels, gaussians, norm, n_eff, zeta_ratio) -> str:

@@ -43,10 +43,10 @@ CACHE_VERSION = "exact-sto-single-zeta-1"  # bump when the optimisation changes 
 def _cache_file(conf: Configuration):
     import hashlib
 
-    from ..expansion.library import cache_dir
+    from ..files import cache_folder
 
     key = hashlib.sha256(f"{CACHE_VERSION};{conf.symbol};{conf.label}".encode()).hexdigest()[:16]
-    return cache_dir().parent / "optimized" / f"{conf.symbol}-{key}.json"
+    return cache_folder("optimized") / f"{conf.symbol}-{key}.json"
 
 
 @lru_cache(maxsize=None)
