@@ -3,24 +3,10 @@
 The entry points by element and screening rule (``atom_energy``, ``optimize_zeta``); the engine
 on given exponents is stobuilder.sto_scf, and the ``atom`` command's document stobuilder.atom.
 
-The integrals are the exact one-centre STO integrals of :mod:`stobuilder.sto`; the SCF uses
-PySCF's RHF / ROHF / UHF drivers with those integrals in place of libcint's (the usual way to run
-PySCF on a model Hamiltonian: overridden get_hcore, get_ovlp and _eri). The orbitals are kept
-pure in (l, m): the Fock matrix is diagonalised block by block, and the occupations follow the
-configuration — high spin, the open electrons of a subshell in distinct real m components in the
-order m = 1, −1, 2, −2, …, 0 (p: x, y, z). Such a determinant is a pure LS term when every open
-subshell has one electron or one hole in its partly filled spin set (all of p, d¹ d⁴ d⁵ d⁶ d⁹ …)
-and at most one open subshell has L > 0; otherwise the state string says that it is not.
-
-Exponent optimisation minimises the SCF energy over the ζ of every occupied subshell with
-analytic gradients dE/dζ = Σ_σ Σ D^σ ∘ ∂F^σ − W ∘ ∂S (the Hellmann–Feynman/Pulay form for a
-converged determinant, W = Σ_σ D^σ F^σ D^σ; Pulay, Mol. Phys. 17, 197, 1969), where
-∂χ_n/∂ζ = (n + ½)/ζ χ_n − √((2n+2)(2n+1))/(2ζ) χ_{n+1} is again an STO. The exact optimum obeys
-the virial theorem −V/T = 2 (scaling argument: Löwdin, J. Mol. Spectrosc. 3, 46, 1959).
-The optimisation is over the occupied subshells only, in a basis of those subshells (the single-ζ
-functions of Clementi & Raimondi 1963); an empty basis subshell such as Na 3p would otherwise act as
-a second p function for 2p. The ``optimized`` rule gives empty subshells the ζ of the s of their n.
-Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963).
+The method (exact one-centre STO integrals, PySCF's drivers with the occupations held to the
+configuration, analytic ζ gradients, the virial theorem at the optimum) and its sources are in
+stobuilder.sto_scf's docstring. Reference values: E. Clementi and D. L. Raimondi, J. Chem. Phys.
+38, 2686 (1963).
 """
 
 from __future__ import annotations
