@@ -41,17 +41,13 @@ def _cannot(path: str, exc: OSError) -> InputError:
     return InputError(f"{path}: cannot write it ({exc.strerror or exc})")
 
 
-def stage(path: str, data: str | bytes | Callable[[str], None], keep_mode: bool = False) -> str:
-    """Write a temporary file beside ``path`` with ``data`` (text, written UTF-8 with "\\n" line
-    ends; bytes; or a function that writes the file it is given) and return its name. The mode is
-    the umask's, or with ``keep_mode`` that of the existing ``path``. InputError names ``path``."""
-    folder = os.path.dirname(os.path.abspath(path))
+def _write_temp(folder: str, data: str | bytes | Callable[[str], None], mode: int) -> str:
+    """The one low-level writer: a fsynced temporary file in ``folder`` holding ``data`` (text,
+    written UTF-8 with "\\n" line ends; bytes; or a function that writes the file it is given),
+    with permission bits ``mode``. Returns its name; raises OSError (nothing left behind)."""
+    fd, tmp = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
     try:
-        fd, tmp = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
-    except OSError as exc:
-        raise _cannot(path, exc) from None
-    try:
-        os.fchmod(fd, _mode_for(path, keep_mode))
+        os.fchmod(fd, mode)
         if callable(data):
             os.close(fd)
             fd = -1
@@ -65,14 +61,23 @@ def stage(path: str, data: str | bytes | Callable[[str], None], keep_mode: bool 
                 handle.write(raw)
                 handle.flush()
                 os.fsync(handle.fileno())
-    except BaseException as exc:
+    except BaseException:
         if fd >= 0:
             os.close(fd)
         _unlink(tmp)
-        if isinstance(exc, OSError):
-            raise _cannot(path, exc) from None
         raise
     return tmp
+
+
+def stage(path: str, data: str | bytes | Callable[[str], None], keep_mode: bool = False) -> str:
+    """Write a temporary file beside ``path`` with ``data`` (see ``_write_temp``) and return its
+    name. The mode is the umask's, or with ``keep_mode`` that of the existing ``path``.
+    InputError names ``path``."""
+    folder = os.path.dirname(os.path.abspath(path))
+    try:
+        return _write_temp(folder, data, _mode_for(path, keep_mode))
+    except OSError as exc:
+        raise _cannot(path, exc) from None
 
 
 def _unlink(path: str) -> None:
@@ -160,19 +165,9 @@ def sha256_text(text: str) -> str:
 
 
 def _stage_bytes(folder: str, data: bytes, mode: int | None) -> str:
-    """A fsynced temporary file in ``folder`` holding ``data`` (permission bits ``mode``, if given)."""
-    fd, tmp = tempfile.mkstemp(prefix=".stobuilder-", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(fd, "wb") as handle:
-            handle.write(data)
-            handle.flush()
-            if mode is not None:
-                os.fchmod(handle.fileno(), mode)
-            os.fsync(handle.fileno())
-    except BaseException:
-        _unlink_quietly(tmp)
-        raise
-    return tmp
+    """A fsynced temporary file in ``folder`` holding ``data`` (permission bits ``mode``, else the
+    umask's); OSError as it comes, for callers that word their own message."""
+    return _write_temp(folder, data, default_mode() if mode is None else mode)
 
 
 def _unlink_quietly(path: str) -> None:
@@ -184,7 +179,7 @@ def _unlink_quietly(path: str) -> None:
 
 def replace_bytes(path: str, data: bytes, mode: int | None = None) -> None:
     """Replace the file ``path`` by ``data`` atomically: a temporary file in ``path``'s own folder,
-    given the permission bits ``mode`` (None: what mkstemp gives), renamed over ``path``.
+    given the permission bits ``mode`` (None: the umask's), renamed over ``path``.
     ``path`` should be the real file (os.path.realpath), so that a symbolic link keeps pointing
     at it and the rename stays within one file system."""
     tmp = _stage_bytes(os.path.dirname(os.path.abspath(path)), data, mode)
