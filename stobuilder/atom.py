@@ -12,13 +12,11 @@ from __future__ import annotations
 import numbers
 from collections.abc import Iterable
 
-import numpy as np
 
-from .atomic import _conf, optimize_zeta, pick_method, solve
+from .atomic import _conf, numerical_guard, optimize_zeta, pick_method, solve
 from .basis import Basis
 from .build import element_basis, sto_exponents
 from .checks import check_free_atom
-from .errors import InputError
 from .limits import whole_number
 
 
@@ -27,15 +25,7 @@ def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = "l2", rule
     ``build`` writes for it (rule ``rule``, ζ overrides ``zeta``) in the determinant of the checks."""
     element = element_basis(conf, rule, gaussians, zeta=zeta, norm=norm)
     basis = Basis((element,), rule=rule, gaussians=gaussians, norm=norm)
-    try:
-        r = check_free_atom(basis, conf.symbol, method, reference=False)
-    except InputError:
-        raise
-    except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
-        reason = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(
-            f"{conf.symbol} {conf.label}: the SCF with STO-{gaussians}G failed numerically ({type(exc).__name__}: {reason})"
-        ) from None
+    r = numerical_guard(conf, f"SCF with STO-{gaussians}G", lambda: check_free_atom(basis, conf.symbol, method, reference=False))
     return {"gaussians": gaussians, "fit": norm, "energy_hartree": r.energy_hartree, "converged": r.converged}
 
 

@@ -52,19 +52,24 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
     return solve(conf, exps, m)
 
 
-def _numerically(conf, what: str, run):
+def numerical_guard(conf, what: str, run, hint: str = ""):
     """``run()``, with a numerical failure (overflow, a singular matrix, NaN) turned into an
-    InputError naming the atom: it comes from ζ far from any physical value."""
+    InputError naming the atom and ``what`` failed (``hint`` appended to the message)."""
     try:
-        result = run()
+        return run()
     except InputError:
         raise
     except (ArithmeticError, ValueError, np.linalg.LinAlgError) as exc:
         reason = " ".join(str(exc).split()) or type(exc).__name__
         raise InputError(
-            f"{conf.symbol} {conf.label}: the exact-STO {what} failed numerically ({type(exc).__name__}: {reason}); "
-            "are the ζ physical?"
+            f"{conf.symbol} {conf.label}: the {what} failed numerically ({type(exc).__name__}: {reason}){hint}"
         ) from None
+
+
+def _numerically(conf, what: str, run):
+    """``numerical_guard`` for the exact-STO engine, which also refuses a non-finite energy: both
+    come from ζ far from any physical value."""
+    result = numerical_guard(conf, f"exact-STO {what}", run, "; are the ζ physical?")
     if not math.isfinite(result.energy):
         raise InputError(f"{conf.symbol} {conf.label}: the exact-STO {what} gave a non-finite energy; are the ζ physical?")
     return result

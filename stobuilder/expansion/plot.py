@@ -8,7 +8,6 @@ norms (log scale), the plotted fit marked.
 
 from __future__ import annotations
 
-import os
 from typing import Callable
 
 import numpy as np
