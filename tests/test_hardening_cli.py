@@ -18,7 +18,8 @@ from pathlib import Path
 
 import pytest
 
-from stobuilder.cli import main
+from cli_run import assert_one_line_error as _one_line_error
+from cli_run import run_cli as _run
 
 ROOT = Path(__file__).resolve().parents[1]
 
@@ -31,15 +32,6 @@ def child_env(**extra) -> dict:
     return env
 
 
-def _run(argv, capsys):
-    code = main(argv)
-    out, err = capsys.readouterr()
-    return code, out, err
-
-
-def _one_line_error(code, err):
-    assert code == 2, err
-    assert err.startswith("stobuilder: error: ") and err.count("\n") == 1, err
 
 
 @pytest.fixture()

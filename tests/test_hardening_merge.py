@@ -17,7 +17,8 @@ from ase.build import molecule
 from ase.io import write
 
 import stobuilder
-from stobuilder.cli import main
+from cli_run import assert_one_line_error as _one_line_error
+from cli_run import run_cli as _run
 from stobuilder.pipeline import merge_file
 
 
@@ -40,16 +41,6 @@ def water(tmp_path):
     return str(path)
 
 
-def _run(argv, capsys):
-    code = main(argv)
-    out, err = capsys.readouterr()
-    return code, out, err
-
-
-def _one_line_error(code, err):
-    assert code == 2, err
-    assert err.startswith("stobuilder: error: ") and err.count("\n") == 1, err
-    assert "Traceback" not in err
 
 
 def _listing(folder):

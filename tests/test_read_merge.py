@@ -9,7 +9,7 @@ from ase.build import molecule
 from ase.io import write
 
 import stobuilder
-from stobuilder.cli import main
+from cli_run import run_cli as _run
 from stobuilder.formats.common import number
 
 ALL = tuple(stobuilder.formats())
@@ -184,11 +184,6 @@ def test_merge_into_cp2k_keeps_other_names_of_our_elements(basis):
 
 # ---------------------------------------------------------------------------- command line
 
-
-def _run(argv, capsys):
-    code = main(argv)
-    out, err = capsys.readouterr()
-    return code, out, err
 
 
 @pytest.fixture()
