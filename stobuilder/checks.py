@@ -131,31 +131,51 @@ def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom", symm
     return mol
 
 
-def _solve(mol, method: str, max_cycle: int, dm0=None, configure=None):
-    """One SCF run: (energy, converged, iterations, density). A failed first run is retried with
-    PySCF's second-order solver from where it stopped."""
+def structure_mole(structure: Structure, basis: Basis, symmetry: bool = False):
+    """The PySCF Mole of a (molecular) structure with ``basis``: its atoms (Å), charge and 2S."""
+    atoms = list(zip(structure.symbols, structure.positions))
+    return make_mole(atoms, {s: basis[s].to_pyscf() for s in structure.elements}, structure.charge,
+                     structure.spin, symmetry=symmetry)
+
+
+def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv_tol: float | None = None):
+    """One SCF run of ``mol`` ("RHF", "ROHF" or "UHF"), from ``dm0`` (a density of the same
+    basis, e.g. the previous geometry step's) or PySCF's default guess. A first run that does not
+    converge is retried with PySCF's second-order solver from where it stopped. Returns
+    (PySCF SCF object, iterations); the object's ``converged``, ``e_tot`` and orbitals are
+    PySCF's own. The one SCF driver of the checks, the calculator, bench and tune."""
     from pyscf import scf
 
     driver = {"RHF": scf.RHF, "ROHF": scf.ROHF, "UHF": scf.UHF}[method]
-    mf = driver(mol)
-    if configure is not None:
-        mf = configure(mf)
-    mf.max_cycle = max_cycle
-    mf.verbose = 0
-    energy = mf.kernel(dm0)
+
+    def make():
+        mf = driver(mol)
+        if configure is not None:
+            mf = configure(mf)
+        if conv_tol is not None:
+            mf.conv_tol = conv_tol
+        mf.max_cycle = max_cycle
+        mf.verbose = 0
+        return mf
+
+    mf = make()
+    mf.kernel(dm0)
     iterations = int(getattr(mf, "cycles", 0))
     if not mf.converged:
-        mf2 = driver(mol)
-        if configure is not None:
-            mf2 = configure(mf2)
-        mf2 = mf2.newton()
+        mf2 = make().newton()
         mf2.verbose = 0
         mf2.max_cycle = max_cycle
-        energy2 = mf2.kernel(mf.make_rdm1())
+        mf2.kernel(mf.make_rdm1())
         iterations += int(getattr(mf2, "cycles", 0))
         if mf2.converged:
-            mf, energy = mf2, energy2
-    return float(energy), bool(mf.converged), iterations, mf.make_rdm1()
+            mf = mf2
+    return mf, iterations
+
+
+def _solve(mol, method: str, max_cycle: int, dm0=None, configure=None):
+    """``solve`` as (energy, converged, iterations, density)."""
+    mf, iterations = solve(mol, method, max_cycle, dm0, configure)
+    return float(mf.e_tot), bool(mf.converged), iterations, mf.make_rdm1()
 
 
 def run_scf(mol, method: str, label: str = "", max_cycle: int = 100, configure=None) -> ScfResult:
@@ -299,9 +319,8 @@ def check_structure(
         result = replace(check_free_atom(basis, symbol, m.lower(), reference), label=structure.formula)
         return Check("structure", "", (result,), exact_sto_atoms(basis, structure.elements, method), notes)
     else:
-        pyscf_basis = {s: basis[s].to_pyscf() for s in structure.elements}
         m = pick_method(method, structure.spin, f"({structure.formula})")
-        mol = make_mole(atoms, pyscf_basis, structure.charge, structure.spin)
+        mol = structure_mole(structure, basis)
         if mol.nao > max_basis_functions:
             reason = (
                 f"{mol.nao} basis functions exceed the quick-check limit of {max_basis_functions}: "
