@@ -146,10 +146,12 @@ def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv
     PySCF's own. The one SCF driver of the checks, the calculator, bench and tune."""
     from pyscf import scf
 
+    from .diis import use_robust_diis
+
     driver = {"RHF": scf.RHF, "ROHF": scf.ROHF, "UHF": scf.UHF}[method]
 
     def make():
-        mf = driver(mol)
+        mf = use_robust_diis(driver(mol))
         if configure is not None:
             mf = configure(mf)
         if conv_tol is not None:

@@ -181,13 +181,15 @@ def _blocks(basis: sto.OneCentreBasis) -> dict[tuple[int, int], np.ndarray]:
 def _run_scf(ints: _Integrals, plan: _Plan, method: str, dm0=None, conv_tol: float = 1e-12):
     from pyscf import gto, scf
 
+    from .diis import use_robust_diis
+
     nao = ints.basis.nao
     blocks = _blocks(ints.basis)
     mol = gto.M(verbose=0)
     mol.nelectron = plan.nalpha + plan.nbeta
     mol.spin = plan.nalpha - plan.nbeta
     mol.incore_anyway = True
-    mf = {"rhf": scf.RHF, "rohf": scf.ROHF, "uhf": scf.UHF}[method](mol)
+    mf = use_robust_diis({"rhf": scf.RHF, "rohf": scf.ROHF, "uhf": scf.UHF}[method](mol))
     h = ints.t + ints.v
     mf.get_hcore = lambda *a, **k: h
     mf.get_ovlp = lambda *a, **k: ints.s
