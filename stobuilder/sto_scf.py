@@ -266,7 +266,7 @@ def _gradient(basis: sto.OneCentreBasis, z: int, da: np.ndarray, db: np.ndarray)
     nao = basis.nao
     s = sto.overlap_matrix(aug)[:, :nao]
     h = (sto.kinetic_matrix(aug) + sto.nuclear_matrix(aug, z))[:, :nao]
-    eri = sto.eri_tensor(aug)[:, :nao, :nao, :nao]
+    eri = sto.eri_tensor(aug, first=nao)
     dt = da + db
     j = np.einsum("pqrs,rs->pq", eri, dt)
     fa = h + j - np.einsum("prqs,rs->pq", eri, da)
