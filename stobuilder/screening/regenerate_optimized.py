@@ -1,9 +1,11 @@
 """Regenerate (or check) the optimised-exponent table:
-``python -m stobuilder.screening.regenerate_optimized [--last Kr] [--workers 2] [--check]``.
+``python -m stobuilder.screening.regenerate_optimized [--last Rn] [--workers 2] [--keep DIR] [--check]``.
 
 Every neutral ground state from H to ``--last`` is optimised with stobuilder.atomic.optimize_zeta
 (process pool). The file holds no timestamps and repr floats, so regeneration on the machine
-that made it is byte-identical. --check writes nothing and compares the regenerated table with
+that made it is byte-identical. The heavy atoms take minutes each (hours for H–Rn on two cores):
+--keep DIR stores each finished entry as DIR/<Symbol>.json and reuses the entries already there,
+so an interrupted regeneration goes on where it stopped. --check writes nothing and compares the regenerated table with
 the shipped one within ``TOLERANCES`` (stobuilder.tablecheck): one line "equal within ..." with the
 largest relative difference and its entry, or "differs: ..."; exit 1 when they differ.
 """
@@ -13,7 +15,7 @@ from __future__ import annotations
 import argparse
 import json
 import sys
-from concurrent.futures import ProcessPoolExecutor
+from concurrent.futures import ProcessPoolExecutor, as_completed
 from pathlib import Path
 
 from ..elements import atomic_number, element_symbol, ground_state
@@ -46,16 +48,42 @@ def optimise_entry(symbol: str) -> dict:
     }
 
 
-def build_text(last: str = DEFAULT_LAST, workers: int = 2) -> str:
-    """The table text for H … ``last``."""
+def _kept(keep: Path | None, symbol: str) -> dict | None:
+    if keep is None:
+        return None
+    try:
+        return json.loads((keep / f"{symbol}.json").read_text(encoding="utf-8"))
+    except FileNotFoundError:
+        return None
+
+
+def _store(keep: Path | None, symbol: str, entry: dict) -> None:
+    if keep is not None:
+        atomic_write(str(keep / f"{symbol}.json"), json.dumps(entry) + "\n")
+        print(f"{symbol}: done", file=sys.stderr, flush=True)
+
+
+def build_text(last: str = DEFAULT_LAST, workers: int = 2, keep: str | None = None) -> str:
+    """The table text for H … ``last`` (entries stored in and reused from the folder ``keep``)."""
     symbols = [element_symbol(z) for z in range(1, atomic_number(last) + 1)]
     for s in symbols:
         ground_state(s)
-    if workers > 1:
+    folder = Path(keep) if keep else None
+    if folder is not None:
+        folder.mkdir(parents=True, exist_ok=True)
+    found = {s: e for s in symbols if (e := _kept(folder, s)) is not None}
+    todo = sorted((s for s in symbols if s not in found), key=atomic_number, reverse=True)  # heaviest first
+    if workers > 1 and len(todo) > 1:
         with ProcessPoolExecutor(max_workers=workers) as pool:
-            entries = list(pool.map(optimise_entry, symbols, chunksize=1))
+            futures = {pool.submit(optimise_entry, s): s for s in todo}
+            for future in as_completed(futures):
+                found[futures[future]] = future.result()
+                _store(folder, futures[future], found[futures[future]])
     else:
-        entries = [optimise_entry(s) for s in symbols]
+        for symbol in todo:
+            found[symbol] = optimise_entry(symbol)
+            _store(folder, symbol, found[symbol])
+    entries = [found[s] for s in symbols]
     doc = {
         "provenance": {
             "method": "exact one-centre STO integrals (stobuilder.sto); SCF with PySCF drivers, RHF for closed "
@@ -93,10 +121,11 @@ def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(prog="python -m stobuilder.screening.regenerate_optimized", description=__doc__)
     parser.add_argument("--last", default=DEFAULT_LAST, help="last element of the table (default Kr)")
     parser.add_argument("--workers", type=int, default=2, help="processes (default 2)")
+    parser.add_argument("--keep", metavar="DIR", help="store each finished entry in DIR and reuse those already there")
     parser.add_argument("--check", action="store_true",
                         help="write nothing; compare with the shipped table within tolerance (exit 1 if they differ)")
     args = parser.parse_args(argv)
-    text = build_text(args.last, args.workers)
+    text = build_text(args.last, args.workers, args.keep)
     path = table_path()
     if args.check:
         try:
