@@ -174,3 +174,19 @@ def test_compare_reports_largest_difference_and_entry():
     assert "at x/1" in result.summary("1e-12") and "largest relative difference 5.0" in result.summary("1e-12")
     result = compare(a, {"x": [1.0], "name": "u"}, lambda path: Tolerance(1e-12))
     assert not result.equal and "x has 2 items" in result.summary("") and "name 't' shipped, 'u'" in result.summary("")
+
+
+def test_optimized_regeneration_keeps_and_reuses_entries(tmp_path, monkeypatch):
+    # An interrupted regeneration goes on where it stopped: the entries kept in the folder are
+    # reused as they are, the table text is the one a full run gives (common practice, no source)
+    keep = tmp_path / "entries"
+    full = regenerate_optimized.build_text("Be", workers=1)
+    first = regenerate_optimized.build_text("Li", workers=1, keep=str(keep))
+    assert sorted(p.name for p in keep.iterdir()) == ["H.json", "He.json", "Li.json"]
+    computed = []
+    real = regenerate_optimized.optimise_entry
+    monkeypatch.setattr(regenerate_optimized, "optimise_entry", lambda s: computed.append(s) or real(s))
+    again = regenerate_optimized.build_text("Be", workers=1, keep=str(keep))
+    assert computed == ["Be"]
+    assert again == full
+    assert json.loads(first)["elements"] == {k: v for k, v in json.loads(full)["elements"].items() if k != "Be"}
