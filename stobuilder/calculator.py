@@ -210,6 +210,15 @@ class STOCalculator(Calculator):
         self.results["dipole"] = np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float) * Bohr
         self.results["charges"] = np.asarray(mf.mulliken_pop(verbose=0)[1], dtype=float)
 
+    def adopt_basis(self, structure, basis) -> None:
+        """Use ``basis`` (one already built for ``structure``'s elements under this calculator's
+        options, e.g. by ``pipeline.prepare``) instead of building it again."""
+        names = set(structure.symbols)
+        if set(basis.symbols) < names:
+            raise InputError(f"{structure.path}: the basis lacks {', '.join(sorted(names - set(basis.symbols)))}")
+        self._cache.clear()
+        self._cache[_basis_key(structure, self._options)] = basis
+
     @staticmethod
     def _forces(mf):
         """−∇E (eV/Å) from PySCF's analytic gradient (hartree/bohr) of the converged SCF."""
