@@ -173,6 +173,8 @@ class STOCalculator(Calculator):
         whole_number(merged["max_cycle"], "STOCalculator: max_cycle", 1, 100000)
         changed = super().set(**kwargs)
         self._options = options
+        if changed:  # every parameter shapes the basis or the SCF: the results no longer hold
+            self.reset()
         return changed
 
     def calculate(self, atoms=None, properties=("energy",), system_changes=all_changes):
