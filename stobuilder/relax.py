@@ -169,6 +169,10 @@ def relax_structures(
                 raise InputError(f"{path} and {sources[target]} would both write {target}")
             sources[target] = path
         jobs.append((item, frame, relaxed, targets))
+    named = {s for s, _ in options.zeta}
+    present = {s for _, frame, _, _ in jobs for s in frame.symbols}
+    if named - present:
+        raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(named - present))}")
     if write:
         check_targets(sources, force)
     contents: dict[str, str] = {}
