@@ -152,6 +152,11 @@ def test_mulliken_charges_sum_to_the_total_charge_and_energy_equals_free_energy(
     assert calc.mol.charge == 1 and calc.mol.spin == 1
     assert calc.get_property("free_energy", atoms) == calc.get_property("energy", atoms)
     assert calc.scf.converged and calc.scf.__class__.__name__.startswith("ROHF")
+    oxygen = molecule("O2")
+    oxygen.info["multiplicity"] = 3  # 2S + 1, the extxyz key build reads
+    oxygen.calc = STOCalculator()
+    oxygen.get_potential_energy()
+    assert oxygen.calc.mol.spin == 2
 
 
 def test_pyscf_mole_gives_the_calculators_basis_and_energy():
