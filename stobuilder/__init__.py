@@ -8,6 +8,7 @@ from .version import __version__  # noqa: E402,F401
 from .atom import atom_report  # noqa: E402
 from .atomic import AtomResult, atom_energy, optimize_zeta  # noqa: E402
 from .basis import Basis, ElementBasis, Shell  # noqa: E402
+from .calculator import pyscf_mole  # noqa: E402  (STOCalculator: stobuilder.calculator)
 from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
 from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
 from .errors import InputError  # noqa: E402
@@ -30,6 +31,7 @@ __all__ = [
     "BuildOptions",
     "Prepared",
     "prepare",
+    "pyscf_mole",
     "Configuration",
     "ElementBasis",
     "Fit",

@@ -69,6 +69,16 @@ def _parser() -> argparse.ArgumentParser:
     )
     b.add_argument("--json", action="store_true", help="print one JSON document instead of the table")
 
+    r = sub.add_parser("relax", help="relax molecules with the basis (ASE optimizer, PySCF SCF); relaxed extxyz and basis files")
+    r.add_argument("structures", nargs="+", metavar="STRUCTURE", help="molecule files ASE reads (a file's last frame)")
+    add_arguments(r, _whole_number)
+    r.add_argument("--fmax", type=float, default=0.05, metavar="EV_PER_A", help="largest force on an atom at convergence (default 0.05 eV/Å)")
+    r.add_argument("--steps", type=_whole_number, default=200, metavar="N", help="optimizer steps at most (default 200)")
+    r.add_argument("--optimizer", choices=("bfgs", "fire"), default="bfgs", help="ASE optimizer (default bfgs)")
+    r.add_argument("--out", default="relaxed", metavar="DIR", help="output folder (default ./relaxed)")
+    r.add_argument("--force", action="store_true", help="overwrite existing output files")
+    r.add_argument("--json", action="store_true", help="print one JSON document instead of the summary")
+
     t = sub.add_parser("atom", help="one atom with exact STOs: energy, ζ, virial ratio, Gaussian-expansion error")
     t.add_argument("element", metavar="ELEMENT", help='element symbol, or a configuration such as "[Ar] 3d7 4s1"')
     _add_rule(t)
@@ -188,6 +198,27 @@ def _build_table(report) -> str:
     for note in report.notes:
         lines.append(f"  note: {note}")
     return "\n".join(lines)
+
+
+# ---------------------------------------------------------------------------- relax
+
+
+def _cmd_relax(args) -> int:
+    from .options import from_args
+    from .relax import relax_structures
+
+    results = relax_structures(args.structures, from_args(args), fmax=args.fmax, steps=args.steps,
+                               optimizer=args.optimizer, out_dir=args.out, force=args.force)
+    if args.json:
+        _print_json({"structures": [r.to_json() for r in results]})
+    else:
+        for r in results:
+            state = f"relaxed in {r.steps} steps" if r.converged else f"NOT CONVERGED after {r.steps} steps"
+            print(f"{r.path}: {r.formula} {state}, E = {r.energy_hartree:.10f} hartree, "
+                  f"max force {r.max_force_ev_per_a:.5f} eV/Å")
+            for path in (r.relaxed_path, *r.files.values()):
+                print(f"  wrote {path}")
+    return 0 if all(r.converged for r in results) else 1
 
 
 # ---------------------------------------------------------------------------- batch
@@ -372,6 +403,7 @@ def _cmd_formats(args) -> int:
 COMMANDS = {
     "build": _cmd_build,
     "batch": _cmd_batch,
+    "relax": _cmd_relax,
     "atom": _cmd_atom,
     "fit": _cmd_fit,
     "zeta": _cmd_zeta,

@@ -218,59 +218,73 @@ def read_structures(
     out = []
     for index, atoms in enumerate(frames):
         label = where if len(frames) == 1 else f"{where} (frame {index})"
-        symbols, positions, notes = [], [], []
-        ghosts = 0
-        for symbol, position in zip(atoms.get_chemical_symbols(), atoms.get_positions()):
-            if symbol == "X":
-                ghosts += 1
-                continue
-            try:
-                z = atomic_number(symbol)
-            except InputError:
-                raise InputError(f"{label}: unknown element symbol {symbol!r}") from None
-            if z > MAX_Z:
-                raise InputError(f"{label}: element {symbol} (Z = {z}) is beyond Rn, which stobuilder covers")
-            symbols.append(symbol)
-            positions.append(tuple(float(x) for x in position))
-        if ghosts:
-            notes.append(f"skipped {ghosts} ghost/dummy atom(s) (symbol X)")
-        if not symbols:
-            raise InputError(f"{label}: no atoms (after skipping ghost atoms)")
-        info = dict(atoms.info)
-        nuclear = sum(atomic_number(x) for x in symbols)
-        # a file's charge leaves 1 … 2Z electrons (no bound system holds more than twice its
-        # nuclear charge in electrons: common practice, no source)
-        q = charge if charge is not None else _info_int(info, "charge", label, -nuclear, nuclear - 1)
-        q = int(q or 0)
-        if nuclear - q < 1:
-            validate_charge_spin(label, nuclear - q, q, 0)  # names the charge
-        s, origin = spin, ""
-        if s is None:
-            s = _info_int(info, "spin", label, 0, max(nuclear - q, 0))
-            origin = "" if s is None else f" (the file's spin={s})"
-        if s is None:
-            mult = _info_int(info, "multiplicity", label, 1, max(nuclear - q, 0) + 1)
-            s = None if mult is None else mult - 1
-            origin = "" if s is None else f" (the file's multiplicity={mult})"
-        electrons = nuclear - q
-        s = (atom_spin(symbols[0], q, electrons) if len(symbols) == 1 else default_spin(electrons)) if s is None else int(s)
-        try:
-            validate_charge_spin(label, electrons, q, s)
-        except InputError as exc:
-            raise InputError(f"{exc}{origin}") from None
-        out.append(
-            Structure(
-                path=where,
-                frame=index,
-                symbols=tuple(symbols),
-                positions=tuple(positions),
-                charge=q,
-                spin=s,
-                periodic=bool(any(atoms.get_pbc())),
-                notes=tuple(notes),
-            )
-        )
+        out.append(structure_from_atoms(atoms, label, charge, spin, path=where, frame=index))
     return tuple(out)
+
+
+def structure_from_atoms(
+    atoms,
+    label: str,
+    charge: int | None = None,
+    spin: int | None = None,
+    path: str | None = None,
+    frame: int = 0,
+) -> Structure:
+    """One ASE ``Atoms`` as a Structure: its symbols and positions (ghost atoms X skipped with a
+    note), periodicity, and charge and 2S from ``charge``/``spin`` or else the Atoms' info keys
+    ``charge``, ``spin``, ``multiplicity`` (a single atom's default spin by Hund's rule, else the
+    lowest). InputError naming ``label`` for an unknown element, one beyond Rn, no atoms, or an
+    impossible charge/spin. ``path`` (default ``label``) and ``frame`` are recorded as given."""
+    symbols, positions, notes = [], [], []
+    ghosts = 0
+    for symbol, position in zip(atoms.get_chemical_symbols(), atoms.get_positions()):
+        if symbol == "X":
+            ghosts += 1
+            continue
+        try:
+            z = atomic_number(symbol)
+        except InputError:
+            raise InputError(f"{label}: unknown element symbol {symbol!r}") from None
+        if z > MAX_Z:
+            raise InputError(f"{label}: element {symbol} (Z = {z}) is beyond Rn, which stobuilder covers")
+        symbols.append(symbol)
+        positions.append(tuple(float(x) for x in position))
+    if ghosts:
+        notes.append(f"skipped {ghosts} ghost/dummy atom(s) (symbol X)")
+    if not symbols:
+        raise InputError(f"{label}: no atoms (after skipping ghost atoms)")
+    info = dict(atoms.info)
+    nuclear = sum(atomic_number(x) for x in symbols)
+    # a file's charge leaves 1 … 2Z electrons (no bound system holds more than twice its
+    # nuclear charge in electrons: common practice, no source)
+    q = charge if charge is not None else _info_int(info, "charge", label, -nuclear, nuclear - 1)
+    q = int(q or 0)
+    if nuclear - q < 1:
+        validate_charge_spin(label, nuclear - q, q, 0)  # names the charge
+    s, origin = spin, ""
+    if s is None:
+        s = _info_int(info, "spin", label, 0, max(nuclear - q, 0))
+        origin = "" if s is None else f" (the file's spin={s})"
+    if s is None:
+        mult = _info_int(info, "multiplicity", label, 1, max(nuclear - q, 0) + 1)
+        s = None if mult is None else mult - 1
+        origin = "" if s is None else f" (the file's multiplicity={mult})"
+    electrons = nuclear - q
+    s = (atom_spin(symbols[0], q, electrons) if len(symbols) == 1 else default_spin(electrons)) if s is None else int(s)
+    try:
+        validate_charge_spin(label, electrons, q, s)
+    except InputError as exc:
+        raise InputError(f"{exc}{origin}") from None
+    return Structure(
+        path=label if path is None else path,
+        frame=frame,
+        symbols=tuple(symbols),
+        positions=tuple(positions),
+        charge=q,
+        spin=s,
+        periodic=bool(any(atoms.get_pbc())),
+        notes=tuple(notes),
+    )
 
 
 def elements_of(structures: tuple[Structure, ...]) -> tuple[str, ...]:

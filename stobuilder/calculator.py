@@ -1,0 +1,246 @@
+"""stobuilder inside the hosts people already script: an ASE calculator and a PySCF Mole.
+
+``STOCalculator`` is an ASE calculator (ASE's conventions: eV, Å, e·Å; ``implemented_properties``;
+results dropped when the atoms change) that builds our basis for the atoms it is given and runs
+PySCF's SCF through ``checks.solve``, the one SCF driver:
+
+    energy, free_energy   the SCF total energy (eV; the two are equal, there is no smearing)
+    forces                −∇E from PySCF's analytic SCF gradients (eV/Å)
+    dipole                PySCF's ``dip_moment`` about the origin of the coordinates (e·Å)
+    charges               Mulliken charges (e)
+
+The basis is built once per element set and options (``pipeline.basis_for``, cached under
+``pipeline.basis_key``) and reused at every geometry step; each SCF starts from the density of
+the previous one. The last PySCF SCF object is ``calc.scf`` (orbitals, energies, ...).
+
+``pyscf_mole(atoms_or_path, **options)`` gives the PySCF ``Mole`` with the same basis, for
+PySCF scripts. Units: hartree and bohr inside PySCF, eV and Å on ASE's side (``ase.units``).
+"""
+
+from __future__ import annotations
+
+import os
+
+import numpy as np
+from ase.calculators.calculator import Calculator, SCFError, all_changes
+
+from .errors import InputError
+
+#: basis options (BuildOptions fields under the names the calculator takes), then the SCF's
+BASIS_PARAMETERS = ("rule", "gaussians", "fit", "exponents", "radial", "zeta", "zeta_file", "charge", "spin")
+SCF_PARAMETERS = ("method", "conv_tol", "max_cycle")
+
+# An SCF converged to PySCF's default 1e-9 hartree leaves gradient errors near 1e-4 eV/Å; the
+# calculator's forces drive optimizers, so its default is tighter (common practice, no source).
+DEFAULT_CONV_TOL = 1e-10
+DEFAULT_MAX_CYCLE = 100
+
+
+def _check_names(given, allowed, what: str) -> None:
+    unknown = [k for k in given if k not in allowed]
+    if unknown:
+        raise InputError(f"{what}: unknown option {', '.join(map(repr, unknown))}; options are {', '.join(allowed)}")
+
+
+def build_options(rule="slater", gaussians=3, fit="l2", exponents="family", radial="integer", zeta=None,
+                  zeta_file=None, charge=None, spin=None, method="auto"):
+    """The ``BuildOptions`` of the calculator's parameters (``fit`` is BuildOptions' ``norm``;
+    ``zeta`` {symbol: {label: ζ}} goes on top of ``zeta_file``, as on the command line)."""
+    from .options import BuildOptions, load_zeta_file, merge_zeta
+
+    if zeta is not None and not isinstance(zeta, dict):
+        raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
+    table = merge_zeta(load_zeta_file(zeta_file) if zeta_file is not None else None,
+                       BuildOptions(zeta=zeta or {}).zeta_map)
+    return BuildOptions(rule=rule, gaussians=gaussians, norm=fit, exponents=exponents, radial=radial, zeta=table,
+                        charge=charge, spin=spin, method=method)
+
+
+def _structure(atoms, options, where: str | None = None):
+    """The Structure of an ASE Atoms (charge and spin from the options, else the atoms' info),
+    its geometry checked. Molecules only: periodic or empty atoms are an InputError."""
+    from .structures import check_geometry, structure_from_atoms
+
+    if len(atoms) == 0:
+        raise InputError("the Atoms object holds no atoms")
+    label = where or atoms.get_chemical_formula()
+    if any(atoms.get_pbc()):
+        raise InputError(
+            f"{label}: periodic structure; the calculator does molecules (for periodic codes, "
+            "write basis files with stobuilder build)"
+        )
+    if "X" in atoms.get_chemical_symbols():
+        raise InputError(f"{label}: ghost/dummy atoms (symbol X) are not supported by the calculator")
+    structure = structure_from_atoms(atoms, label, options.charge, options.spin)
+    check_geometry(structure)
+    return structure
+
+
+def _basis(structure, options, cache: dict | None = None):
+    """The basis of ``structure`` under ``options`` (``pipeline.basis_for``), from ``cache`` when
+    it holds one for the same content key; ζ overrides must name elements of the structure."""
+    from . import pipeline
+
+    named = {s for s, _ in options.zeta}
+    missing = named - set(structure.symbols)
+    if missing:
+        raise InputError(f"{structure.path}: zeta names elements not in the structure: {', '.join(sorted(missing))}")
+    key = pipeline.basis_key((structure,), options)
+    basis = cache.get(key) if cache is not None else None
+    if basis is None:
+        try:
+            basis = pipeline.basis_for((structure,), options)
+        except InputError as exc:
+            raise InputError(f"{structure.path}: {' '.join(str(exc).split())}") from None
+        if cache is not None:
+            cache.clear()  # one basis kept: the atoms of one calculator rarely change elements
+            cache[key] = basis
+    return key, basis
+
+
+def pyscf_mole(atoms_or_path, **options):
+    """The built PySCF ``Mole`` (spherical, Å) of an ASE Atoms or a structure file (its first
+    frame) with our basis. ``options``: rule, gaussians, fit, exponents, radial, zeta, zeta_file,
+    charge, spin, as for ``STOCalculator``; charge and spin default to the atoms' info (``charge``,
+    ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input."""
+    from .checks import structure_mole
+    from .structures import check_geometry, read_structures
+
+    _check_names(options, BASIS_PARAMETERS, "pyscf_mole")
+    opts = build_options(**options)
+    if isinstance(atoms_or_path, (str, os.PathLike)):
+        structure = read_structures(atoms_or_path, charge=opts.charge, spin=opts.spin)[0]
+        if structure.periodic:
+            raise InputError(f"{structure.path}: periodic structure; pyscf_mole makes molecules (Mole), "
+                             "for periodic codes write basis files with stobuilder build")
+        check_geometry(structure)
+    else:
+        from ase import Atoms
+
+        if not isinstance(atoms_or_path, Atoms):
+            raise TypeError(f"atoms_or_path must be an ase.Atoms or a path, got {type(atoms_or_path).__name__}")
+        structure = _structure(atoms_or_path, opts)
+    _, basis = _basis(structure, opts)
+    return structure_mole(structure, basis)
+
+
+class STOCalculator(Calculator):
+    """An ASE calculator: SCF with a stobuilder basis in PySCF.
+
+    Parameters (keywords; unknown ones are an InputError):
+        rule, gaussians, fit ("l2"/"h1"), exponents ("family"/"shared"/"separate"),
+        radial ("integer"/"effective-n"), zeta ({"Fe": {"3d": 2.1}}), zeta_file (TOML)
+                      the basis, as ``stobuilder build`` makes it
+        method        "auto" (RHF closed shell, ROHF open shell), "rhf", "rohf", "uhf"
+        charge, spin  total charge (e) and 2S; default the atoms' info ``charge``, ``spin``,
+                      ``multiplicity`` as ``build`` reads them, else neutral and the lowest spin
+        conv_tol      SCF energy convergence (hartree), default 1e-10
+        max_cycle     SCF iterations before PySCF's second-order solver takes over (default 100)
+
+    After a calculation: ``scf`` (PySCF's SCF object), ``mol`` (its Mole), ``basis`` (our
+    Basis), ``iterations`` (SCF cycles of the last call), ``builds`` (bases built so far).
+    An SCF that does not converge raises ``ase.calculators.calculator.SCFError``.
+    """
+
+    implemented_properties = ["energy", "free_energy", "forces", "dipole", "charges"]
+    default_parameters = {
+        "rule": "slater", "gaussians": 3, "fit": "l2", "exponents": "family", "radial": "integer", "zeta": None,
+        "zeta_file": None, "charge": None, "spin": None, "method": "auto", "conv_tol": DEFAULT_CONV_TOL,
+        "max_cycle": DEFAULT_MAX_CYCLE,
+    }
+
+    def __init__(self, **kwargs):
+        self._options = None
+        self._cache: dict = {}
+        self._density = None  # (signature, density) of the last SCF
+        self.scf = self.mol = self.basis = None
+        self.iterations = 0
+        self.builds = 0
+        super().__init__(**kwargs)
+        if self._options is None:
+            self._options = build_options()
+
+    def set(self, **kwargs):
+        own = {k: v for k, v in kwargs.items() if k not in ("parameters",)}
+        _check_names(own, BASIS_PARAMETERS + SCF_PARAMETERS, "STOCalculator")
+        merged = {**dict(self.parameters or self.get_default_parameters()), **own}
+        options = build_options(**{k: merged[k] for k in BASIS_PARAMETERS}, method=merged["method"])
+        from .limits import whole_number
+
+        if not isinstance(merged["conv_tol"], (int, float)) or isinstance(merged["conv_tol"], bool) \
+                or not 0 < float(merged["conv_tol"]) < 1:
+            raise InputError(f"STOCalculator: conv_tol {merged['conv_tol']!r} must be a number between 0 and 1 (hartree)")
+        whole_number(merged["max_cycle"], "STOCalculator: max_cycle", 1, 100000)
+        changed = super().set(**kwargs)
+        self._options = options
+        if changed:  # every parameter shapes the basis or the SCF: the results no longer hold
+            self.reset()
+        return changed
+
+    def calculate(self, atoms=None, properties=("energy",), system_changes=all_changes):
+        from ase.units import Bohr, Hartree
+
+        from .checks import solve, structure_mole
+        from .methods import pick_method
+
+        if not system_changes and self.scf is not None and "energy" in self.results:
+            # same atoms and parameters (ASE keeps the results): only the forces are missing
+            self.results["forces"] = self._forces(self.scf)
+            return
+        super().calculate(atoms, properties, system_changes)
+        options = self._options
+        structure = _structure(self.atoms, options)
+        key, basis = self._basis_for(structure, options)
+        method = pick_method(options.method, structure.spin, f"({structure.formula})")
+        mol = structure_mole(structure, basis)
+        signature = (key, structure.symbols, structure.charge, structure.spin, method)
+        dm0 = self._density[1] if self._density is not None and self._density[0] == signature else None
+        p = self.parameters
+        mf, iterations = solve(mol, method, int(p["max_cycle"]), dm0=dm0, conv_tol=float(p["conv_tol"]))
+        self.scf, self.mol, self.basis, self.iterations = mf, mol, basis, iterations
+        if not mf.converged:
+            self._density = None
+            raise SCFError(
+                f"{structure.formula}: the {method} SCF did not converge in {iterations} iterations "
+                f"(last energy {mf.e_tot:.10f} hartree); no energy returned"
+            )
+        self._density = (signature, mf.make_rdm1())
+        energy = float(mf.e_tot) * Hartree
+        self.results["energy"] = self.results["free_energy"] = energy
+        if "forces" in properties:
+            self.results["forces"] = self._forces(mf)
+        self.results["dipole"] = np.asarray(mf.dip_moment(unit="AU", verbose=0), dtype=float) * Bohr
+        self.results["charges"] = np.asarray(mf.mulliken_pop(verbose=0)[1], dtype=float)
+
+    def adopt_basis(self, structure, basis) -> None:
+        """Use ``basis`` (one already built for ``structure``'s elements under this calculator's
+        options, e.g. by ``pipeline.prepare``) instead of building it again."""
+        names = set(structure.symbols)
+        if set(basis.symbols) < names:
+            raise InputError(f"{structure.path}: the basis lacks {', '.join(sorted(names - set(basis.symbols)))}")
+        self._cache.clear()
+        self._cache[_basis_key(structure, self._options)] = basis
+
+    @staticmethod
+    def _forces(mf):
+        """−∇E (eV/Å) from PySCF's analytic gradient (hartree/bohr) of the converged SCF."""
+        from ase.units import Bohr, Hartree
+
+        grad = mf.nuc_grad_method()
+        grad.verbose = 0
+        return -np.asarray(grad.kernel(), dtype=float) * (Hartree / Bohr)
+
+    def _basis_for(self, structure, options):
+        key = _basis_key(structure, options)
+        if key not in self._cache:
+            self.builds += 1
+        return _basis(structure, options, self._cache)
+
+
+def _basis_key(structure, options):
+    from . import pipeline
+
+    return pipeline.basis_key((structure,), options)
+
+
+__all__ = ["STOCalculator", "build_options", "pyscf_mole"]
