@@ -35,18 +35,21 @@ from .errors import InputError
 from .limits import ZETA_MAX, ZETA_MIN
 from .options import BuildOptions, merge_zeta
 
-__all__ = ["EnergyRow", "TuneResult", "Variable", "default_variables", "load_weights", "parse_vary", "tune"]
+__all__ = ["EnergyRow", "TuneResult", "Variable", "default_variables", "energy_gradient", "load_weights", "parse_vary",
+           "tune"]
 
 log = logging.getLogger(__name__)
 
 # Central differences in x = ln ζ. The truncation error of the derivative is h²/6·E''' and the
-# noise is about δE/h, where δE is the SCF energy error. With h = 1e-3, E''' of order 1–10
-# hartree (valence and 1s ζ of light atoms; common practice, no source) gives ≤ 2e-6 hartree,
-# and with SCF_CONV_TOL = 1e-11 hartree the noise is ≤ 1e-8 hartree; both shift the optimum in
-# ln ζ by (error)/E'' ≲ 1e-5 for curvatures E'' ≳ 0.1 hartree, far below the 1e-3 in ζ the
-# results are quoted to. (tests/test_tune.py checks these differences against the exact
-# scaling identity of the virial theorem.)
-STEP = 1e-3
+# noise is about δE/h, where δE is the SCF energy error. E(x) of one shell behaves as
+# T e^{2x} − |V| e^{x} (kinetic and potential parts of that shell), so |E'''| ≲ 8 T: a few
+# hartree for a valence shell, up to ~500 hartree for the 1s of a second-row atom (T ≈ ζ²,
+# ζ(O 1s) = 7.66; common practice, no source). With h = 1e-4 the truncation is ≲ 1e-6 hartree
+# even there and ≲ 1e-8 for valence shells, and with SCF_CONV_TOL = 1e-11 hartree the noise
+# is ≲ 1e-7 hartree; both are far below GRADIENT_TOL. (tests/test_tune.py checks the sum of
+# the derivatives against the exact scaling identity of the molecular virial theorem; with
+# h = 1e-3 the 1s terms were off by h²/6·E''' ≈ 7e-5 hartree, as this estimate says.)
+STEP = 1e-4
 SCF_CONV_TOL = 1e-11
 # The search stops when the largest projected |dE/d ln ζ| is below this (hartree): at a
 # curvature of ≳ 0.1 hartree that is ≲ 1e-4 in ln ζ.
@@ -401,19 +404,76 @@ def tune(
         return _tune(structures, options, vary, weights, validate, max_iterations)
 
 
-def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneResult:
-    from scipy.optimize import minimize
+class _Objective:
+    """Σ weight · E over the items as a function of x = ln ζ of the variables, with its
+    central-difference gradient; keeps each item's last density (the warm start) and counts
+    SCFs. ``evaluate`` raises _ScfStopped when an SCF does not converge."""
 
-    t0 = time.perf_counter()
+    def __init__(self, items, variables, options):
+        self.items, self.variables, self.options = items, variables, options
+        self.densities: dict[int, object] = {}
+        self.scf_count = 0
+        self.holders = [[k for k, it in enumerate(items) if v.element in it.structure.elements] for v in variables]
+        self.known: dict[tuple, dict] = {}  # x → energies at x already computed (the start point)
+        self.last: dict[tuple, tuple] = {}
+        self.best = None  # (f, x, energies) of the lowest objective evaluated
+
+    def overrides(self, x) -> dict:
+        return TuneResult._table(self.variables, [float(math.exp(v)) for v in x])
+
+    def energies_at(self, x, subset=None, keep: bool = True) -> dict:
+        """{item index: energy or None} at x for the items in ``subset`` (default all)."""
+        key = tuple(float(v) for v in x)
+        if subset is None and key in self.known:
+            return dict(self.known[key])
+        out = {}
+        zeta = self.overrides(x)
+        for k in range(len(self.items)) if subset is None else subset:
+            self.scf_count += 1
+            e, dm = _scf(self.items[k], self.options, zeta, self.densities.get(k))
+            out[k] = e
+            if keep and dm is not None:
+                self.densities[k] = dm
+        if subset is None:
+            self.known = {key: dict(out)}
+        return out
+
+    def _total(self, energies) -> float:
+        failed = [self.items[k].label for k, e in energies.items() if e is None]
+        if failed:
+            raise _ScfStopped(failed[0])
+        return sum(self.items[k].weight * e for k, e in energies.items())
+
+    def evaluate(self, x):
+        """(objective, gradient in ln ζ) at x, hartree."""
+        key = tuple(float(v) for v in x)
+        if key in self.last:
+            return self.last[key]
+        centre = self.energies_at(x)
+        f = self._total(centre)
+        g = np.zeros(len(x))
+        for j, subset in enumerate(self.holders):
+            pair = []
+            for sign in (1.0, -1.0):
+                xs = np.array(x, dtype=float)
+                xs[j] += sign * STEP
+                pair.append(self._total(self.energies_at(xs, subset, keep=False)))
+            g[j] = (pair[0] - pair[1]) / (2 * STEP)
+        if self.best is None or f < self.best[0]:
+            self.best = (f, np.array(x, dtype=float), dict(centre))
+        self.last = {key: (f, g)}
+        return f, g
+
+
+def _setup(structures, options, vary, weights):
+    """(items, variables, start ζ) of a tuning job; every input checked."""
     options = options or BuildOptions()
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     paths = [os.fspath(p) for p in ([structures] if isinstance(structures, (str, os.PathLike)) else structures)]
     if not paths:
         raise InputError("tune needs at least one training structure")
-    w = _weights(weights, paths)
-    items = _items(paths, options, w)
-    held = _items([os.fspath(p) for p in validate], options, role="held-out") if validate else []
+    items = _items(paths, options, _weights(weights, paths))
     if vary is None:
         from .pipeline import basis_for
 
@@ -423,64 +483,38 @@ def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneR
         parse_vary([v.label for v in variables])  # a subshell free twice is an error
     if not variables:
         raise InputError("no free ζ: the basis of the structures has no STOs to vary")
-    start = _start_values(variables, items, options)
+    return options, items, variables, _start_values(variables, items, options)
+
+
+def energy_gradient(structures, options: BuildOptions | None = None, vary=None, weights=None):
+    """(objective, {variable label: dE/d ln ζ}) at the start ζ, in hartree: what the search
+    starts from (central differences, ``STEP``)."""
+    options, items, variables, start = _setup(structures, options, vary, weights)
+    objective = _Objective(items, variables, options)
+    try:
+        f, g = objective.evaluate(np.log(start))
+    except _ScfStopped as exc:
+        raise InputError(f"{exc}: the SCF does not converge") from None
+    return f, {v.label: float(d) for v, d in zip(variables, g)}
+
+
+def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneResult:
+    from scipy.optimize import minimize
+
+    t0 = time.perf_counter()
+    options, items, variables, start = _setup(structures, options, vary, weights)
+    held = _items([os.fspath(p) for p in validate], options, role="held-out") if validate else []
     x0 = np.log(start)
     lo = [max(math.log(z / BOUND_FACTOR), math.log(ZETA_MIN)) for z in start]
     hi = [min(math.log(z * BOUND_FACTOR), math.log(ZETA_MAX)) for z in start]
-
-    def overrides(x) -> dict:
-        return TuneResult._table(variables, [float(math.exp(v)) for v in x])
-
-    densities: dict[int, object] = {}
-    counter = {"scf": 0}
-
-    def energies_at(x, subset, keep: bool):
-        """{item index: energy} at x for the items in ``subset``; None for one that failed."""
-        out = {}
-        zeta = overrides(x)
-        for k in subset:
-            counter["scf"] += 1
-            e, dm = _scf(items[k], options, zeta, densities.get(k))
-            out[k] = e
-            if keep and dm is not None:
-                densities[k] = dm
-        return out
+    objective = _Objective(items, variables, options)
 
     # the start point: every SCF must converge here
-    first = energies_at(x0, range(len(items)), keep=True)
-    for k, e in first.items():
+    start_energies = objective.energies_at(x0)
+    for k, e in start_energies.items():
         if e is None:
             raise InputError(f"{items[k].label}: the {items[k].method} SCF does not converge with the start ζ; nothing to tune")
-    start_energies = dict(first)
-
-    holders = [[k for k, it in enumerate(items) if v.element in it.structure.elements] for v in variables]
-    best = {"f": None, "x": x0.copy(), "e": start_energies}
-    last = {}
-
-    def evaluate(x):
-        key = tuple(float(v) for v in x)
-        if key in last:
-            return last[key]
-        centre = start_energies if np.array_equal(x, x0) else energies_at(x, range(len(items)), keep=True)
-        if any(e is None for e in centre.values()):
-            raise _ScfStopped(next(items[k].label for k, e in centre.items() if e is None))
-        f = sum(items[k].weight * e for k, e in centre.items())
-        g = np.zeros(len(x))
-        for j, subset in enumerate(holders):
-            pair = []
-            for sign in (1.0, -1.0):
-                xs = np.array(x, dtype=float)
-                xs[j] += sign * STEP
-                shifted = energies_at(xs, subset, keep=False)
-                if any(e is None for e in shifted.values()):
-                    raise _ScfStopped(next(items[k].label for k, e in shifted.items() if e is None))
-                pair.append(sum(items[k].weight * e for k, e in shifted.items()))
-            g[j] = (pair[0] - pair[1]) / (2 * STEP)
-        if best["f"] is None or f < best["f"]:
-            best.update(f=f, x=np.array(x, dtype=float), e=dict(centre))
-        last.clear()
-        last[key] = (f, g)
-        return f, g
+    evaluate = objective.evaluate
 
     def report(x, it):
         f, g = evaluate(x)
@@ -509,24 +543,24 @@ def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneR
         ok, nit = False, iteration["n"]
         message = f"the SCF of {stopped} stopped converging; the best point so far is kept"
         log.info("tune: %s", message)
-    x_best = best["x"]
+    x_best = objective.best[1] if objective.best is not None else x0
     final = [round(float(math.exp(v)), DIGITS) for v in x_best]
     # the energies at the rounded ζ that are written out (the ones ``build --zeta-file`` gets)
     xf = np.log(final)
-    final_e = energies_at(xf, range(len(items)), keep=True)
+    final_e = objective.energies_at(xf)
     if any(e is None for e in final_e.values()):
-        final_e = {k: best["e"].get(k) for k in range(len(items))}
+        final_e = objective.best[2] if objective.best is not None else start_energies
         ok = False
     rows = tuple(
         EnergyRow(it.label, it.method, it.weight, start_energies[k], final_e[k]) for k, it in enumerate(items)
     )
-    validation = tuple(_held_out(it, options, overrides(x0), TuneResult._table(variables, final)) for it in held)
+    validation = tuple(_held_out(it, options, objective.overrides(x0), TuneResult._table(variables, final)) for it in held)
     at_bounds = tuple(
         v.label for v, z, a, b in zip(variables, xf, lo, hi) if z <= a + 1e-6 or z >= b - 1e-6
     )
     return TuneResult(
         variables, tuple(round(z, DIGITS) for z in start), tuple(final), options, rows, validation, nit,
-        counter["scf"], ok, message, time.perf_counter() - t0, at_bounds,
+        objective.scf_count, ok, message, time.perf_counter() - t0, at_bounds,
     )
 
 
