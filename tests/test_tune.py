@@ -312,3 +312,26 @@ def test_scf_failing_mid_search_keeps_the_best_point(tmp_path, capsys, monkeypat
     assert load_zeta_file(str(out)) == doc["zeta"]
     (row,) = doc["energies"]
     assert row["final_hartree"] <= row["start_hartree"]
+
+
+def test_free_atom_with_every_zeta_free_obeys_the_virial_theorem(tmp_path, capsys):
+    """With every ζ of a free atom free, the energy is stationary under a uniform scaling, so
+    2T + V = 0 at the optimum (the virial theorem; V. Fock, Z. Phys. 63, 855 (1930)). The atom
+    goes through tune's free-atom path (fixed occupations as build --check); the check here is
+    a plain PySCF ROHF of the N quartet in the written basis."""
+    path = tmp_path / "n.xyz"
+    path.write_text("1\n\nN 0 0 0\n")
+    out = str(tmp_path / "n.toml")
+    doc = _tune_json(capsys, str(path), "--rule", "molecular", "--vary", "N:1s", "--vary", "N:2s,2p", "--out", out)
+    basis = build_basis(["N"], rule="molecular", zeta=load_zeta_file(out))
+    mol = gto.M(atom="N 0 0 0", basis={"N": basis["N"].to_pyscf()}, spin=3, verbose=0)
+    mf = scf.ROHF(mol)
+    mf.conv_tol = 1e-12
+    energy = mf.kernel()
+    assert mf.converged
+    assert energy == pytest.approx(doc["energies"][0]["final_hartree"], abs=1e-8)
+    dm = mf.make_rdm1()
+    kinetic = float(np.einsum("ij,ji", dm[0] + dm[1], mol.intor("int1e_kin")))
+    # 2T + V = Σ dE/d ln ζ: each |component| ≤ 1e-5 hartree at the end of the search, plus
+    # ≲ 1e-5 from rounding ζ to 6 decimals (E'' ≈ 2T₁ₛ ≈ 100 hartree times Δ ln ζ₁ₛ ≈ 7e-8)
+    assert 2 * kinetic + (energy - kinetic) == pytest.approx(0.0, abs=3e-5)
