@@ -395,15 +395,16 @@ def _tune_table(result, out: str) -> str:
     lines.append(f"  {'free zeta':<16}{'start':>12}{'tuned':>12}  bohr^-1")
     for v, a, b in zip(result.variables, result.start, result.final):
         lines.append(f"  {v.label:<16}{a:>12.6f}{b:>12.6f}" + ("  (on a bound)" if v.label in result.at_bounds else ""))
-    lines.append(f"  {'structure':<32}{'method':<7}{'start':>18}{'tuned':>18}  hartree")
-    for r in result.energies:
-        lines.append(f"  {r.structure:<32}{r.method:<7}{_fmt_energy(r.start_hartree):>18}{_fmt_energy(r.final_hartree):>18}")
+    width = max([30] + [len(r.structure) for r in result.energies + result.validation]) + 2
+
+    def row(r):
+        return f"  {r.structure:<{width}}{r.method:<7}{_fmt_energy(r.start_hartree):>18}{_fmt_energy(r.final_hartree):>18}"
+
+    lines.append(f"  {'structure':<{width}}{'method':<7}{'start':>18}{'tuned':>18}  hartree")
+    lines += [row(r) for r in result.energies]
     if result.validation:
         lines.append("  held out (not tuned on; the tuned zeta need not lower these):")
-        for r in result.validation:
-            lines.append(
-                f"  {r.structure:<32}{r.method:<7}{_fmt_energy(r.start_hartree):>18}{_fmt_energy(r.final_hartree):>18}"
-            )
+        lines += [row(r) for r in result.validation]
     lines.append(f"  wrote {out}")
     return "\n".join(lines)
 
