@@ -124,6 +124,20 @@ def _parser() -> argparse.ArgumentParser:
     t.add_argument("--force", action="store_true", help="overwrite an existing --plot file")
     t.add_argument("--json", action="store_true", help="print JSON")
 
+    u = sub.add_parser("tune", help="ζ that minimise the SCF energies of a training set of structures")
+    u.add_argument("structures", nargs="+", metavar="STRUCTURE", help="training structures (molecules or atoms)")
+    add_arguments(u, _whole_number)
+    u.add_argument(
+        "--vary", action="append", metavar="ELEMENT:SUBSHELL[,SUBSHELL...]",
+        help="one free ζ, shared by the subshells given (repeatable; default the valence shell of every element)",
+    )
+    u.add_argument("--weights", metavar="FILE.toml", help="weights of the structures: lines such as water = 2.0")
+    u.add_argument("--validate", nargs="+", default=[], metavar="STRUCTURE", help="held-out structures to report")
+    u.add_argument("--out", default="tuned-zeta.toml", metavar="FILE.toml", help="the zeta file (default tuned-zeta.toml)")
+    u.add_argument("--force", action="store_true", help="overwrite an existing --out file")
+    u.add_argument("--threads", type=_whole_number, metavar="N", help="PySCF OpenMP threads (default PySCF's)")
+    u.add_argument("--json", action="store_true", help="print JSON")
+
     z = sub.add_parser("zeta", help="Zeff, n* and zeta of every subshell")
     z.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
     _add_rule(z)
@@ -382,6 +396,50 @@ def _cmd_zeta(args) -> int:
     return 0
 
 
+# ---------------------------------------------------------------------------- tune
+
+
+def _cmd_tune(args) -> int:
+    from .files import atomic_write
+    from .options import from_args
+    from .tune import parse_vary, tune
+
+    for given, name in ((args.code, "--code"), (args.check, "--check"), (args.sp_shells, "--sp-shells")):
+        if given:
+            raise InputError(f"tune: {name} is for build; tune writes a zeta file only")
+    _check_new_file(args.out, args.force, "--out")
+    options = from_args(args)
+    vary = parse_vary(args.vary) if args.vary else None
+    result = tune(args.structures, options, vary, args.weights, args.validate, threads=args.threads)
+    atomic_write(args.out, result.toml_text())
+    if args.json:
+        _print_json(result.to_json(args.out))
+    else:
+        print(_tune_table(result, args.out))
+    return 0 if result.converged else 1
+
+
+def _tune_table(result, out: str) -> str:
+    state = "converged" if result.converged else "NOT CONVERGED"
+    lines = [f"tune: {state} ({result.message}), {result.iterations} iterations, {result.scf_count} SCF calculations, "
+             f"{result.wall_seconds:.1f} s"]
+    lines.append(f"  {'free zeta':<16}{'start':>12}{'tuned':>12}  bohr^-1")
+    for v, a, b in zip(result.variables, result.start, result.final):
+        lines.append(f"  {v.label:<16}{a:>12.6f}{b:>12.6f}" + ("  (on a bound)" if v.label in result.at_bounds else ""))
+    width = max([30] + [len(r.structure) for r in result.energies + result.validation]) + 2
+
+    def row(r):
+        return f"  {r.structure:<{width}}{r.method:<7}{_fmt_energy(r.start_hartree):>18}{_fmt_energy(r.final_hartree):>18}"
+
+    lines.append(f"  {'structure':<{width}}{'method':<7}{'start':>18}{'tuned':>18}  hartree")
+    lines += [row(r) for r in result.energies]
+    if result.validation:
+        lines.append("  held out (not tuned on; the tuned zeta need not lower these):")
+        lines += [row(r) for r in result.validation]
+    lines.append(f"  wrote {out}")
+    return "\n".join(lines)
+
+
 # ---------------------------------------------------------------------------- formats
 
 
@@ -408,6 +466,7 @@ COMMANDS = {
     "fit": _cmd_fit,
     "zeta": _cmd_zeta,
     "formats": _cmd_formats,
+    "tune": _cmd_tune,
 }
 
 
