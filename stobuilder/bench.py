@@ -30,6 +30,7 @@ import json
 import os
 import socket
 import time
+import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 from itertools import product
@@ -138,7 +139,7 @@ def file_structures(paths: Sequence[str]) -> tuple[BenchStructure, ...]:
     """Structures from files (``structures.read_structures``; every frame, named "PATH" or
     "PATH@FRAME"). No experimental value. A periodic structure is an InputError: the bench
     computes molecules."""
-    from .structures import read_structures
+    from .structures import check_geometry, read_structures
 
     out = []
     for path in dict.fromkeys(paths):
@@ -147,8 +148,19 @@ def file_structures(paths: Sequence[str]) -> tuple[BenchStructure, ...]:
             label = path if len(frames) == 1 else f"{path}@{frame.frame}"
             if frame.periodic:
                 raise InputError(f"{label}: a periodic structure; the bench computes molecules")
+            check_geometry(frame)
             out.append(BenchStructure(label, frame))
     return tuple(out)
+
+
+def select_structures(arguments: Sequence[str], set_name: str | None) -> tuple[BenchStructure, ...]:
+    """The structures of the command line: with a set, ``arguments`` name molecules of it (none:
+    the whole set); without, they are structure files."""
+    if set_name is not None:
+        return set_structures(set_name, arguments)
+    if not arguments:
+        raise InputError("no structures: give structure files or --set NAME (stobuilder bench --list-sets)")
+    return file_structures(arguments)
 
 
 # ---------------------------------------------------------------------------- variants
@@ -374,7 +386,9 @@ def check_reference(reference: str, elements: Sequence[str]) -> str:
         raise InputError("--reference: give the name of a basis PySCF stores, e.g. cc-pvtz")
     for symbol in elements:
         try:
-            found = pyscf_basis.load(reference, symbol)
+            with warnings.catch_warnings():  # PySCF's hint at another package for unknown names
+                warnings.simplefilter("ignore")
+                found = pyscf_basis.load(reference, symbol)
         except Exception:
             found = None
         if not found:
@@ -675,7 +689,33 @@ def run_bench(
                        tuple(notes))
 
 
+def summary_table(result: BenchResult) -> str:
+    """The text the command prints: the summary per variant, the failures, the files, the counts."""
+
+    def num(value, digits):
+        return "-" if value is None else f"{value:.{digits}f}"
+
+    width = max([len("variant")] + [len(s.variant) for s in result.summary]) + 2
+    lines = [f"{'variant':<{width}}{'structures':>11}{'failed':>8}{'MAE vs exp':>12}{'max |err|':>11}"
+             f"{'E-E(ref)':>12}{'MAE vs ref':>12}", f"{'':<{width}}{'':>11}{'':>8}{'kcal/mol':>12}{'kcal/mol':>11}"
+             f"{'hartree':>12}{'kcal/mol':>12}"]
+    for s in result.summary:
+        lines.append(f"{s.variant:<{width}}{s.structures:>11}{s.failed:>8}"
+                     f"{num(s.mean_abs_atomization_error_kcal_mol, 2):>12}{num(s.max_abs_atomization_error_kcal_mol, 2):>11}"
+                     f"{num(s.mean_energy_above_reference_hartree, 6):>12}"
+                     f"{num(s.mean_abs_atomization_vs_reference_kcal_mol, 2):>12}")
+    for r in result.rows:
+        if r.failed:
+            lines.append(f"failed: {r.structure} ({r.variant}): {r.error}")
+    for path in result.files.values():
+        lines.append(f"wrote {path}")
+    lines.append(f"{len(result.plan.tasks)} calculations: {result.computed} computed, {result.resumed} taken from the "
+                 f"manifest, {len(result.failed)} failed; {result.seconds:.1f} s")
+    return "\n".join(lines)
+
+
 __all__ = ["BenchPlan", "BenchResult", "BenchRow", "BenchSet", "BenchStructure", "BenchTask", "Calculation",
            "MANIFEST_NAME", "OUTPUT_NAMES", "ROW_FIELDS", "SETS", "Variant", "VariantSummary", "assemble",
            "bench_document", "check_reference", "file_structures", "free_atom", "hartree_to_kcal_mol", "list_sets",
-           "make_variants", "plan", "run_bench", "run_calculation", "set_structures", "summarize"]
+           "make_variants", "plan", "run_bench", "run_calculation", "select_structures", "set_structures", "summarize",
+           "summary_table"]
