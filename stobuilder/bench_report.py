@@ -2,7 +2,7 @@
 
 Pure rendering: ``render_outputs`` turns the rows and the summary into {path: text or PNG bytes},
 written all or none by the caller (``files.write_all``). The plots are drawn with matplotlib's
-Agg backend without the Software tag, so the same rows give the same bytes on one machine and
+Agg canvas (no pyplot) without the Software tag, so the same rows give the same bytes on one machine and
 software stack; the HTML page is self-contained apart from the PNG files it names with
 ``<img src=...>`` (relative names, beside it).
 """
@@ -61,15 +61,16 @@ def render_json(doc: Mapping) -> str:
 # ---------------------------------------------------------------------------- plots
 
 
-def _pyplot():
+def _figure(width: float, height: float):
+    """A matplotlib Figure on the Agg canvas (no pyplot, no global state: nothing to close)."""
     try:
-        import matplotlib
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.figure import Figure
     except ImportError:
         raise InputError("the bench report needs matplotlib: pip install 'stobuilder[plot]'") from None
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-
-    return plt
+    fig = Figure(figsize=(width, height))
+    FigureCanvasAgg(fig)
+    return fig, fig.add_subplot()
 
 
 MARKERS = "osD^v<>pPX*h"
@@ -84,9 +85,8 @@ def _png(fig) -> bytes:
 def energy_plot(structures: Sequence[str], variants: Sequence[str], rows, reference: str | None) -> bytes:
     """Energy error per molecule for every variant: E − E(reference basis) with a reference, else
     E − the lowest energy any variant gives for that molecule (hartree)."""
-    plt = _pyplot()
     by = {(r.structure, r.variant): r for r in rows}
-    fig, ax = plt.subplots(figsize=(max(8.0, 0.22 * len(structures) + 3), 5.0))
+    fig, ax = _figure(max(8.0, 0.22 * len(structures) + 3), 5.0)
     x = list(range(len(structures)))
     for i, v in enumerate(variants):
         ys = []
@@ -107,17 +107,15 @@ def energy_plot(structures: Sequence[str], variants: Sequence[str], rows, refere
     ax.set_title(f"Energy error per molecule ({what})")
     ax.grid(True, linewidth=0.3)
     ax.legend(fontsize=8)
-    fig.tight_layout()
-    data = _png(fig)
-    plt.close(fig)
-    return data
+    width, height = fig.get_size_inches()  # fixed margins in inches: room for the rotated names
+    fig.subplots_adjust(left=0.9 / width, right=1 - 0.2 / width, bottom=1.05 / height, top=1 - 0.45 / height)
+    return _png(fig)
 
 
 def atomization_plot(variants: Sequence[str], rows, against: str) -> bytes:
     """Computed atomization energies against experiment (``against`` = "experiment") or against
     the reference basis ("reference"), kcal/mol, with the line of equality."""
-    plt = _pyplot()
-    fig, ax = plt.subplots(figsize=(6.5, 6.0))
+    fig, ax = _figure(6.5, 6.0)
     lo, hi = [], []
     for i, v in enumerate(variants):
         pts = []
@@ -142,10 +140,8 @@ def atomization_plot(variants: Sequence[str], rows, against: str) -> bytes:
     ax.set_title(f"Atomization energies: computed against {name}")
     ax.grid(True, linewidth=0.3)
     ax.legend(fontsize=8)
-    fig.tight_layout()
-    data = _png(fig)
-    plt.close(fig)
-    return data
+    fig.subplots_adjust(left=0.14, right=0.97, bottom=0.1, top=0.93)
+    return _png(fig)
 
 
 # ---------------------------------------------------------------------------- the page
@@ -207,12 +203,12 @@ def render_html(plan, rows, summary, images: Mapping[str, str]) -> str:
     return "\n".join(out) + "\n"
 
 
-def render_outputs(plan, rows, summary, files: Mapping[str, str]) -> dict[str, str | bytes]:
+def render_outputs(plan, rows, summary, files: Mapping[str, str], document) -> dict[str, str | bytes]:
     """{path: contents} of every output: ``files`` maps "tsv", "json", "report", "energy_plot",
-    "atomization_plot" to paths (the plots' beside the report). The atomization plot is made
-    against experiment where the set has it, else against the reference basis, else not at all
-    (then its path is absent from the result)."""
-    from .bench import bench_document
+    "atomization_plot" to paths (the plots' beside the report); ``document(files written)`` is
+    the JSON document (``bench.bench_document``). The atomization plot is made against experiment
+    where the set has it, else against the reference basis, else not at all (then its path is
+    absent from the result)."""
 
     variants = [v.label for v in plan.variants]
     structures = [b.name for b in plan.structures]
@@ -228,6 +224,6 @@ def render_outputs(plan, rows, summary, files: Mapping[str, str]) -> dict[str, s
             os.path.basename(files["atomization_plot"]))
     written = {k: p for k, p in files.items() if k not in ("energy_plot", "atomization_plot") or p in contents}
     contents[files["tsv"]] = render_tsv(rows)
-    contents[files["json"]] = render_json(bench_document(plan, rows, summary, written))
+    contents[files["json"]] = render_json(document(written))
     contents[files["report"]] = render_html(plan, rows, summary, images)
     return contents

@@ -316,3 +316,13 @@ def test_no_out_is_an_error(capsys):
     code, _, err = run_cli(["bench", "--set", "g2-1", "CH4"], capsys)
     assert_one_line_error(code, err)
     assert "--out" in err
+
+
+def test_set_geometries_are_ase_collections_g2():
+    # the bench reads the G2-1 geometries from ase.data.g2_1; they are those of ase.collections.g2
+    import numpy as np
+
+    for b in bench.set_structures("g2-1"):
+        atoms = g2[b.name]
+        assert b.structure.symbols == tuple(atoms.get_chemical_symbols())
+        assert np.array_equal(np.array(b.structure.positions), atoms.get_positions())
