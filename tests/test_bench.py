@@ -326,3 +326,30 @@ def test_set_geometries_are_ase_collections_g2():
         atoms = g2[b.name]
         assert b.structure.symbols == tuple(atoms.get_chemical_symbols())
         assert np.array_equal(np.array(b.structure.positions), atoms.get_positions())
+
+
+def test_structure_files_on_a_callers_executor(tmp_path):
+    # structure files (no experiment, no reference): the energy plot only; any
+    # concurrent.futures Executor runs the calculations (here threads of this process)
+    from ase.io import write
+
+    path = tmp_path / "water.xyz"
+    write(path, g2["H2O"], format="xyz")
+    structures = bench.select_structures([str(path)], None)
+    assert [b.name for b in structures] == [str(path)] and structures[0].experiment_kcal_mol is None
+    plan = bench.plan(structures, bench.make_variants(["molecular"], [3], ["l2"]))
+    with cf.ThreadPoolExecutor(1) as pool:
+        result = bench.run_bench(plan, str(tmp_path / "out"), executor=pool)
+    assert (result.computed, result.resumed, result.exit_status) == (3, 0, 0)  # H, O, water
+    (row,) = result.rows
+    assert row.experiment_atomization_kcal_mol is None and row.atomization_kcal_mol is not None
+    # the same water as in the set: the same energy (same geometry, same basis, same SCF)
+    with cf.ThreadPoolExecutor(1) as pool:
+        (set_row,) = bench.run_bench(bench.plan(bench.set_structures("g2-1", ["H2O"]), plan.variants),
+                                     str(tmp_path / "set"), executor=pool).rows
+    assert row.energy_hartree == pytest.approx(set_row.energy_hartree, abs=1e-9)
+    parser = _Images()
+    parser.feed((tmp_path / "out" / "report.html").read_text())
+    assert parser.sources == ["energy_error.png"]
+    assert not (tmp_path / "out" / "atomization.png").exists()
+    assert "atomization_plot" not in _strict((tmp_path / "out" / "bench.json").read_text())["files"]
