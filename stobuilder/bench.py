@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import hashlib
 import json
+import math
 import os
 import socket
 import time
@@ -295,8 +296,6 @@ def _basis(structure: Structure, options: BuildOptions):
 
 
 def _energy(mf) -> float | None:
-    import math
-
     e = float(mf.e_tot)
     return e if math.isfinite(e) else None
 
@@ -311,7 +310,8 @@ def _compute(task: BenchTask) -> tuple[str, float | None, bool, int]:
         (symbol,) = s.symbols
         if task.options is not None:  # the free atom of checks.check_free_atom, in the variant's basis
             r = check_free_atom(_basis(s, task.options), symbol, "auto", reference=False)
-            return r.method, (r.energy_hartree if r.energy_hartree == r.energy_hartree else None), r.converged, r.iterations
+            energy = r.energy_hartree if math.isfinite(r.energy_hartree) else None
+            return r.method, energy, r.converged, r.iterations
         conf = ground_state(symbol)
         method = pick_method("auto", conf.unpaired, f"(free atom {symbol})")
         mol, configure = free_atom_setup(symbol, conf, task.reference, method)

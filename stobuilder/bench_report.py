@@ -61,8 +61,9 @@ def render_json(doc: Mapping) -> str:
 # ---------------------------------------------------------------------------- plots
 
 
-def _figure(width: float, height: float):
-    """A matplotlib Figure on the Agg canvas (no pyplot, no global state: nothing to close)."""
+def _figure(width: float, height: float, panels: int = 1):
+    """A matplotlib Figure on the Agg canvas (no pyplot, no global state: nothing to close) and
+    its ``panels`` axes, stacked, sharing x."""
     try:
         from matplotlib.backends.backend_agg import FigureCanvasAgg
         from matplotlib.figure import Figure
@@ -70,7 +71,8 @@ def _figure(width: float, height: float):
         raise InputError("the bench report needs matplotlib: pip install 'stobuilder[plot]'") from None
     fig = Figure(figsize=(width, height))
     FigureCanvasAgg(fig)
-    return fig, fig.add_subplot()
+    axes = fig.subplots(panels, 1, sharex=True, squeeze=False)[:, 0]
+    return fig, list(axes)
 
 
 MARKERS = "osD^v<>pPX*h"
@@ -82,40 +84,54 @@ def _png(fig) -> bytes:
     return buffer.getvalue()
 
 
-def energy_plot(structures: Sequence[str], variants: Sequence[str], rows, reference: str | None) -> bytes:
-    """Energy error per molecule for every variant: E − E(reference basis) with a reference, else
-    E − the lowest energy any variant gives for that molecule (hartree)."""
-    by = {(r.structure, r.variant): r for r in rows}
-    fig, ax = _figure(max(8.0, 0.22 * len(structures) + 3), 5.0)
-    x = list(range(len(structures)))
-    for i, v in enumerate(variants):
+def _energy_errors(structures, variants, by, reference):
+    """{variant: [error per structure, NaN where missing]}: E − E(reference basis) with a
+    reference, else E − the lowest energy any variant gives for the structure (hartree)."""
+    out = {}
+    for v in variants:
         ys = []
         for s in structures:
             r = by.get((s, v))
             if reference is not None:
                 y = r.energy_above_reference_hartree if r else None
             else:
-                energies = [by[(s, w)].energy_hartree for w in variants
-                            if (s, w) in by and not by[(s, w)].failed]
+                energies = [by[(s, w)].energy_hartree for w in variants if (s, w) in by and not by[(s, w)].failed]
                 y = (r.energy_hartree - min(energies)) if r and not r.failed and energies else None
             ys.append(float("nan") if y is None else y)
-        ax.plot(x, ys, marker=MARKERS[i % len(MARKERS)], markersize=4, linewidth=0.8, label=v)
-    ax.set_xticks(x)
-    ax.set_xticklabels(structures, rotation=90, fontsize=7)
-    what = f"E − E({reference})" if reference is not None else "E − lowest E of the variants"
-    ax.set_ylabel(f"{what} / hartree")
-    ax.set_title(f"Energy error per molecule ({what})")
-    ax.grid(True, linewidth=0.3)
-    ax.legend(fontsize=8)
-    width, height = fig.get_size_inches()  # fixed margins in inches: room for the rotated names
-    fig.subplots_adjust(left=0.9 / width, right=1 - 0.2 / width, bottom=1.05 / height, top=1 - 0.45 / height)
+        out[v] = ys
+    return out
+
+
+def energy_plot(structures: Sequence[str], variants: Sequence[str], rows, reference: str | None) -> bytes:
+    """Energy error per molecule for every variant: E − E(reference basis) with a reference, else
+    E − the lowest energy any variant gives for that molecule (hartree). With a reference and
+    several variants a second panel shows E − the lowest of the variants, where the differences
+    between the variants, small beside the basis-set error, can be read."""
+    by = {(r.structure, r.variant): r for r in rows}
+    panels = [reference] + ([None] if reference is not None and len(variants) > 1 else [])
+    width, height = max(8.0, 0.22 * len(structures) + 3), 1.5 + 3.5 * len(panels)
+    fig, axes = _figure(width, height, len(panels))
+    x = list(range(len(structures)))
+    for ax, ref in zip(axes, panels):
+        for i, (v, ys) in enumerate(_energy_errors(structures, variants, by, ref).items()):
+            ax.plot(x, ys, marker=MARKERS[i % len(MARKERS)], markersize=4, linewidth=0.8, label=v)
+        what = f"E − E({ref})" if ref is not None else "E − lowest E of the variants"
+        ax.set_ylabel(f"{what} / hartree")
+        ax.set_title(f"Energy error per molecule ({what})")
+        ax.grid(True, linewidth=0.3)
+        ax.legend(fontsize=8)
+    axes[-1].set_xticks(x)
+    axes[-1].set_xticklabels(structures, rotation=90, fontsize=7)
+    # fixed margins in inches: room for the rotated names
+    fig.subplots_adjust(left=0.9 / width, right=1 - 0.2 / width, bottom=1.05 / height, top=1 - 0.45 / height,
+                        hspace=0.6 / 3.5)
     return _png(fig)
 
 
 def atomization_plot(variants: Sequence[str], rows, against: str) -> bytes:
     """Computed atomization energies against experiment (``against`` = "experiment") or against
     the reference basis ("reference"), kcal/mol, with the line of equality."""
-    fig, ax = _figure(6.5, 6.0)
+    fig, (ax,) = _figure(6.5, 6.0)
     lo, hi = [], []
     for i, v in enumerate(variants):
         pts = []
