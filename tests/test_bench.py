@@ -353,3 +353,18 @@ def test_structure_files_on_a_callers_executor(tmp_path):
     assert parser.sources == ["energy_error.png"]
     assert not (tmp_path / "out" / "atomization.png").exists()
     assert "atomization_plot" not in _strict((tmp_path / "out" / "bench.json").read_text())["files"]
+
+
+def test_dask_executor_and_resume_across_engines(tmp_path):
+    # the same bench on a Dask cluster (in-process workers, distributed's own scheduler), then
+    # resumed on a thread pool: nothing is computed twice
+    distributed = pytest.importorskip("distributed")
+    plan = bench.plan(bench.set_structures("g2-1", ["HF", "LiH"]), bench.make_variants(["slater"], [3], ["l2"]))
+    out = str(tmp_path / "out")
+    with distributed.Client(processes=False, n_workers=1, threads_per_worker=1, dashboard_address=None) as client:
+        first = bench.run_bench(plan, out, executor=client.get_executor(pure=False))
+    assert (first.computed, first.resumed, first.exit_status) == (5, 0, 0)  # H, Li, F, HF, LiH
+    with cf.ThreadPoolExecutor(1) as pool:
+        again = bench.run_bench(plan, out, executor=pool)
+    assert (again.computed, again.resumed) == (0, 5)
+    assert [r.energy_hartree for r in again.rows] == [r.energy_hartree for r in first.rows]
