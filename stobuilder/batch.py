@@ -422,8 +422,11 @@ def _record_problem(record) -> str | None:
     return None
 
 
-def read_manifest(path: str, notes: list[str] | None = None) -> dict[str, dict]:
-    """The last record of every input in a manifest (input path → record).
+def read_manifest(path: str, notes: list[str] | None = None, key: str = "input",
+                  problem: Callable[[object], str | None] | None = None) -> dict[str, dict]:
+    """The last record of every input in a manifest (``record[key]`` → record; for a batch the
+    input path). ``problem`` says why a decoded line is not a usable record (default: the batch
+    record layout, ``_record_problem``); the bench passes its own.
 
     A line that is not a usable record (not UTF-8, not JSON, nested too deeply, not a record of
     this layout) is skipped, and ``notes`` (if given) gets one line naming the line number and the
@@ -451,11 +454,11 @@ def read_manifest(path: str, notes: list[str] | None = None) -> dict[str, dict]:
                 continue
             bad.append((number, "not JSON"))
             continue
-        problem = _record_problem(record)
-        if problem:
-            bad.append((number, problem))
+        why = (problem or _record_problem)(record)
+        if why:
+            bad.append((number, why))
             continue
-        last[record["input"]] = record
+        last[record[key]] = record
     if bad and notes is not None:
         shown = "; ".join(f"line {n}: {why}" for n, why in bad[:5]) + (f"; and {len(bad) - 5} more" if len(bad) > 5 else "")
         notes.append(f"{path}: skipped {len(bad)} unusable line(s) ({shown}); their items are computed again "
@@ -521,10 +524,11 @@ def _utc_now() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
 
 
-class _Manifest:
-    """The open manifest: an exclusive lock (one batch per folder), appends flushed and fsynced."""
+class Manifest:
+    """An open manifest (JSON lines): an exclusive lock (one run per folder), appends flushed and
+    fsynced. The batch and the bench keep theirs with it."""
 
-    def __init__(self, path: str, fresh: bool = False):
+    def __init__(self, path: str, fresh: bool = False, what: str = "batch"):
         """Open (creating) and lock the manifest ``path``. With ``fresh`` (``--force``) an existing
         manifest is first copied byte for byte to a new backup (``MANIFEST.bak``, ``.bak2``, …;
         named in ``notes``) and emptied, under the lock. InputError when another batch holds
@@ -532,11 +536,11 @@ class _Manifest:
         self.path = path
         self.notes: list[str] = []
         if os.path.lexists(path) and not os.path.isfile(path):
-            raise InputError(f"{path}: the batch manifest is not a regular file")
+            raise InputError(f"{path}: the {what} manifest is not a regular file")
         try:
             self.handle = open(path, "a", encoding="utf-8", newline="\n")
         except OSError as exc:
-            raise InputError(f"{path}: cannot open the batch manifest ({exc.strerror})") from None
+            raise InputError(f"{path}: cannot open the {what} manifest ({exc.strerror})") from None
         try:
             import fcntl
 
@@ -545,7 +549,7 @@ class _Manifest:
             pass
         except OSError:
             self.handle.close()
-            raise InputError(f"{path}: another batch is running on this output folder") from None
+            raise InputError(f"{path}: another {what} is running on this output folder") from None
         if fresh:
             self._start_fresh()
         self._drop_torn_line()
@@ -605,8 +609,10 @@ class _Manifest:
 class LineProgress:
     """Plain progress lines, at most one per ``interval`` seconds and one at the end, for logs."""
 
-    def __init__(self, total: int, stream=None, interval: float = 10.0, clock: Callable[[], float] = time.monotonic):
+    def __init__(self, total: int, stream=None, interval: float = 10.0, clock: Callable[[], float] = time.monotonic,
+                 label: str = "stobuilder batch", unit: str = "items"):
         self.total, self.stream, self.interval, self.clock = total, stream or sys.stderr, interval, clock
+        self.label, self.unit = label, unit
         self.counts = dict.fromkeys(STATUSES, 0)
         self.start = self.clock()
         self.last = self.start
@@ -628,8 +634,8 @@ class LineProgress:
         left = self.total - finished
         eta = f", about {left / rate:.0f} s left" if rate > 0 and left else ""
         print(
-            f"stobuilder batch: {finished}/{self.total} (done {self.counts['done']}, skipped "
-            f"{self.counts['skipped']}, failed {self.counts['failed']}), {rate:.1f} items/s{eta}",
+            f"{self.label}: {finished}/{self.total} (done {self.counts['done']}, skipped "
+            f"{self.counts['skipped']}, failed {self.counts['failed']}), {rate:.1f} {self.unit}/s{eta}",
             file=self.stream,
             flush=True,
         )
@@ -641,11 +647,11 @@ class LineProgress:
 class BarProgress:
     """A tqdm progress bar (count, rate, estimate) with the done/skipped/failed counts."""
 
-    def __init__(self, total: int, stream=None):
+    def __init__(self, total: int, stream=None, label: str = "stobuilder batch", unit: str = "items"):
         from tqdm import tqdm
 
         self.counts = dict.fromkeys(STATUSES, 0)
-        self.bar = tqdm(total=total, file=stream or sys.stderr, unit="item", desc="stobuilder batch", dynamic_ncols=True)
+        self.bar = tqdm(total=total, file=stream or sys.stderr, unit=unit.rstrip("s"), desc=label, dynamic_ncols=True)
 
     def update(self, status: str) -> None:
         self.counts[status] += 1
@@ -664,9 +670,11 @@ class NoProgress:
         pass
 
 
-def make_progress(total: int, mode: str = "auto", stream=None, interval: float = 10.0):
+def make_progress(total: int, mode: str = "auto", stream=None, interval: float = 10.0,
+                  label: str = "stobuilder batch", unit: str = "items"):
     """"bar" (tqdm), "lines" (LineProgress), "off", or "auto": a bar when ``stream`` (stderr) is a
-    terminal and tqdm is installed, plain lines otherwise."""
+    terminal and tqdm is installed, plain lines otherwise. ``label`` and ``unit`` name the run
+    and what it counts ("stobuilder bench", "calculations")."""
     stream = stream or sys.stderr
     if mode == "auto":
         tty = hasattr(stream, "isatty") and stream.isatty()
@@ -677,11 +685,11 @@ def make_progress(total: int, mode: str = "auto", stream=None, interval: float =
         mode = "bar" if tty else "lines"
     if mode == "bar":
         try:
-            return BarProgress(total, stream)
+            return BarProgress(total, stream, label, unit)
         except ImportError:
             raise InputError("--progress bar needs tqdm: pip install tqdm") from None
     if mode == "lines":
-        return LineProgress(total, stream, interval)
+        return LineProgress(total, stream, interval, label=label, unit=unit)
     if mode == "off":
         return NoProgress()
     raise InputError(f"unknown progress mode {mode!r}; choose auto, bar, lines or off")
@@ -690,14 +698,14 @@ def make_progress(total: int, mode: str = "auto", stream=None, interval: float =
 # ---------------------------------------------------------------------------- running a batch
 
 
-def prepare_out_dir(out_dir: str, force: bool) -> None:
-    """Create the output folder. A folder that holds files but no manifest is refused unless
-    ``force`` (the batch would overwrite files it does not own)."""
+def prepare_out_dir(out_dir: str, force: bool, manifest_name: str = MANIFEST_NAME, what: str = "batch") -> None:
+    """Create the output folder. A folder that holds files but no manifest ``manifest_name`` is
+    refused unless ``force`` (the run would overwrite files it does not own)."""
     if os.path.exists(out_dir) and not os.path.isdir(out_dir):
         raise InputError(f"{out_dir}: exists and is not a folder")
-    if os.path.isdir(out_dir) and not force and not os.path.exists(manifest_path(out_dir)):
+    if os.path.isdir(out_dir) and not force and not os.path.exists(os.path.join(out_dir, manifest_name)):
         if any(not e.startswith(".") for e in os.listdir(out_dir)):
-            raise InputError(f"{out_dir}: the folder holds files but no batch manifest; use --force to write into it")
+            raise InputError(f"{out_dir}: the folder holds files but no {what} manifest; use --force to write into it")
     try:
         os.makedirs(out_dir, exist_ok=True)
     except OSError as exc:
@@ -828,7 +836,7 @@ def run_batch(
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     prepare_out_dir(out_dir, force)
     path = manifest_path(out_dir)
-    manifest = _Manifest(path, fresh=force)
+    manifest = Manifest(path, fresh=force)
     notes = manifest.notes
     progress = progress or NoProgress()
     final: dict[str, dict] = {}
@@ -862,11 +870,7 @@ def run_batch(
             final[record["input"]] = record
             progress.update(record["status"])
 
-        if todo:
-            if executor is not None:
-                _run_on(executor, todo, finish)
-            else:
-                _run_local(todo, workers or default_workers(), finish)
+        run_tasks(todo, run_item, finish, _worker_failure, executor=executor, workers=workers)
     finally:
         manifest.close()
         progress.close()
@@ -881,16 +885,32 @@ def _worker_failure(task: Task, exc: BaseException) -> ItemOutcome:
     return ItemOutcome(task.item, None, error=f"{task.item.path}: the worker failed ({type(exc).__name__}: {reason})")
 
 
-def _run_on(executor: cf.Executor, tasks: Sequence[Task], finish) -> None:
+def run_tasks(tasks: Sequence, function: Callable, finish: Callable, failure: Callable,
+              executor: cf.Executor | None = None, workers: int | None = None) -> None:
+    """The engine under ``run_batch`` and the bench: run ``function(task)`` for every task on
+    ``executor`` (any concurrent.futures Executor, e.g. a Dask client's) or else on our own
+    spawn process pool of ``workers`` processes (default: the usable cores; rebuilt when a worker
+    process dies, ``_run_local``), and call ``finish(outcome)`` in this process as each one ends,
+    in the order they end. A task that raises becomes ``failure(task, exception)``, which is
+    finished like any outcome. ``function`` must be a picklable top-level function."""
+    if not tasks:
+        return
+    if executor is not None:
+        _run_on(executor, tasks, finish, function, failure)
+    else:
+        _run_local(tasks, workers or default_workers(), finish, function, failure)
+
+
+def _run_on(executor: cf.Executor, tasks: Sequence, finish, function=run_item, failure=_worker_failure) -> None:
     """Run the tasks on a caller's executor; a task that raises (a worker lost for good) is a
-    failed item."""
-    futures = {executor.submit(run_item, t): t for t in tasks}
+    failure."""
+    futures = {executor.submit(function, t): t for t in tasks}
     try:
         for future in cf.as_completed(futures):
             try:
                 outcome = future.result()
             except Exception as exc:
-                outcome = _worker_failure(futures[future], exc)
+                outcome = failure(futures[future], exc)
             finish(outcome)
     except BaseException:
         for future in futures:
@@ -898,18 +918,18 @@ def _run_on(executor: cf.Executor, tasks: Sequence[Task], finish) -> None:
         raise
 
 
-def _run_local(tasks: Sequence[Task], workers: int, finish) -> None:
+def _run_local(tasks: Sequence, workers: int, finish, function=run_item, failure=_worker_failure) -> None:
     """Run the tasks on our own process pool; when a worker process dies the pool breaks, and the
     unfinished tasks go to a new pool (MAX_POOL_RESTARTS times, then they fail)."""
     from concurrent.futures.process import BrokenProcessPool
 
     pending = list(tasks)
     for attempt in range(MAX_POOL_RESTARTS + 1):
-        broken: list[Task] = []
+        broken: list = []
         pool = local_executor(min(workers, len(pending)))
         completed = False
         try:
-            futures = {pool.submit(run_item, t): t for t in pending}
+            futures = {pool.submit(function, t): t for t in pending}
             for future in cf.as_completed(futures):
                 try:
                     outcome = future.result()
@@ -917,9 +937,9 @@ def _run_local(tasks: Sequence[Task], workers: int, finish) -> None:
                     if attempt < MAX_POOL_RESTARTS:
                         broken.append(futures[future])
                         continue
-                    outcome = _worker_failure(futures[future], exc)
+                    outcome = failure(futures[future], exc)
                 except Exception as exc:
-                    outcome = _worker_failure(futures[future], exc)
+                    outcome = failure(futures[future], exc)
                 finish(outcome)
             completed = True
         finally:
@@ -985,6 +1005,7 @@ __all__ = [
     "BatchSummary",
     "ItemOutcome",
     "MANIFEST_NAME",
+    "Manifest",
     "Task",
     "check_scheduler_address",
     "dask_executor",
@@ -996,6 +1017,7 @@ __all__ = [
     "read_manifest",
     "run_batch",
     "run_item",
+    "run_tasks",
     "structure_extensions",
     "worker_count",
 ]

@@ -282,6 +282,15 @@ def _atom_methods(basis: Basis, symbols, method: str) -> tuple[dict[str, str], t
     return chosen, tuple(notes)
 
 
+def free_atom_setup(symbol: str, conf, atom_basis, method: str):
+    """(Mole, configurer for ``solve``) of the free atom or ion of ``conf`` in ``atom_basis``
+    (anything PySCF takes for one element: our ``ElementBasis.to_pyscf()`` or a stored basis name
+    such as "cc-pvtz"), its electrons held per SO3 irrep (``irrep_occupations``) for ``method``
+    ("RHF", "ROHF", "UHF"). The one free-atom setup of the checks and the bench."""
+    mol = make_mole([(symbol, (0.0, 0.0, 0.0))], {symbol: atom_basis}, conf.charge, conf.unpaired, symmetry=True)
+    return mol, _atom_solver(irrep_occupations(conf), method)
+
+
 def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: bool = True) -> ScfResult:
     """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for:
     the high-spin single determinant of ``irrep_occupations``, held fixed through PySCF's atomic
@@ -289,10 +298,8 @@ def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: 
     conf = _configuration(basis, symbol)
     spin = conf.unpaired
     m = pick_method(method, spin, f"({symbol} {conf.label})")
-    element = basis[symbol]
     atoms = [(symbol, (0.0, 0.0, 0.0))]
-    mol = make_mole(atoms, {symbol: element.to_pyscf()}, conf.charge, spin, symmetry=True)
-    configure = _atom_solver(irrep_occupations(conf), m)
+    mol, configure = free_atom_setup(symbol, conf, basis[symbol].to_pyscf(), m)
     label = f"{symbol} {conf.label}"
     if not reference:
         return run_scf(mol, m, label, configure=configure)

@@ -115,6 +115,24 @@ def _parser() -> argparse.ArgumentParser:
     )
     a.add_argument("--json", action="store_true", help="print the summary as JSON")
 
+    c = sub.add_parser("bench", help="compare exponent choices over a molecule set: table, JSON, an HTML report")
+    c.add_argument("structures", nargs="*", metavar="STRUCTURE",
+                   help="structure files; with --set, names of the set's molecules (default: all of them)")
+    c.add_argument("--set", dest="set_name", metavar="NAME", help="a named molecule set, e.g. g2-1 (see --list-sets)")
+    c.add_argument("--list-sets", action="store_true", help="print the named sets and exit")
+    c.add_argument("--rule", action="append", metavar="RULE", help="screening rule, repeatable (default slater)")
+    c.add_argument("--gaussians", type=_whole_number, action="append", metavar="N", help="Gaussians per STO, repeatable (default 3)")
+    c.add_argument("--fit", choices=NORMS, action="append", help="fitting norm, repeatable (default l2)")
+    c.add_argument("--zeta-file", action="append", metavar="FILE.toml",
+                   help="one more variant per rule, N and fit, with these ζ on top of the rule (repeatable)")
+    c.add_argument("--reference", metavar="PYSCF_BASIS", help="also every calculation in this PySCF stored basis, e.g. cc-pvtz")
+    c.add_argument("--out", metavar="DIR", help="output folder: bench.tsv, bench.json, report.html, plots, manifest")
+    c.add_argument("--workers", type=_whole_number, metavar="N", help="local worker processes (default: the usable cores)")
+    c.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
+    c.add_argument("--force", action="store_true", help="recompute every calculation, whatever the manifest says")
+    c.add_argument("--progress", choices=("auto", "bar", "lines", "off"), default="auto", help="progress on stderr (default auto)")
+    c.add_argument("--json", action="store_true", help="print the result as JSON")
+
     t = sub.add_parser("fit", help="fit Gaussians to STOs: exponents, coefficients, error; optionally a plot")
     t.add_argument("subshells", nargs="+", metavar="SUBSHELL", help="e.g. 1s, or 2s 2p (or 2s,2p) sharing exponents")
     t.add_argument("--gaussians", type=_whole_number, default=3, metavar="N", help="Gaussians per STO (default 3)")
@@ -281,6 +299,49 @@ def _cmd_batch(args) -> int:
             f"{summary.failed} failed, {summary.seconds:.1f} s; manifest {summary.manifest}"
         )
     return summary.exit_status
+
+
+# ---------------------------------------------------------------------------- bench
+
+
+def _cmd_bench(args) -> int:
+    from . import batch, bench
+
+    if args.list_sets:
+        for info in bench.list_sets():
+            print(f"{info.name:<8}{info.size:>4} molecules  {info.description}; {info.source}")
+        return 0
+    if not args.out:
+        raise InputError("bench: --out DIR is required")
+    if args.scheduler is not None and args.workers is not None:
+        raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
+    workers = None
+    if args.scheduler is not None:
+        batch.check_scheduler_address(args.scheduler)
+    else:
+        workers, note = batch.worker_count(args.workers)
+        if note:
+            print(f"stobuilder: note: {note}", file=sys.stderr)
+    structures = bench.select_structures(args.structures, args.set_name)
+    variants = bench.make_variants(args.rule, args.gaussians, args.fit, args.zeta_file or ())
+    plan = bench.plan(structures, variants, args.reference)
+    client = executor = None
+    if args.scheduler is not None:
+        client, executor = batch.dask_executor(args.scheduler)
+    try:
+        result = bench.run_bench(plan, args.out, executor=executor, workers=workers, force=args.force,
+                                 progress=batch.make_progress(len(plan.tasks), args.progress, label="stobuilder bench",
+                                                              unit="calculations"))
+    finally:
+        if client is not None:
+            client.close()
+    for note in result.notes:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
+    if args.json:
+        _print_json(result.to_json())
+    else:
+        print(bench.summary_table(result))
+    return result.exit_status
 
 
 # ---------------------------------------------------------------------------- atom
@@ -462,6 +523,7 @@ COMMANDS = {
     "build": _cmd_build,
     "batch": _cmd_batch,
     "relax": _cmd_relax,
+    "bench": _cmd_bench,
     "atom": _cmd_atom,
     "fit": _cmd_fit,
     "zeta": _cmd_zeta,
