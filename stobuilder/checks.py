@@ -152,6 +152,7 @@ def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv
 
     def make():
         mf = use_robust_diis(driver(mol))
+        mf.chkfile = None  # no checkpoint file: nothing on disk, and about 30% less time per small SCF
         if configure is not None:
             mf = configure(mf)
         if conv_tol is not None:

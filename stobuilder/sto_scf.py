@@ -190,6 +190,7 @@ def _run_scf(ints: _Integrals, plan: _Plan, method: str, dm0=None, conv_tol: flo
     mol.spin = plan.nalpha - plan.nbeta
     mol.incore_anyway = True
     mf = use_robust_diis({"rhf": scf.RHF, "rohf": scf.ROHF, "uhf": scf.UHF}[method](mol))
+    mf.chkfile = None  # no checkpoint file per iteration (nothing on disk; the ζ search runs hundreds of SCFs)
     h = ints.t + ints.v
     mf.get_hcore = lambda *a, **k: h
     mf.get_ovlp = lambda *a, **k: ints.s
