@@ -368,3 +368,43 @@ def test_dask_executor_and_resume_across_engines(tmp_path):
         again = bench.run_bench(plan, out, executor=pool)
     assert (again.computed, again.resumed) == (0, 5)
     assert [r.energy_hartree for r in again.rows] == [r.energy_hartree for r in first.rows]
+
+
+def test_a_killed_bench_resumes_without_recomputing(tmp_path):
+    # A real kill (SIGKILL of the bench and its worker at once, mid-run): the calculations the
+    # manifest recorded are not computed again, the rest are, and the outputs come out whole.
+    # (common practice, no source)
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    root = Path(__file__).resolve().parents[1]
+    env = dict(os.environ, OMP_NUM_THREADS="1")
+    env["PYTHONPATH"] = str(root) + os.pathsep + env.get("PYTHONPATH", "")
+    out = tmp_path / "run"
+    manifest = out / bench.MANIFEST_NAME
+    names = list(g2_1.molecule_names)[:30]
+    command = [sys.executable, "-m", "stobuilder.cli", "bench", "--set", "g2-1", *names, "--rule", "molecular",
+               "--gaussians", "6", "--out", str(out), "--workers", "1", "--progress", "off"]
+    proc = subprocess.Popen(command, cwd=str(tmp_path), env=env, start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + 120
+        while time.monotonic() < deadline and proc.poll() is None:
+            if manifest.exists() and manifest.read_text().count('"status": "done"') >= 5:
+                break
+            time.sleep(0.01)
+        assert proc.poll() is None, "the bench finished before it could be killed"
+        os.killpg(proc.pid, signal.SIGKILL)
+    finally:
+        proc.wait(timeout=30)
+    assert not (out / "bench.json").exists()  # killed before the end: no report yet
+    survived = sum(1 for line in manifest.read_text().splitlines() if '"status": "done"' in line and line.endswith("}"))
+    rerun = subprocess.run(command, cwd=str(tmp_path), env=env, capture_output=True, text=True, timeout=300)
+    assert rerun.returncode == 0, rerun.stderr
+    total, computed, taken, failed = _counts(rerun.stdout)
+    assert failed == 0 and taken >= 5
+    assert taken == survived and computed == total - survived
+    doc = _strict((out / "bench.json").read_text())
+    assert len(doc["rows"]) == len(names) and all(r["converged"] for r in doc["rows"])
