@@ -245,7 +245,7 @@ def _cmd_relax(args) -> int:
         _print_json({"structures": [r.to_json() for r in results]})
     else:
         for r in results:
-            state = f"relaxed in {r.steps} steps" if r.converged else f"NOT CONVERGED after {r.steps} steps"
+            state = f"relaxed in {r.steps} step{'' if r.steps == 1 else 's'}" if r.converged else f"NOT CONVERGED after {r.steps} steps"
             print(f"{r.path}: {r.formula} {state}, E = {r.energy_hartree:.10f} hartree, "
                   f"max force {r.max_force_ev_per_a:.5f} eV/Å")
             for path in (r.relaxed_path, *r.files.values()):

@@ -154,3 +154,55 @@ def test_atom_numeric_options_end_in_the_contract(element, charge, gaussians, ze
         assert code == 2, (argv, err.getvalue())
         message = err.getvalue()
         assert message.startswith("stobuilder: error: ") and message.count("\n") == 1, message
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    command=st.sampled_from(["relax", "tune", "bench"]),
+    gaussians=mostly(st.one_of(st.none(), st.integers(1, 6).map(str)), st.one_of(st.integers(-2, 14).map(str), numbers), percent=90),
+    charge=mostly(st.none(), st.one_of(st.integers(-3, 3).map(str), numbers), percent=90),
+    spin=mostly(st.none(), st.one_of(st.integers(-2, 4).map(str), numbers), percent=90),
+    fmax=mostly(st.one_of(st.none(), st.floats(min_value=0.01, max_value=1.0).map(repr)), numbers, percent=90),
+    steps=mostly(st.one_of(st.none(), st.integers(1, 30).map(str)), numbers, percent=90),
+    zeta=mostly(st.none(), zetas, percent=90),
+)
+def test_relax_tune_bench_numeric_options_end_in_the_contract(command, gaussians, charge, spin, fmax, steps, zeta):
+    """The same contract for the commands built on the SCF: exit 0 (or 1: a relaxation out of
+    steps, a search or calculation that did not finish) with its outputs written; or exit 2 with
+    one error line, no traceback and nothing in the output folder. (common practice, no source)"""
+    with tempfile.TemporaryDirectory() as folder:
+        h2 = os.path.join(folder, "h2.xyz")
+        with open(h2, "w") as handle:
+            handle.write("2\n\nH 0 0 0\nH 0 0 0.80\n")  # near the H2 bond length (value from memory: 0.74 Å)
+        out_dir = os.path.join(folder, "out")
+        target = {"relax": out_dir, "tune": os.path.join(out_dir, "h.toml"), "bench": out_dir}[command]
+        argv = [command, h2, "--out", target]
+        if command == "tune":
+            os.mkdir(out_dir)
+        if command == "bench":
+            argv += ["--rule", "molecular", "--workers", "1", "--progress", "off"]
+        numeric = (("--gaussians", gaussians),) + ((("--charge", charge), ("--spin", spin)) if command != "bench" else ())
+        for option, value in numeric:  # bench takes spins from its set or files, no --charge/--spin
+            if value is not None:
+                argv.append(f"{option}={value}")
+        if command == "relax":
+            argv += [f"--fmax={fmax}"] if fmax is not None else []
+            argv += [f"--steps={steps}"] if steps is not None else []
+        if zeta is not None and command != "bench":
+            argv.append(f"--zeta=H:1s={zeta}")
+        err, out = io.StringIO(), io.StringIO()
+        threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
+        with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
+            code = main(argv)
+        message = err.getvalue()
+        event(f"{command} exit {code}")
+        assert "Traceback" not in message
+        written = sorted(os.listdir(out_dir)) if os.path.isdir(out_dir) else []
+        if code in (0, 1):
+            expected = {"relax": "h2.relaxed.extxyz", "tune": "h.toml", "bench": "bench.json"}[command]
+            assert expected in written, (argv, message, written)
+        else:
+            assert code == 2, (argv, message)
+            errors = [line for line in message.splitlines() if line.startswith("stobuilder: error: ")]
+            assert len(errors) == 1 and message.endswith(errors[0] + "\n"), message
+            assert [f for f in written if not f.startswith("stobuilder-")] == [], (argv, written)
