@@ -6,6 +6,7 @@ A bad input prints one line ``stobuilder: error: ...`` to stderr and exits with 
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import sys
 
@@ -256,37 +257,53 @@ def _cmd_relax(args) -> int:
 # ---------------------------------------------------------------------------- batch
 
 
-def _cmd_batch(args) -> int:
+def _workers(args) -> tuple[int | None, str | None]:
+    """``--workers`` / ``--scheduler`` checked (batch and bench): (local worker count, or None on
+    a Dask cluster; a note when the count was capped)."""
     from . import batch
 
     if args.scheduler is not None and args.workers is not None:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be >= 1, got {args.workers}")
-    notes: list[str] = []
     if args.scheduler is not None:
         batch.check_scheduler_address(args.scheduler)
-    workers = None
+        return None, None
+    return batch.worker_count(args.workers)
+
+
+@contextlib.contextmanager
+def _executor(args):
+    """The Dask cluster's executor for ``--scheduler`` (its client closed afterwards), else None:
+    the engine's own process pool."""
+    from . import batch
+
     if args.scheduler is None:
-        workers, note = batch.worker_count(args.workers)
-        notes += [note] if note else []
+        yield None
+        return
+    client, executor = batch.dask_executor(args.scheduler)
+    try:
+        yield executor
+    finally:
+        client.close()
+
+
+def _cmd_batch(args) -> int:
+    from . import batch
+
+    workers, note = _workers(args)
+    notes: list[str] = [note] if note else []
     from .options import from_args
 
     options = from_args(args)
     items = batch.discover(args.inputs, exclude=args.out, notes=notes)
     for note in notes:
         print(f"stobuilder: note: {note}", file=sys.stderr)
-    client = executor = None
-    if args.scheduler is not None:
-        client, executor = batch.dask_executor(args.scheduler)
-    try:
+    with _executor(args) as executor:
         summary = batch.run_batch(
             items, options, args.out, executor=executor, workers=workers, force=args.force,
             progress=batch.make_progress(len(items), args.progress),
         )
-    finally:
-        if client is not None:
-            client.close()
     for note in summary.notes:
         print(f"stobuilder: note: {note}", file=sys.stderr)
     if args.json:
@@ -313,28 +330,16 @@ def _cmd_bench(args) -> int:
         return 0
     if not args.out:
         raise InputError("bench: --out DIR is required")
-    if args.scheduler is not None and args.workers is not None:
-        raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
-    workers = None
-    if args.scheduler is not None:
-        batch.check_scheduler_address(args.scheduler)
-    else:
-        workers, note = batch.worker_count(args.workers)
-        if note:
-            print(f"stobuilder: note: {note}", file=sys.stderr)
+    workers, note = _workers(args)
+    if note:
+        print(f"stobuilder: note: {note}", file=sys.stderr)
     structures = bench.select_structures(args.structures, args.set_name)
     variants = bench.make_variants(args.rule, args.gaussians, args.fit, args.zeta_file or ())
     plan = bench.plan(structures, variants, args.reference)
-    client = executor = None
-    if args.scheduler is not None:
-        client, executor = batch.dask_executor(args.scheduler)
-    try:
+    with _executor(args) as executor:
         result = bench.run_bench(plan, args.out, executor=executor, workers=workers, force=args.force,
                                  progress=batch.make_progress(len(plan.tasks), args.progress, label="stobuilder bench",
                                                               unit="calculations"))
-    finally:
-        if client is not None:
-            client.close()
     for note in result.notes:
         print(f"stobuilder: note: {note}", file=sys.stderr)
     if args.json:

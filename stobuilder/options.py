@@ -78,28 +78,33 @@ def _normalised_or_none(text: str):
         return None
 
 
-def load_zeta_file(path) -> dict[str, dict[str, float]]:
-    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
+def read_toml(path, what: str) -> tuple[dict, str]:
+    """(document, "WHAT 'path'") of a TOML file; InputError naming ``what`` and the path for a
+    file that cannot be read or is not TOML. The one TOML reader (zeta files, tune's weights)."""
     import sys
 
     from . import arguments
 
     path = arguments.path(path, "path")
-
-    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
-
     if sys.version_info >= (3, 11):
         import tomllib
     else:  # pragma: no cover - Python 3.10
         import tomli as tomllib
-    where = f"zeta file {str(path)!r}"
+    where = f"{what} {str(path)!r}"
     try:
         with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
+            return tomllib.load(fh), where
     except OSError as err:
         raise InputError(f"{where}: cannot read it ({err.strerror})") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
-        raise InputError(f"{where}: not valid TOML ({err})") from None
+        raise InputError(f"{where}: not valid TOML ({' '.join(str(err).split())})") from None
+
+
+def load_zeta_file(path) -> dict[str, dict[str, float]]:
+    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
+    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
+
+    doc, where = read_toml(path, "zeta file")
     out: dict[str, dict[str, float]] = {}
     for sym, table in doc.items():
         try:

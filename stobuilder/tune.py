@@ -24,7 +24,6 @@ from __future__ import annotations
 import logging
 import math
 import os
-import sys
 import time
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
@@ -132,22 +131,10 @@ def load_weights(path, structures: Sequence[str]) -> tuple[float, ...]:
     a structure as given, its file name, or its name without extension (e.g. ``water = 2``);
     structures not named weigh 1. Every key must name a training structure and every weight
     be a positive finite number."""
-    from . import arguments
     from .naming import structure_name
+    from .options import read_toml
 
-    if sys.version_info >= (3, 11):
-        import tomllib
-    else:  # pragma: no cover - Python 3.10
-        import tomli as tomllib
-    path = arguments.path(path, "path")
-    where = f"weights file {str(path)!r}"
-    try:
-        with open(path, "rb") as fh:
-            doc = tomllib.load(fh)
-    except OSError as err:
-        raise InputError(f"{where}: cannot read it ({err.strerror})") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
-        raise InputError(f"{where}: not valid TOML ({' '.join(str(err).split())})") from None
+    doc, where = read_toml(path, "weights file")
     if not doc:
         raise InputError(f"{where}: no weights in it (expected lines such as water = 2.0)")
     weights = [None] * len(structures)
