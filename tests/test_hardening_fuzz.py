@@ -53,6 +53,16 @@ def _structures(folder):
     return {"water": water, "o": oxygen}
 
 
+def _run(argv):
+    """(exit status, stderr) of ``stobuilder ARGV`` in this process; the batch engine's process
+    pool is not under test here: threads keep each example fast."""
+    err, out = io.StringIO(), io.StringIO()
+    threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
+    with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
+        code = main(argv)
+    return code, err.getvalue()
+
+
 def _element_blocks(text):
     """{symbol: the shell lines of that element} of an NWChem basis block, for PySCF's parser."""
     blocks, symbol = {}, None
@@ -93,12 +103,7 @@ def test_numeric_options_end_in_the_contract(command, structure, gaussians, char
             argv.append("--check")
         if command == "batch":
             argv += ["--workers", "1", "--progress", "off"]
-        err, out = io.StringIO(), io.StringIO()
-        # batch's process pool is not under test here: threads keep each example fast
-        threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
-        with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
-            code = main(argv)
-        message = err.getvalue()
+        code, message = _run(argv)
         event(f"{command} exit {code}{' --check' if check else ''}")
         written = sorted(os.listdir(out_dir)) if os.path.isdir(out_dir) else []
         if code == 0:
@@ -190,11 +195,7 @@ def test_relax_tune_bench_numeric_options_end_in_the_contract(command, gaussians
             argv += [f"--steps={steps}"] if steps is not None else []
         if zeta is not None and command != "bench":
             argv.append(f"--zeta=H:1s={zeta}")
-        err, out = io.StringIO(), io.StringIO()
-        threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
-        with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
-            code = main(argv)
-        message = err.getvalue()
+        code, message = _run(argv)
         event(f"{command} exit {code}")
         assert "Traceback" not in message
         written = sorted(os.listdir(out_dir)) if os.path.isdir(out_dir) else []
