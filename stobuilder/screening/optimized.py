@@ -21,7 +21,7 @@ from ..elements import Configuration, subshell_label
 from .base import ShellExponent, basis_subshells
 
 NAME = "optimized"
-DESCRIPTION = "variationally optimised single-zeta exponents (exact-STO SCF; table H–Kr, others on demand)"
+DESCRIPTION = "variationally optimised single-zeta exponents (exact-STO SCF; table of neutral atoms H–Rn, ions and other configurations on demand)"
 
 TABLE_FILE = "optimized_zeta.json"
 REGENERATE_COMMAND = "python -m stobuilder.screening.regenerate_optimized"
