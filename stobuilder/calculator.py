@@ -182,6 +182,7 @@ class STOCalculator(Calculator):
 
         from .checks import solve, structure_mole
         from .methods import pick_method
+        from .pipeline import check_electrons
 
         if not system_changes and self.scf is not None and "energy" in self.results:
             # same atoms and parameters (ASE keeps the results): only the forces are missing
@@ -191,6 +192,7 @@ class STOCalculator(Calculator):
         options = self._options
         structure = _structure(self.atoms, options)
         key, basis = self._basis_for(structure, options)
+        check_electrons(structure, basis, options.method)
         method = pick_method(options.method, structure.spin, f"({structure.formula})")
         mol = structure_mole(structure, basis)
         signature = (key, structure.symbols, structure.charge, structure.spin, method)

@@ -32,7 +32,7 @@ from .naming import output_file, structure_name
 from .options import BuildOptions
 from .structures import Structure, check_geometry, elements_of, read_structures
 
-__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "merge_file", "output_path",
+__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "merge_file", "output_path",
            "prepare", "run_checks"]
 
 
@@ -164,7 +164,7 @@ def prepare(
             cache[("basis", key)] = basis
     if options.check:
         for frame in frames[: options.max_check_frames]:
-            _check_electrons(frame, basis, options.method)
+            check_electrons(frame, basis, options.method)
     name = name or structure_name(os.path.basename(path))
     texts = []
     for code in options.codes:
@@ -186,7 +186,7 @@ def _where(frame: Structure) -> str:
     return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
 
 
-def _check_electrons(frame: Structure, basis: Basis, method: str) -> None:
+def check_electrons(frame: Structure, basis: Basis, method: str) -> None:
     """Before any SCF: the method suits the structure, and the basis has room for its electrons
     (α ≤ functions, β ≤ functions). Periodic structures are checked on free atoms instead."""
     if frame.periodic:
@@ -200,7 +200,7 @@ def _check_electrons(frame: Structure, basis: Basis, method: str) -> None:
     if alpha > functions:
         raise InputError(
             f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
-            f"basis functions of the minimal basis (charge {frame.charge:+d}); nothing to check"
+            f"basis functions of the minimal basis (charge {frame.charge:+d}); no SCF can hold them"
         )
 
 

@@ -138,9 +138,8 @@ def relax_structures(
     from ase.units import Hartree
 
     from .files import check_targets, write_all
-    from .methods import pick_method
     from .naming import structure_name
-    from .pipeline import prepare
+    from .pipeline import check_electrons, prepare
 
     if isinstance(paths, (str, os.PathLike)):
         raise TypeError("paths must be a list of structure files, not one path")
@@ -161,7 +160,7 @@ def relax_structures(
                 f"{item.path}: periodic structure; relax does molecules (stobuilder build writes the "
                 "basis files for periodic codes)"
             )
-        pick_method(options.method, frame.spin, f"({item.path}: {frame.formula})")
+        check_electrons(frame, item.basis, options.method)  # the method suits it, its electrons fit the basis
         relaxed = os.path.join(out_dir, *(structure_name(os.path.basename(path)) + RELAXED_SUFFIX).split("/"))
         targets = {code: os.path.join(out_dir, *rel.split("/")) for code, rel, _ in item.texts}
         for target in (relaxed, *targets.values()):

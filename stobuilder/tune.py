@@ -285,7 +285,7 @@ class _Item:
 def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str = "training") -> list[_Item]:
     from .checks import _is_its_configuration
     from .methods import pick_method
-    from .pipeline import _check_electrons, basis_for
+    from .pipeline import check_electrons, basis_for
     from .structures import check_geometry, read_structures
 
     items = []
@@ -300,7 +300,7 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
                 basis = basis_for([frame], options)
             except InputError as exc:
                 raise InputError(f"{label}: {exc}") from None
-            _check_electrons(frame, basis, options.method)
+            check_electrons(frame, basis, options.method)
             method = pick_method(options.method, frame.spin, f"({label})")
             atom = len(frame.symbols) == 1 and _is_its_configuration(basis, frame)
             items.append(_Item(label, frame, method, 1.0 if weights is None else weights[i], atom))

@@ -260,6 +260,9 @@ def test_bad_inputs_are_one_line_input_errors():
     with pytest.raises(InputError) as e:
         Atoms("H2", positions=[(0, 0, 0), (0, 0, 0.74)], cell=[5, 5, 5], pbc=True, calculator=STOCalculator()).get_potential_energy()
     assert "periodic" in one_line(e) and "molecules" in str(e.value)
+    with pytest.raises(InputError) as e:  # H2 with charge -4: 3 α electrons in 2 basis functions
+        molecule("H2", calculator=STOCalculator(charge=-4)).get_potential_energy()
+    assert "do not fit in the 2 basis functions" in one_line(e)
     with pytest.raises(InputError) as e:
         Atoms(calculator=STOCalculator()).get_potential_energy()
     assert "no atoms" in one_line(e)

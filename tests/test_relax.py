@@ -126,6 +126,9 @@ def test_relax_builds_the_basis_once_per_structure(tmp_path, monkeypatch):
         (["--spin", "1"], "cannot have spin 1"),
         (["--method", "rhf", "--spin", "2"], "RHF needs a closed shell"),
         (["--zeta", "Fe:3d=2.1"], None),
+        # NH3 with charge -12: 22 electrons, 11 α, in the 8 functions of a minimal basis (found by
+        # the fuzz test: it reached PySCF's occupation step as a traceback)
+        (["--charge", "-12"], "do not fit"),
     ],
 )
 def test_relax_bad_options_exit_2_and_write_nothing(tmp_path, capsys, extra, needle):
