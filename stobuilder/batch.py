@@ -670,6 +670,9 @@ class NoProgress:
         pass
 
 
+PROGRESS_MODES = ("auto", "bar", "lines", "off")
+
+
 def make_progress(total: int, mode: str = "auto", stream=None, interval: float = 10.0,
                   label: str = "stobuilder batch", unit: str = "items"):
     """"bar" (tqdm), "lines" (LineProgress), "off", or "auto": a bar when ``stream`` (stderr) is a

@@ -165,9 +165,7 @@ def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv
     mf.kernel(dm0)
     iterations = int(getattr(mf, "cycles", 0))
     if not mf.converged:
-        mf2 = make().newton()
-        mf2.verbose = 0
-        mf2.max_cycle = max_cycle
+        mf2 = make().newton()  # PySCF's second-order object takes the settings of make()'s
         mf2.kernel(mf.make_rdm1())
         iterations += int(getattr(mf2, "cycles", 0))
         if mf2.converged:

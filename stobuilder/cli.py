@@ -47,6 +47,8 @@ def _print_json(doc) -> None:
 
 
 def _parser() -> argparse.ArgumentParser:
+    from . import relax
+    from .batch import PROGRESS_MODES
     from .expansion.fit import NORMS
     from .methods import METHODS
     from .options import add_arguments
@@ -73,9 +75,12 @@ def _parser() -> argparse.ArgumentParser:
     r = sub.add_parser("relax", help="relax molecules with the basis (ASE optimizer, PySCF SCF); relaxed extxyz and basis files")
     r.add_argument("structures", nargs="+", metavar="STRUCTURE", help="molecule files ASE reads (a file's last frame)")
     add_arguments(r, _whole_number)
-    r.add_argument("--fmax", type=float, default=0.05, metavar="EV_PER_A", help="largest force on an atom at convergence (default 0.05 eV/Å)")
-    r.add_argument("--steps", type=_whole_number, default=200, metavar="N", help="optimizer steps at most (default 200)")
-    r.add_argument("--optimizer", choices=("bfgs", "fire"), default="bfgs", help="ASE optimizer (default bfgs)")
+    r.add_argument("--fmax", type=float, default=relax.DEFAULT_FMAX, metavar="EV_PER_A",
+                   help=f"largest force on an atom at convergence (default {relax.DEFAULT_FMAX} eV/Å)")
+    r.add_argument("--steps", type=_whole_number, default=relax.DEFAULT_STEPS, metavar="N",
+                   help=f"optimizer steps at most (default {relax.DEFAULT_STEPS})")
+    r.add_argument("--optimizer", choices=relax.OPTIMIZERS, default=relax.OPTIMIZERS[0],
+                   help=f"ASE optimizer (default {relax.OPTIMIZERS[0]})")
     r.add_argument("--out", default="relaxed", metavar="DIR", help="output folder (default ./relaxed)")
     r.add_argument("--force", action="store_true", help="overwrite existing output files")
     r.add_argument("--json", action="store_true", help="print one JSON document instead of the summary")
@@ -111,7 +116,7 @@ def _parser() -> argparse.ArgumentParser:
     add_arguments(a, _whole_number)
     a.add_argument("--force", action="store_true", help="recompute every item, whatever the manifest says")
     a.add_argument(
-        "--progress", choices=("auto", "bar", "lines", "off"), default="auto",
+        "--progress", choices=PROGRESS_MODES, default="auto",
         help="progress on stderr: a bar on a terminal, plain lines otherwise (default auto)",
     )
     a.add_argument("--json", action="store_true", help="print the summary as JSON")
@@ -131,7 +136,7 @@ def _parser() -> argparse.ArgumentParser:
     c.add_argument("--workers", type=_whole_number, metavar="N", help="local worker processes (default: the usable cores)")
     c.add_argument("--scheduler", metavar="ADDRESS", help="run on a Dask cluster, e.g. tcp://host:8786")
     c.add_argument("--force", action="store_true", help="recompute every calculation, whatever the manifest says")
-    c.add_argument("--progress", choices=("auto", "bar", "lines", "off"), default="auto", help="progress on stderr (default auto)")
+    c.add_argument("--progress", choices=PROGRESS_MODES, default="auto", help="progress on stderr (default auto)")
     c.add_argument("--json", action="store_true", help="print the result as JSON")
 
     t = sub.add_parser("fit", help="fit Gaussians to STOs: exponents, coefficients, error; optionally a plot")
