@@ -32,7 +32,7 @@ from .naming import output_file, structure_name
 from .options import BuildOptions
 from .structures import Structure, check_geometry, elements_of, read_structures
 
-__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "merge_file", "output_path",
+__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
            "prepare", "run_checks"]
 
 
@@ -235,6 +235,23 @@ def _named(path: str, message: str) -> str:
     return message if message.startswith(path) else f"{path}: {message}"
 
 
+def claim_target(sources: dict[str, str], target: str, path: str) -> None:
+    """Record in ``sources`` (target → structure file) that ``path`` writes ``target``;
+    InputError when another structure of the job already does."""
+    if target in sources:
+        raise InputError(f"{path} and {sources[target]} would both write {target}")
+    sources[target] = path
+
+
+def check_zeta_elements(options: BuildOptions, frames) -> None:
+    """InputError when the options' ζ overrides name an element in none of ``frames``."""
+    named = {s for s, _ in options.zeta}
+    if named:
+        missing = named - {s for f in frames for s in f.symbols}
+        if missing:
+            raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(missing))}")
+
+
 def union_basis(bases: Sequence[Basis]) -> Basis:
     """One basis with the elements of all ``bases``; an element must have the same shells in each."""
     elements = {}
@@ -390,16 +407,10 @@ def build_structures(
         item = prepare(path, options, split_elements=split_elements)
         for _, rel, text in item.texts if merge_into is None else ():
             target = os.path.join(out_dir, *rel.split("/"))
-            if target in sources:
-                raise InputError(f"{path} and {sources[target]} would both write {target}")
-            sources[target] = path
+            claim_target(sources, target, path)
             contents[target] = text
         prepared.append(item)
-    if options.zeta:
-        named = {s for s, _ in options.zeta}
-        present = {s for item in prepared for f in item.frames for s in f.symbols}
-        if named - present:
-            raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(named - present))}")
+    check_zeta_elements(options, (f for item in prepared for f in item.frames))
     if merge_into is not None:
         merged = union_basis([item.basis for item in prepared])
         code = options.codes[0]

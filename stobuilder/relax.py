@@ -139,7 +139,7 @@ def relax_structures(
 
     from .files import check_targets, write_all
     from .naming import structure_name
-    from .pipeline import check_electrons, prepare
+    from .pipeline import check_electrons, check_zeta_elements, claim_target, prepare
 
     if isinstance(paths, (str, os.PathLike)):
         raise TypeError("paths must be a list of structure files, not one path")
@@ -164,14 +164,9 @@ def relax_structures(
         relaxed = os.path.join(out_dir, *(structure_name(os.path.basename(path)) + RELAXED_SUFFIX).split("/"))
         targets = {code: os.path.join(out_dir, *rel.split("/")) for code, rel, _ in item.texts}
         for target in (relaxed, *targets.values()):
-            if target in sources:
-                raise InputError(f"{path} and {sources[target]} would both write {target}")
-            sources[target] = path
+            claim_target(sources, target, path)
         jobs.append((item, frame, relaxed, targets))
-    named = {s for s, _ in options.zeta}
-    present = {s for _, frame, _, _ in jobs for s in frame.symbols}
-    if named - present:
-        raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(named - present))}")
+    check_zeta_elements(options, (frame for _, frame, _, _ in jobs))
     if write:
         check_targets(sources, force)
     contents: dict[str, str] = {}
