@@ -131,26 +131,30 @@ def load_weights(path, structures: Sequence[str]) -> tuple[float, ...]:
     a structure as given, its file name, or its name without extension (e.g. ``water = 2``);
     structures not named weigh 1. Every key must name a training structure and every weight
     be a positive finite number."""
-    from .naming import structure_name
     from .options import read_toml
 
     doc, where = read_toml(path, "weights file")
     if not doc:
         raise InputError(f"{where}: no weights in it (expected lines such as water = 2.0)")
+    return _mapped_weights(doc, structures, where)
+
+
+def _mapped_weights(doc: Mapping, structures: Sequence[str], where: str) -> tuple[float, ...]:
+    """The weights of {structure: weight} (a key: the structure as given, its file name, or that
+    name without extension), 1 for structures not named; ``where`` names the source in errors."""
+    from .naming import structure_name
+
     weights = [None] * len(structures)
     names = [{s, os.path.basename(s), structure_name(os.path.basename(s))} for s in structures]
     for key, value in doc.items():
-        if isinstance(value, bool) or not isinstance(value, (int, float)):
-            raise InputError(f"{where}: {key} = {value!r} is not a number")
-        if not (math.isfinite(value) and value > 0):
-            raise InputError(f"{where}: {key} = {value!r} must be a positive finite number")
+        w = _weight(value, f"{where}: {key}")
         hits = [i for i, n in enumerate(names) if key in n]
         if not hits:
             raise InputError(f"{where}: {key!r} names no training structure")
         for i in hits:
             if weights[i] is not None:
                 raise InputError(f"{where}: {structures[i]} is given a weight twice")
-            weights[i] = float(value)
+            weights[i] = w
     return tuple(1.0 if w is None else w for w in weights)
 
 
@@ -311,14 +315,15 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
 
 def _scf(item: _Item, options: BuildOptions, zeta: dict, dm0):
     """(energy or None, density) of ``item`` with the ζ overrides ``zeta`` on top of the options'."""
-    from .checks import _atom_solver, _configuration, irrep_occupations, solve, structure_mole
+    from .checks import _configuration, free_atom_setup, solve, structure_mole
     from .pipeline import basis_for
 
     basis = basis_for([item.structure], options.replace(zeta=merge_zeta(options.zeta_map, zeta)))
-    configure = None
-    mol = structure_mole(item.structure, basis, symmetry=item.atom)
-    if item.atom:
-        configure = _atom_solver(irrep_occupations(_configuration(basis, item.structure.symbols[0])), item.method)
+    if item.atom:  # the fixed-occupation free atom of build --check (checks.free_atom_setup)
+        symbol = item.structure.symbols[0]
+        mol, configure = free_atom_setup(symbol, _configuration(basis, symbol), basis[symbol].to_pyscf(), item.method)
+    else:
+        mol, configure = structure_mole(item.structure, basis), None
     if dm0 is not None and np.shape(dm0)[-1] != mol.nao:
         dm0 = None
     try:
@@ -574,21 +579,17 @@ def _weights(weights, paths) -> tuple[float, ...] | None:
     if isinstance(weights, (str, os.PathLike)):
         return load_weights(weights, paths)
     if isinstance(weights, Mapping):
-        out = [1.0] * len(paths)
-        for key, value in weights.items():
-            hits = [i for i, p in enumerate(paths) if key in (p, os.path.basename(p))]
-            if not hits:
-                raise InputError(f"weights: {key!r} names no training structure")
-            for i in hits:
-                out[i] = _weight(value, key)
-        return tuple(out)
+        return _mapped_weights(weights, paths, "weights")
     values = list(weights)
     if len(values) != len(paths):
         raise InputError(f"weights: {len(values)} weights for {len(paths)} structures")
-    return tuple(_weight(v, p) for v, p in zip(values, paths))
+    return tuple(_weight(v, f"weights: {p}") for v, p in zip(values, paths))
 
 
-def _weight(value, where) -> float:
-    if isinstance(value, bool) or not isinstance(value, (int, float)) or not (math.isfinite(value) and value > 0):
-        raise InputError(f"weights: {where}: {value!r} must be a positive finite number")
+def _weight(value, where: str) -> float:
+    """A weight: a positive finite number (``where`` = "SOURCE: KEY" names it in errors)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        raise InputError(f"{where} = {value!r} is not a number")
+    if not (math.isfinite(value) and value > 0):
+        raise InputError(f"{where} = {value!r} must be a positive finite number")
     return float(value)
