@@ -506,7 +506,7 @@ def outcome_record(outcome: ItemOutcome, options: BuildOptions, files: Mapping[s
         "checks": list(outcome.checks),
         "notes": list(outcome.notes),
         "error": outcome.error,
-        "timings": {k: round(v, 6) for k, v in outcome.timings.items()} | {"finished_utc": _utc_now()},
+        "timings": {k: round(v, 6) for k, v in outcome.timings.items()} | {"finished_utc": utc_now()},
         "worker": outcome.worker,
     }
 
@@ -515,12 +515,12 @@ def skipped_record(previous: Mapping) -> dict:
     """The record of an item found up to date: its previous record with status skipped."""
     record = dict(previous)
     record["status"] = "skipped"
-    record["timings"] = {"finished_utc": _utc_now()}
+    record["timings"] = {"finished_utc": utc_now()}
     record["worker"] = ""
     return record
 
 
-def _utc_now() -> str:
+def utc_now() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
 
 

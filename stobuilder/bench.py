@@ -621,10 +621,10 @@ def _record_problem(record) -> str | None:
 
 
 def _record(task: BenchTask, calc: Calculation) -> dict:
-    from datetime import datetime, timezone
+    from .batch import utc_now
 
     return {"task": task.key, "fingerprint": task.fingerprint(), "status": "done" if calc.ok else "failed",
-            "result": calc.to_json(), "finished_utc": datetime.now(timezone.utc).isoformat(timespec="milliseconds")}
+            "result": calc.to_json(), "finished_utc": utc_now()}
 
 
 def run_bench(

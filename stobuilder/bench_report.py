@@ -11,7 +11,6 @@ from __future__ import annotations
 
 import html
 import io
-import json
 import os
 from collections.abc import Mapping, Sequence
 
@@ -52,10 +51,9 @@ def render_tsv(rows) -> str:
 
 def render_json(doc: Mapping) -> str:
     """Strict JSON (no NaN, no Infinity), indented, with a final newline."""
-    try:
-        return json.dumps(doc, indent=2, allow_nan=False) + "\n"
-    except ValueError:
-        raise InputError("the bench result holds a number that is not finite; nothing written") from None
+    from .limits import strict_json
+
+    return strict_json(doc, "the bench result holds a number that is not finite; nothing written") + "\n"
 
 
 # ---------------------------------------------------------------------------- plots

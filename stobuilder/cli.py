@@ -7,7 +7,6 @@ from __future__ import annotations
 
 import argparse
 import contextlib
-import json
 import sys
 
 from .version import __version__
@@ -39,11 +38,9 @@ def _add_rule(p, default="slater"):
 
 def _print_json(doc) -> None:
     """Print strict JSON (no NaN or Infinity)."""
-    try:
-        text = json.dumps(doc, indent=2, allow_nan=False)
-    except ValueError:
-        raise InputError("the result holds a number that is not finite; nothing printed") from None
-    print(text)
+    from .limits import strict_json
+
+    print(strict_json(doc, "the result holds a number that is not finite; nothing printed"))
 
 
 def _parser() -> argparse.ArgumentParser:

@@ -7,6 +7,7 @@ both sides while keeping every scaled Gaussian exponent a normal double (common 
 source). A Gaussian exponent (bohr⁻²) we write lies
 in [EXPONENT_MIN, EXPONENT_MAX]. Charges and 2S are whole numbers of at most MAX_CHARGE in size.
 Geometry: no two atoms closer than MIN_DISTANCE_ANGSTROM (the shortest bond, H2, is 0.74 Å).
+JSON we print or write holds finite numbers only (``strict_json``).
 """
 
 from __future__ import annotations
@@ -64,3 +65,14 @@ def whole_number(value, name: str, minimum: int | None = None, maximum: int | No
     if maximum is not None and v > maximum:
         raise InputError(f"{name} must be <= {maximum}, got {v}")
     return v
+
+
+def strict_json(doc, failure: str) -> str:
+    """``doc`` as indented strict JSON (RFC 8259: no NaN, no Infinity); InputError ``failure``
+    when it holds a number that is not finite. Every JSON we print or write goes through it."""
+    import json
+
+    try:
+        return json.dumps(doc, indent=2, allow_nan=False)
+    except ValueError:
+        raise InputError(failure) from None
