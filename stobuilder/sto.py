@@ -90,13 +90,18 @@ def radial_kinetic(a: STOShell, b: STOShell) -> float:
 
 
 # ---------------------------------------------------------------- Slater integrals R^k
-def _half(p: int, alpha: float, q: int, beta: float, k: int) -> float:
-    """∫₀^∞ dr₁ r₁^(p+2+k) e^(−α r₁) ∫_{r₁}^∞ dr₂ r₂^(q+1−k) e^(−β r₂), all terms positive."""
+_FACTORIALS = np.array([float(math.factorial(i)) for i in range(171)])  # exact to rounding up to 170!
+
+
+def _half_grid(p, alpha, q, beta, k: int) -> np.ndarray:
+    """∫₀^∞ dr₁ r₁^(p+2+k) e^(−α r₁) ∫_{r₁}^∞ dr₂ r₂^(q+1−k) e^(−β r₂) (all terms positive), on a
+    grid: p, alpha of shape (X, 1), q, beta of shape (1, Y) → (X, Y); scalars give a scalar."""
     m = q + 1 - k
     ab = alpha + beta
-    total = 0.0
-    for j in range(m + 1):
-        total += math.factorial(m) / math.factorial(j) * beta ** (j - m - 1) * _gamma_int(p + 2 + k + j, ab)
+    total = np.zeros(np.broadcast_shapes(np.shape(p), np.shape(q)))
+    for j in range(int(m.max()) + 1):
+        term = _FACTORIALS[m] / _FACTORIALS[j] * beta ** (j - m - 1) * _FACTORIALS[p + 2 + k + j] / ab ** (p + 3 + k + j)
+        total += np.where(j <= m, term, 0.0)
     return total
 
 
@@ -109,7 +114,8 @@ def slater_rk(k: int, a: STOShell, b: STOShell, c: STOShell, d: STOShell) -> flo
     p, alpha = a.n + b.n - 2, a.zeta + b.zeta
     q, beta = c.n + d.n - 2, c.zeta + d.zeta
     nn = norm(a.n, a.zeta) * norm(b.n, b.zeta) * norm(c.n, c.zeta) * norm(d.n, d.zeta)
-    return nn * (_half(p, alpha, q, beta, k) + _half(q, beta, p, alpha, k))
+    p, q = np.asarray(p), np.asarray(q)
+    return float(nn * (_half_grid(p, alpha, q, beta, k) + _half_grid(q, beta, p, alpha, k)))
 
 
 # ---------------------------------------------------------------- angular part
@@ -238,20 +244,6 @@ def kinetic_matrix(basis: OneCentreBasis) -> np.ndarray:
 def nuclear_matrix(basis: OneCentreBasis, z: float) -> np.ndarray:
     """Nuclear-attraction matrix ⟨μ|−Z/r|ν⟩ in hartree for a point nucleus of charge z at the centre."""
     return -float(z) * _one_electron(basis, radial_nuclear)
-
-
-_FACTORIALS = np.array([float(math.factorial(i)) for i in range(171)])  # exact to rounding up to 170!
-
-
-def _half_grid(p, alpha, q, beta, k: int) -> np.ndarray:
-    """``_half`` on a grid: p, alpha of shape (X, 1), q, beta of shape (1, Y) → (X, Y)."""
-    m = q + 1 - k
-    ab = alpha + beta
-    total = np.zeros(np.broadcast_shapes(np.shape(p), np.shape(q)))
-    for j in range(int(m.max()) + 1):
-        term = _FACTORIALS[m] / _FACTORIALS[j] * beta ** (j - m - 1) * _FACTORIALS[p + 2 + k + j] / ab ** (p + 3 + k + j)
-        total += np.where(j <= m, term, 0.0)
-    return total
 
 
 def eri_tensor(basis: OneCentreBasis, first: int | None = None) -> np.ndarray:
