@@ -1,4 +1,5 @@
-"""Running the command line in-process for the tests, and the bad-input contract they assert."""
+"""Running the command line in-process for the tests, the bad-input contract they assert, and
+a command killed mid-run."""
 
 from stobuilder.cli import main
 
@@ -15,3 +16,26 @@ def assert_one_line_error(code, err):
     assert code == 2, err
     assert err.startswith("stobuilder: error: ") and err.count("\n") == 1, err
     assert "Traceback" not in err
+
+
+def kill_when_done(command, cwd, env, manifest, done: int, timeout: float = 120) -> None:
+    """Start ``command`` in its own process group and SIGKILL the whole group (the main process
+    and its workers at once) as soon as ``manifest`` records ``done`` finished items; fails when
+    the command ends before that."""
+    import os
+    import signal
+    import subprocess
+    import time
+
+    proc = subprocess.Popen(command, cwd=str(cwd), env=env, start_new_session=True,
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        deadline = time.monotonic() + timeout
+        while time.monotonic() < deadline and proc.poll() is None:
+            if manifest.exists() and manifest.read_text().count('"status": "done"') >= done:
+                break
+            time.sleep(0.01)
+        assert proc.poll() is None, "the command finished before it could be killed"
+        os.killpg(proc.pid, signal.SIGKILL)
+    finally:
+        proc.wait(timeout=30)

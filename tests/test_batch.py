@@ -17,7 +17,6 @@ import shutil
 import signal
 import subprocess
 import sys
-import time
 from dataclasses import replace
 from pathlib import Path
 
@@ -26,6 +25,7 @@ import pytest
 from ase.collections import g2
 from ase.io import write
 
+from cli_run import kill_when_done
 from stobuilder import batch
 from stobuilder.batch import discover, read_manifest, run_batch
 from stobuilder.cli import main
@@ -439,18 +439,7 @@ def test_a_killed_batch_resumes_without_recomputing_finished_items(tmp_path):
     manifest = out / batch.MANIFEST_NAME
     command = [sys.executable, "-m", "stobuilder.cli", "batch", str(src), "--out", str(out), "--check",
                "--workers", "1", "--progress", "lines"]
-    proc = subprocess.Popen(command, cwd=str(tmp_path), env=child_env(), start_new_session=True,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    try:
-        deadline = time.monotonic() + 60
-        while time.monotonic() < deadline and proc.poll() is None:
-            if manifest.exists() and manifest.read_text().count('"status": "done"') >= 3:
-                break
-            time.sleep(0.02)
-        assert proc.poll() is None, "the batch finished before it could be killed"
-        os.killpg(proc.pid, signal.SIGKILL)  # the batch and its worker process, at once
-    finally:
-        proc.wait(timeout=30)
+    kill_when_done(command, tmp_path, child_env(), manifest, 3, timeout=60)
     finished = {r["input"]: r for r in records(out) if r["status"] == "done"}
     assert 3 <= len(finished) < len(SLOW_CHECKS)
     mtimes = {p: {c: os.stat(out / e["path"]).st_mtime_ns for c, e in r["files"].items()} for p, r in finished.items()}

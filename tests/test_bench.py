@@ -23,7 +23,7 @@ import pytest
 from ase.collections import g2
 from ase.data import g2_1
 
-from cli_run import assert_one_line_error, run_cli
+from cli_run import assert_one_line_error, kill_when_done, run_cli
 from stobuilder import batch, bench
 
 # Open and closed shells, first and second row, RHF and ROHF (spins from ASE's magnetic moments)
@@ -374,10 +374,8 @@ def test_a_killed_bench_resumes_without_recomputing(tmp_path):
     # A real kill (SIGKILL of the bench and its worker at once, mid-run): the calculations the
     # manifest recorded are not computed again, the rest are, and the outputs come out whole.
     # (common practice, no source)
-    import signal
     import subprocess
     import sys
-    import time
 
     root = Path(__file__).resolve().parents[1]
     env = dict(os.environ, OMP_NUM_THREADS="1")
@@ -387,18 +385,7 @@ def test_a_killed_bench_resumes_without_recomputing(tmp_path):
     names = list(g2_1.molecule_names)[:30]
     command = [sys.executable, "-m", "stobuilder.cli", "bench", "--set", "g2-1", *names, "--rule", "molecular",
                "--gaussians", "6", "--out", str(out), "--workers", "1", "--progress", "off"]
-    proc = subprocess.Popen(command, cwd=str(tmp_path), env=env, start_new_session=True,
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    try:
-        deadline = time.monotonic() + 120
-        while time.monotonic() < deadline and proc.poll() is None:
-            if manifest.exists() and manifest.read_text().count('"status": "done"') >= 5:
-                break
-            time.sleep(0.01)
-        assert proc.poll() is None, "the bench finished before it could be killed"
-        os.killpg(proc.pid, signal.SIGKILL)
-    finally:
-        proc.wait(timeout=30)
+    kill_when_done(command, tmp_path, env, manifest, 5)
     assert not (out / "bench.json").exists()  # killed before the end: no report yet
     survived = sum(1 for line in manifest.read_text().splitlines() if '"status": "done"' in line and line.endswith("}"))
     rerun = subprocess.run(command, cwd=str(tmp_path), env=env, capture_output=True, text=True, timeout=300)
