@@ -7,12 +7,15 @@ both sides while keeping every scaled Gaussian exponent a normal double (common 
 source). A Gaussian exponent (bohr⁻²) we write lies
 in [EXPONENT_MIN, EXPONENT_MAX]. Charges and 2S are whole numbers of at most MAX_CHARGE in size.
 Geometry: no two atoms closer than MIN_DISTANCE_ANGSTROM (the shortest bond, H2, is 0.74 Å).
-JSON we print or write holds finite numbers only (``strict_json``).
+JSON we print or write holds finite numbers only (``strict_json``). Text taken from an input (a
+file name, a structure's comment) goes into a comment or a field of our files only through
+``one_line``, so that it cannot end the comment or the field and become live content.
 """
 
 from __future__ import annotations
 
 import math
+import re
 from numbers import Integral, Real
 
 from .errors import InputError
@@ -65,6 +68,26 @@ def whole_number(value, name: str, minimum: int | None = None, maximum: int | No
     if maximum is not None and v > maximum:
         raise InputError(f"{name} must be <= {maximum}, got {v}")
     return v
+
+
+# Characters that end a line for some reader (str.splitlines' set: \n \r \v \f \x1c-\x1e \x85
+# \u2028 \u2029), the other control characters, and the quote and backslash of TOML, JSON and
+# Python strings. Each becomes \uNNNN, an escape that TOML, JSON and Python strings decode back to
+# the character, and that is plain text in a comment (common practice, no source).
+_UNSAFE = re.compile(r'[\x00-\x1f\x7f-\x9f\u2028\u2029"\\]')
+
+
+def one_line(text) -> str:
+    """``text`` (any object, via str) as one line of printable text that no reader can take for
+    more than one line, a closing quote or an escape: control characters, line separators, the
+    double quote and the backslash become ``\\uNNNN``. Use it for every text from an input that
+    goes into a comment or a field of a file we write (zeta files, basis-file headers, TSV, HTML
+    after html.escape, extxyz comments).
+
+    >>> print(one_line('h2.xyz\\n[He]\\n1s = 5.0'))
+    h2.xyz\\u000a[He]\\u000a1s = 5.0
+    """
+    return _UNSAFE.sub(lambda match: f"\\u{ord(match.group()):04x}", str(text))
 
 
 def strict_json(doc, failure: str) -> str:
