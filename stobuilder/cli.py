@@ -495,16 +495,17 @@ def _check_tune_out(out: str, force: bool) -> None:
     import tempfile
 
     from .files import TEMP_PREFIX, TEMP_SUFFIX
+    from .limits import one_line
 
     _check_new_file(out, force, "--out")
     folder = os.path.dirname(os.path.abspath(out))
     if not os.path.isdir(folder):
         what = "is not a folder" if os.path.exists(folder) else "does not exist"
-        raise InputError(f"--out {out}: its folder {folder} {what}")
+        raise InputError(f"--out {one_line(out)}: its folder {one_line(folder)} {what}")
     try:
         fd, probe = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
     except OSError as exc:
-        raise InputError(f"--out {out}: cannot write there ({exc.strerror or exc})") from None
+        raise InputError(f"--out {one_line(out)}: cannot write there ({exc.strerror or exc})") from None
     os.close(fd)
     os.unlink(probe)
 

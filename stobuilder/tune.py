@@ -500,11 +500,13 @@ def _setup(structures, options, vary, weights):
 def _refuse_twice(paths: Sequence[str], role: str) -> None:
     """InputError for a structure file given twice (the same file, by its real path), as bench
     and relax refuse one: counting it twice is what a weight of 2 is for."""
+    from .limits import one_line
+
     seen: dict[str, str] = {}
     for path in paths:
         real = os.path.realpath(path)
         if real in seen:
-            again = path if path == seen[real] else f"{path} (the same file as {seen[real]})"
+            again = one_line(path if path == seen[real] else f"{path} (the same file as {seen[real]})")
             raise InputError(f"{again}: given twice as a {role} structure; to count it twice, give it a weight of 2")
         seen[real] = path
 
