@@ -475,7 +475,7 @@ def _cmd_tune(args) -> int:
     for given, name in ((args.code, "--code"), (args.check, "--check"), (args.sp_shells, "--sp-shells")):
         if given:
             raise InputError(f"tune: {name} is for build; tune writes a zeta file only")
-    _check_tune_out(args.out, args.force)
+    _check_tune_out(args.out, args.force, [*args.structures, *args.validate, *([args.weights] if args.weights else [])])
     options = from_args(args)
     vary = parse_vary(args.vary) if args.vary else None
     result = tune(args.structures, options, vary, args.weights, args.validate, threads=args.threads)
@@ -487,10 +487,11 @@ def _cmd_tune(args) -> int:
     return 0 if result.converged else 1
 
 
-def _check_tune_out(out: str, force: bool) -> None:
+def _check_tune_out(out: str, force: bool, inputs) -> None:
     """Before the first SCF: ``--out`` may be written. It is not a folder, not an existing file
-    (or dangling link) without --force, its folder exists, and a file can be created there (a
-    temporary file, removed at once: this is what catches a read-only file system)."""
+    (or dangling link) without --force, not one of the ``inputs`` even with --force, its folder
+    exists, and a file can be created there (a temporary file, removed at once: this is what
+    catches a read-only file system)."""
     import os
     import tempfile
 
@@ -498,6 +499,9 @@ def _check_tune_out(out: str, force: bool) -> None:
     from .limits import one_line
 
     _check_new_file(out, force, "--out")
+    for path in inputs:
+        if os.path.exists(out) and os.path.exists(path) and os.path.samefile(out, path):
+            raise InputError(f"--out {one_line(out)}: is the input {one_line(path)}; the zeta file needs a name of its own")
     folder = os.path.dirname(os.path.abspath(out))
     if not os.path.isdir(folder):
         what = "is not a folder" if os.path.exists(folder) else "does not exist"

@@ -186,6 +186,19 @@ def test_the_output_location_is_checked_before_any_scf(tmp_path, capsys, monkeyp
     assert sorted(os.listdir(tmp_path)) == before and (tmp_path / "existing.toml").read_text() == "# mine\n"
 
 
+def test_an_input_is_never_the_output_even_with_force(tmp_path, capsys, monkeypatch):
+    h2 = _h2(tmp_path)
+    weights = tmp_path / "w.toml"
+    weights.write_text("h2 = 1\n")
+    before = {p: open(p, "rb").read() for p in (h2, str(weights))}
+    _no_scf(monkeypatch)
+    for target in before:
+        code, _, err = run_cli(["tune", h2, "--weights", str(weights), "--out", target, "--force", *N], capsys)
+        assert_one_line_error(code, err)
+        assert "is the input" in err
+    assert {p: open(p, "rb").read() for p in before} == before
+
+
 @pytest.mark.skipif(os.geteuid() == 0, reason="root may write into a read-only folder")
 def test_a_read_only_folder_is_refused_before_any_scf(tmp_path, capsys, monkeypatch):
     h2 = _h2(tmp_path)
