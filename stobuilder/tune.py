@@ -11,7 +11,8 @@ other ζ keeps its start value (the rule's, or the options' own ζ). The weights
 mean 1 over the training structures once, where they come in (``_normalised``): a common factor
 of the weights is no choice of the user's, and with it gone every stopping test (the absolute
 gradient test, L-BFGS-B's change-of-objective test) and every printed number is independent of
-it, while unit weights (the default) stay 1. The search runs in x = ln ζ with scipy's bounded
+it, while unit weights (the default) stay 1 (a sum of 1 would loosen the gradient test n-fold
+for n structures). The search runs in x = ln ζ with scipy's bounded
 quasi-Newton method (L-BFGS-B), each ζ kept within a factor ``BOUND_FACTOR`` of where the round
 starts; a ζ that ends held by such a bound starts a new round with the range re-centred on it
 (``limits``' [ZETA_MIN, ZETA_MAX] is the outer limit). A ζ still held by a bound at the end (a
@@ -399,8 +400,9 @@ def tune(
     threads: int | None = None,
 ) -> TuneResult:
     """Tune the free ζ (``vary``: Variables or ``--vary`` texts; default ``default_variables``)
-    on the SCF energies of ``structures`` (paths), weighted by ``weights`` (a TOML file path,
-    {structure: weight}, or one weight per structure; default 1 each). ``validate``: held-out
+    on the SCF energies of ``structures`` (paths, each file once), weighted by ``weights`` (a TOML
+    file path, {structure: weight}, or one weight per structure; default 1 each; only their
+    ratios matter, they are scaled to mean 1). ``validate``: held-out
     structures whose energies are reported with the start and the tuned ζ. Progress is logged
     per iteration on the ``stobuilder.tune`` logger. ``threads``: PySCF's OpenMP threads for the
     SCFs (default PySCF's own; 1 is fastest for small molecules on a busy machine)."""
@@ -522,7 +524,7 @@ def _normalised(items: list[_Item]) -> list[_Item]:
 
 def energy_gradient(structures, options: BuildOptions | None = None, vary=None, weights=None):
     """(objective, {variable label: dE/d ln ζ}) at the start ζ, in hartree: what the search
-    starts from (central differences, ``STEP``)."""
+    starts from (central differences, ``STEP``; the weights scaled to mean 1, as in the search)."""
     options, items, variables, start = _setup(structures, options, vary, weights)
     objective = _Objective(items, variables, options)
     try:
