@@ -475,7 +475,7 @@ def _cmd_tune(args) -> int:
     for given, name in ((args.code, "--code"), (args.check, "--check"), (args.sp_shells, "--sp-shells")):
         if given:
             raise InputError(f"tune: {name} is for build; tune writes a zeta file only")
-    _check_new_file(args.out, args.force, "--out")
+    _check_tune_out(args.out, args.force, [*args.structures, *args.validate, *([args.weights] if args.weights else [])])
     options = from_args(args)
     vary = parse_vary(args.vary) if args.vary else None
     result = tune(args.structures, options, vary, args.weights, args.validate, threads=args.threads)
@@ -487,24 +487,55 @@ def _cmd_tune(args) -> int:
     return 0 if result.converged else 1
 
 
+def _check_tune_out(out: str, force: bool, inputs) -> None:
+    """Before the first SCF: ``--out`` may be written. It is not a folder, not an existing file
+    (or dangling link) without --force, not one of the ``inputs`` even with --force, its folder
+    exists, and a file can be created there (a temporary file, removed at once: this is what
+    catches a read-only file system)."""
+    import os
+    import tempfile
+
+    from .files import TEMP_PREFIX, TEMP_SUFFIX
+    from .limits import one_line
+
+    _check_new_file(out, force, "--out")
+    for path in inputs:
+        if os.path.exists(out) and os.path.exists(path) and os.path.samefile(out, path):
+            raise InputError(f"--out {one_line(out)}: is the input {one_line(path)}; the zeta file needs a name of its own")
+    folder = os.path.dirname(os.path.abspath(out))
+    if not os.path.isdir(folder):
+        what = "is not a folder" if os.path.exists(folder) else "does not exist"
+        raise InputError(f"--out {one_line(out)}: its folder {one_line(folder)} {what}")
+    try:
+        fd, probe = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
+    except OSError as exc:
+        raise InputError(f"--out {one_line(out)}: cannot write there ({exc.strerror or exc})") from None
+    os.close(fd)
+    os.unlink(probe)
+
+
 def _tune_table(result, out: str) -> str:
+    from .limits import one_line
+
     state = "converged" if result.converged else "NOT CONVERGED"
-    lines = [f"tune: {state} ({result.message}), {result.iterations} iterations, {result.scf_count} SCF calculations, "
-             f"{result.wall_seconds:.1f} s"]
+    lines = [f"tune: {state} ({one_line(result.message)}), {result.iterations} iterations, "
+             f"{result.scf_count} SCF calculations, {result.wall_seconds:.1f} s"]
     lines.append(f"  {'free zeta':<16}{'start':>12}{'tuned':>12}  bohr^-1")
     for v, a, b in zip(result.variables, result.start, result.final):
-        lines.append(f"  {v.label:<16}{a:>12.6f}{b:>12.6f}" + ("  (on a bound)" if v.label in result.at_bounds else ""))
-    width = max([30] + [len(r.structure) for r in result.energies + result.validation]) + 2
+        held = "  (held by a bound of the search: not an optimum)" if v.label in result.at_bounds else ""
+        lines.append(f"  {v.label:<16}{a:>12.6f}{b:>12.6f}{held}")
+    width = max([30] + [len(one_line(r.structure)) for r in result.energies + result.validation]) + 2
 
     def row(r):
-        return f"  {r.structure:<{width}}{r.method:<7}{_fmt_energy(r.start_hartree):>18}{_fmt_energy(r.final_hartree):>18}"
+        return (f"  {one_line(r.structure):<{width}}{r.method:<7}{_fmt_energy(r.start_hartree):>18}"
+                f"{_fmt_energy(r.final_hartree):>18}")
 
     lines.append(f"  {'structure':<{width}}{'method':<7}{'start':>18}{'tuned':>18}  hartree")
     lines += [row(r) for r in result.energies]
     if result.validation:
         lines.append("  held out (not tuned on; the tuned zeta need not lower these):")
         lines += [row(r) for r in result.validation]
-    lines.append(f"  wrote {out}")
+    lines.append(f"  wrote {one_line(out)}")
     return "\n".join(lines)
 
 

@@ -7,9 +7,18 @@ The procedure of the published molecular exponents (Hehre, Stewart & Pople, J. C
                                         geometry, with the method and 2S ``build --check`` uses
 
 over the free ζ (``Variable``: one ζ per element and group of subshells, ``C:2s,2p``); every
-other ζ keeps its start value (the rule's, or the options' own ζ). The search runs in x = ln ζ
-with scipy's bounded quasi-Newton method (L-BFGS-B), ζ kept within [ζ₀/2, 2ζ₀] and inside
-``limits``' range, and gradients by central differences in ln ζ (``STEP``, justified there).
+other ζ keeps its start value (the rule's, or the options' own ζ). The weights are scaled to
+mean 1 over the training structures once, where they come in (``_normalised``): a common factor
+of the weights is no choice of the user's, and with it gone every stopping test (the absolute
+gradient test, L-BFGS-B's change-of-objective test) and every printed number is independent of
+it, while unit weights (the default) stay 1 (a sum of 1 would loosen the gradient test n-fold
+for n structures). The search runs in x = ln ζ with scipy's bounded
+quasi-Newton method (L-BFGS-B), each ζ kept within a factor ``BOUND_FACTOR`` of where the round
+starts; a ζ that ends held by such a bound starts a new round with the range re-centred on it
+(``limits``' [ZETA_MIN, ZETA_MAX] is the outer limit). A ζ still held by a bound at the end (a
+global limit, or the iterations ran out) is reported (``at_bounds``) and the result is not
+converged: converged means the full gradient, not the part the bounds let through, met the
+test. Gradients by central differences in ln ζ (``STEP``, justified there).
 Each SCF starts from the previous density of the same structure: changing ζ rescales the
 exponents but keeps the number and order of the basis functions, so that density is a close
 guess. Only the structures holding a variable's element are recomputed for its derivative.
@@ -26,7 +35,7 @@ import math
 import os
 import time
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -53,8 +62,9 @@ SCF_CONV_TOL = 1e-11
 # The search stops when the largest projected |dE/d ln ζ| is below this (hartree): at a
 # curvature of ≳ 0.1 hartree that is ≲ 1e-4 in ln ζ.
 GRADIENT_TOL = 1e-5
-MAX_ITERATIONS = 100
-BOUND_FACTOR = 2.0  # ζ stays within [ζ₀ / 2, 2 ζ₀]
+MAX_ITERATIONS = 100  # over all rounds of the search
+BOUND_FACTOR = 2.0  # in one round ζ stays within [ζ₀ / 2, 2 ζ₀], ζ₀ its value at the round's start
+MAX_ROUNDS = 64  # re-centred rounds: 2^20 > ZETA_MAX / ZETA_MIN, so ~20 per direction reach a limit
 DIGITS = 6  # decimals of ζ (bohr⁻¹) in the result
 
 
@@ -173,7 +183,8 @@ class EnergyRow:
     final_hartree: float | None
 
     def to_json(self) -> dict:
-        return {"structure": self.structure, "start_hartree": self.start_hartree, "final_hartree": self.final_hartree}
+        return {"structure": self.structure, "weight": self.weight, "start_hartree": self.start_hartree,
+                "final_hartree": self.final_hartree}
 
 
 @dataclass(frozen=True)
@@ -182,12 +193,13 @@ class TuneResult:
 
     variables       the free ζ
     start, final    their values (bohr⁻¹) at the start and at the end (rounded to DIGITS)
-    energies        the training structures (the objective is Σ weight · energy)
+    energies        the training structures (the objective is Σ weight · energy, the weights
+                    scaled to mean 1)
     validation      the held-out structures (the tuned ζ need not lower their energies)
-    iterations      quasi-Newton iterations; scf_count the SCF calculations made
-    converged       the search met its gradient test and every SCF converged
+    iterations      quasi-Newton iterations (all rounds); scf_count the SCF calculations made
+    converged       the full gradient met its test (no ζ held by a bound) and every SCF converged
     message         why the search stopped
-    at_bounds       the variables that ended on a bound of their range
+    at_bounds       the labels of the variables held by a bound of the search (not converged)
     """
 
     variables: tuple[Variable, ...]
@@ -231,8 +243,10 @@ class TuneResult:
             "zeta": self.zeta,
             "start_zeta": self.start_zeta,
             "energies": [r.to_json() for r in self.energies],
+            "at_bound": self._table(self.variables, [v.label in self.at_bounds for v in self.variables]),
             "iterations": self.iterations,
             "converged": self.converged,
+            "message": self.message,
             "wall_seconds": self.wall_seconds,
             "out": out,
         }
@@ -242,26 +256,31 @@ class TuneResult:
 
     def toml_text(self) -> str:
         """The zeta file: a comment block (training set, rule, N, fit, energies, whether the
-        search converged), then one table per element. Deterministic: no times in it."""
+        search converged), then one table per element. Deterministic: no times in it. Text from
+        inputs (structure names, the message naming one) goes through ``limits.one_line``, so a
+        file name cannot end its comment line and become a live entry."""
+        from .limits import one_line
+
         o = self.options
-        lines = [
-            "# ζ (bohr^-1) tuned by stobuilder tune: minimised SCF energy of the training set",
-            f"# rule {o.rule}, N = {o.gaussians} Gaussians per STO, fit {o.norm}, exponents {o.exponents}, "
+        notes = [
+            "ζ (bohr^-1) tuned by stobuilder tune: minimised SCF energy of the training set",
+            f"rule {o.rule}, N = {o.gaussians} Gaussians per STO, fit {o.norm}, exponents {o.exponents}, "
             f"radial {o.radial}",
-            f"# free ζ: {' '.join(v.label for v in self.variables)}; every other ζ as the rule (or your own ζ) gives",
-            f"# converged: {'yes' if self.converged else 'NO'} ({self.message}), {self.iterations} iterations, "
+            f"free ζ: {' '.join(v.label for v in self.variables)}; every other ζ as the rule (or your own ζ) gives",
+            f"converged: {'yes' if self.converged else 'NO'} ({self.message}), {self.iterations} iterations, "
             f"{self.scf_count} SCF calculations",
         ]
         if self.at_bounds:
-            lines.append(f"# on a bound of the search range: {', '.join(self.at_bounds)}")
-        lines.append("# training set: weight, method, energy with the start ζ -> tuned ζ (hartree)")
-        lines += [f"#   {r.structure}  {r.weight:g}  {r.method}  {_energy(r.start_hartree)} -> {_energy(r.final_hartree)}"
+            notes.append(f"held by a bound of the search range (not an optimum): {', '.join(self.at_bounds)}")
+        notes.append("training set: weight (scaled to mean 1), method, energy with the start ζ -> tuned ζ (hartree)")
+        notes += [f"  {r.structure}  {r.weight:g}  {r.method}  {_energy(r.start_hartree)} -> {_energy(r.final_hartree)}"
                   for r in self.energies]
         if self.validation:
-            lines.append("# held-out structures (not tuned on): start ζ -> tuned ζ (hartree)")
-            lines += [f"#   {r.structure}  {r.method}  {_energy(r.start_hartree)} -> {_energy(r.final_hartree)}"
+            notes.append("held-out structures (not tuned on): start ζ -> tuned ζ (hartree)")
+            notes += [f"  {r.structure}  {r.method}  {_energy(r.start_hartree)} -> {_energy(r.final_hartree)}"
                       for r in self.validation]
-        lines.append("# start ζ: " + ", ".join(f"{v.label} = {z:.{DIGITS}f}" for v, z in zip(self.variables, self.start)))
+        notes.append("start ζ: " + ", ".join(f"{v.label} = {z:.{DIGITS}f}" for v, z in zip(self.variables, self.start)))
+        lines = [f"# {one_line(n)}" for n in notes]
         for symbol, table in self.zeta.items():
             lines += ["", f"[{symbol}]"]
             lines += [f"{label} = {z:.{DIGITS}f}" for label, z in table.items()]
@@ -381,8 +400,9 @@ def tune(
     threads: int | None = None,
 ) -> TuneResult:
     """Tune the free ζ (``vary``: Variables or ``--vary`` texts; default ``default_variables``)
-    on the SCF energies of ``structures`` (paths), weighted by ``weights`` (a TOML file path,
-    {structure: weight}, or one weight per structure; default 1 each). ``validate``: held-out
+    on the SCF energies of ``structures`` (paths, each file once), weighted by ``weights`` (a TOML
+    file path, {structure: weight}, or one weight per structure; default 1 each; only their
+    ratios matter, they are scaled to mean 1). ``validate``: held-out
     structures whose energies are reported with the start and the tuned ζ. Progress is logged
     per iteration on the ``stobuilder.tune`` logger. ``threads``: PySCF's OpenMP threads for the
     SCFs (default PySCF's own; 1 is fastest for small molecules on a busy machine)."""
@@ -408,7 +428,7 @@ class _Objective:
         self.holders = [[k for k, it in enumerate(items) if v.element in it.structure.elements] for v in variables]
         self.known: dict[tuple, dict] = {}  # x → energies at x already computed (the start point)
         self.last: dict[tuple, tuple] = {}
-        self.best = None  # (f, x, energies) of the lowest objective evaluated
+        self.best = None  # (f, x, energies, gradient) of the lowest objective evaluated
 
     def overrides(self, x) -> dict:
         return TuneResult._table(self.variables, [float(math.exp(v)) for v in x])
@@ -452,7 +472,7 @@ class _Objective:
                 pair.append(self._total(self.energies_at(xs, subset, keep=False)))
             g[j] = (pair[0] - pair[1]) / (2 * STEP)
         if self.best is None or f < self.best[0]:
-            self.best = (f, np.array(x, dtype=float), dict(centre))
+            self.best = (f, np.array(x, dtype=float), dict(centre), g)
         self.last = {key: (f, g)}
         return f, g
 
@@ -465,7 +485,8 @@ def _setup(structures, options, vary, weights):
     paths = [os.fspath(p) for p in ([structures] if isinstance(structures, (str, os.PathLike)) else structures)]
     if not paths:
         raise InputError("tune needs at least one training structure")
-    items = _items(paths, options, _weights(weights, paths))
+    _refuse_twice(paths, "training")
+    items = _normalised(_items(paths, options, _weights(weights, paths)))
     if vary is None:
         from .pipeline import basis_for
 
@@ -478,9 +499,32 @@ def _setup(structures, options, vary, weights):
     return options, items, variables, _start_values(variables, items, options)
 
 
+def _refuse_twice(paths: Sequence[str], role: str) -> None:
+    """InputError for a structure file given twice (the same file, by its real path), as bench
+    and relax refuse one: counting it twice is what a weight of 2 is for."""
+    from .limits import one_line
+
+    seen: dict[str, str] = {}
+    for path in paths:
+        real = os.path.realpath(path)
+        if real in seen:
+            again = one_line(path if path == seen[real] else f"{path} (the same file as {seen[real]})")
+            raise InputError(f"{again}: given twice as a {role} structure; to count it twice, give it a weight of 2")
+        seen[real] = path
+
+
+def _normalised(items: list[_Item]) -> list[_Item]:
+    """The items with their weights scaled to mean 1: the objective, its gradient, every stopping
+    test and every printed number are then the same for weights w and c·w (unit weights stay 1)."""
+    top = max(it.weight for it in items)  # relative to the largest first: no overflow, no division by 0
+    ratios = [it.weight / top for it in items]
+    scale = len(items) / math.fsum(ratios)
+    return [replace(it, weight=r * scale) for it, r in zip(items, ratios)]
+
+
 def energy_gradient(structures, options: BuildOptions | None = None, vary=None, weights=None):
     """(objective, {variable label: dE/d ln ζ}) at the start ζ, in hartree: what the search
-    starts from (central differences, ``STEP``)."""
+    starts from (central differences, ``STEP``; the weights scaled to mean 1, as in the search)."""
     options, items, variables, start = _setup(structures, options, vary, weights)
     objective = _Objective(items, variables, options)
     try:
@@ -490,15 +534,36 @@ def energy_gradient(structures, options: BuildOptions | None = None, vary=None, 
     return f, {v.label: float(d) for v, d in zip(variables, g)}
 
 
+def _round_bounds(x) -> tuple[list[float], list[float]]:
+    """The search range of one round in ln ζ: a factor BOUND_FACTOR either side of x, inside
+    [ZETA_MIN, ZETA_MAX]."""
+    step = math.log(BOUND_FACTOR)
+    lo = [max(float(v) - step, math.log(ZETA_MIN)) for v in x]
+    hi = [min(float(v) + step, math.log(ZETA_MAX)) for v in x]
+    return lo, hi
+
+
+def _held(x, g, lo, hi) -> list[int]:
+    """The variables a bound holds: on it, with the gradient pushing out beyond GRADIENT_TOL."""
+    out = []
+    for j, (xi, gi, a, b) in enumerate(zip(x, g, lo, hi)):
+        if (xi <= a + 1e-9 and gi > GRADIENT_TOL) or (xi >= b - 1e-9 and gi < -GRADIENT_TOL):
+            out.append(j)
+    return out
+
+
 def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneResult:
     from scipy.optimize import minimize
 
+    from .limits import whole_number
+
     t0 = time.perf_counter()
+    max_iterations = whole_number(max_iterations, "max_iterations", 0)
     options, items, variables, start = _setup(structures, options, vary, weights)
-    held = _items([os.fspath(p) for p in validate], options, role="held-out") if validate else []
+    validate = [os.fspath(p) for p in validate]
+    _refuse_twice(validate, "held-out")
+    held = _items(validate, options, role="held-out") if validate else []
     x0 = np.log(start)
-    lo = [max(math.log(z / BOUND_FACTOR), math.log(ZETA_MIN)) for z in start]
-    hi = [min(math.log(z * BOUND_FACTOR), math.log(ZETA_MAX)) for z in start]
     objective = _Objective(items, variables, options)
 
     # the start point: every SCF must converge here
@@ -507,39 +572,59 @@ def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneR
         if e is None:
             raise InputError(f"{items[k].label}: the {items[k].method} SCF does not converge with the start ζ; nothing to tune")
     evaluate = objective.evaluate
+    state = {"n": 0, "bounds": _round_bounds(x0)}
 
     def report(x, it):
         f, g = evaluate(x)
         shown = "  ".join(f"{v.label}={math.exp(z):.5f}" for v, z in zip(variables, x))
-        log.info("tune: iteration %d: objective %.10f hartree, largest |dE/dln ζ| %.2e hartree, ζ %s", it, f, _projected(x, g, lo, hi), shown)
-
-    iteration = {"n": 0}
+        log.info("tune: iteration %d: objective %.10f hartree, largest |dE/dln ζ| %.2e hartree, ζ %s", it, f,
+                 _projected(x, g, *state["bounds"]), shown)
 
     def callback(xk, *_):
-        iteration["n"] += 1
-        report(xk, iteration["n"])
+        state["n"] += 1
+        report(xk, state["n"])
 
     report(x0, 0)
-    stopped = None
+    x_round, scipy_message, stopped = x0, "", None
     try:
-        res = minimize(
-            evaluate, x0, jac=True, method="L-BFGS-B", bounds=list(zip(lo, hi)), callback=callback,
-            options={"maxiter": max_iterations, "gtol": GRADIENT_TOL, "ftol": 1e-15},
-        )
-        f_end, g_end = evaluate(res.x)
-        ok = _projected(res.x, g_end, lo, hi) <= GRADIENT_TOL
-        message = "gradient test met" if ok else f"search stopped: {res.message}"
-        nit = int(res.nit)
+        for _ in range(MAX_ROUNDS):
+            lo, hi = state["bounds"]
+            res = minimize(
+                evaluate, x_round, jac=True, method="L-BFGS-B", bounds=list(zip(lo, hi)), callback=callback,
+                options={"maxiter": max(max_iterations - state["n"], 0), "gtol": GRADIENT_TOL, "ftol": 1e-15},
+            )
+            scipy_message = str(res.message)
+            x_end = np.array(res.x, dtype=float)
+            _, g_end = evaluate(x_end)
+            inner = [j for j in _held(x_end, g_end, lo, hi)
+                     if math.log(ZETA_MIN) + 1e-9 < x_end[j] < math.log(ZETA_MAX) - 1e-9]
+            if not inner or state["n"] >= max_iterations:
+                break
+            log.info("tune: %s on a bound of the search range; the range is re-centred there",
+                     ", ".join(variables[j].label for j in inner))
+            x_round, state["bounds"] = x_end, _round_bounds(x_end)
     except _ScfStopped as exc:
         stopped = str(exc)
-        ok, nit = False, iteration["n"]
+        log.info("tune: the SCF of %s stopped converging; the best point so far is kept", stopped)
+    if objective.best is not None:
+        x_best, g_best = objective.best[1], objective.best[3]
+    else:  # the SCF stopped converging within the first gradient
+        x_best, g_best = x0, np.full(len(x0), np.inf)
+    at_bounds = tuple(variables[j].label for j in _held(x_best, g_best, *state["bounds"]))
+    ok = stopped is None and float(np.max(np.abs(g_best))) <= GRADIENT_TOL
+    if stopped is not None:
         message = f"the SCF of {stopped} stopped converging; the best point so far is kept"
-        log.info("tune: %s", message)
-    x_best = objective.best[1] if objective.best is not None else x0
+    elif ok:
+        message = "gradient test met"
+    elif at_bounds:
+        limit = "the iteration limit was reached" if state["n"] >= max_iterations else \
+            f"ζ is limited to {ZETA_MIN:g}–{ZETA_MAX:g} bohr^-1"
+        message = f"{', '.join(at_bounds)} held by a bound of the search range ({limit})"
+    else:
+        message = f"search stopped: {scipy_message}"
     final = [round(float(math.exp(v)), DIGITS) for v in x_best]
     # the energies at the rounded ζ that are written out (the ones ``build --zeta-file`` gets)
-    xf = np.log(final)
-    final_e = objective.energies_at(xf)
+    final_e = objective.energies_at(np.log(final))
     if any(e is None for e in final_e.values()):
         final_e = objective.best[2] if objective.best is not None else start_energies
         ok = False
@@ -547,11 +632,8 @@ def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneR
         EnergyRow(it.label, it.method, it.weight, start_energies[k], final_e[k]) for k, it in enumerate(items)
     )
     validation = tuple(_held_out(it, options, objective.overrides(x0), TuneResult._table(variables, final)) for it in held)
-    at_bounds = tuple(
-        v.label for v, z, a, b in zip(variables, xf, lo, hi) if z <= a + 1e-6 or z >= b - 1e-6
-    )
     return TuneResult(
-        variables, tuple(round(z, DIGITS) for z in start), tuple(final), options, rows, validation, nit,
+        variables, tuple(round(z, DIGITS) for z in start), tuple(final), options, rows, validation, state["n"],
         objective.scf_count, ok, message, time.perf_counter() - t0, at_bounds,
     )
 

@@ -207,3 +207,98 @@ def test_relax_tune_bench_numeric_options_end_in_the_contract(command, gaussians
             errors = [line for line in message.splitlines() if line.startswith("stobuilder: error: ")]
             assert len(errors) == 1 and message.endswith(errors[0] + "\n"), message
             assert [f for f in written if not f.startswith("stobuilder-")] == [], (argv, written)
+
+
+# ---------------------------------------------------------------------------- tune's edges (issue 21)
+
+_TUNE_H2 = "2\n\nH 0 0 0\nH 0 0 0.7408\n"  # R = 1.4 bohr (0.7408 Å; value from memory)
+
+
+def _toml_key(text):
+    """``text`` as a TOML basic-string key: every character TOML forbids raw (controls, DEL) and
+    the quote and backslash as \\uXXXX (TOML 1.0, basic strings)."""
+    return '"' + "".join(f"\\u{ord(c):04x}" if ord(c) < 0x20 or c in '\x7f"\\' else c for c in text) + '"'
+
+
+def _tune_reference_zeta():
+    """H2's tuned ζ with unit weights, the rule's start and a plain file name (computed once)."""
+    import tomllib
+
+    if not hasattr(_tune_reference_zeta, "value"):
+        with tempfile.TemporaryDirectory() as folder:
+            path = os.path.join(folder, "h2.xyz")
+            with open(path, "w") as handle:
+                handle.write(_TUNE_H2)
+            out = os.path.join(folder, "z.toml")
+            code, message = _run(["tune", path, "--gaussians", "1", "--threads", "1", "--out", out])
+            assert code == 0, message
+            with open(out, "rb") as handle:
+                _tune_reference_zeta.value = tomllib.load(handle)["H"]["1s"]
+    return _tune_reference_zeta.value
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    name=st.text(st.characters(blacklist_characters="/\x00", blacklist_categories=("Cs",)), min_size=1, max_size=16),
+    scale=st.one_of(st.just(None), st.integers(-300, 300).map(lambda k: 10.0**k)),
+    start=st.one_of(st.just(None), st.floats(min_value=0.002, max_value=900)),
+    where=st.sampled_from(["plain"] * 4 + ["missing-folder", "file-as-folder", "existing", "twice"]),
+)
+def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name, scale, start, where):
+    """tune on H2 under a hostile file name, a common factor of the weights from 1e-300 to
+    1e300, a start ζ anywhere in the allowed range and bad --out targets: exit 0 with a zeta file
+    that holds H only (no name becomes an entry) and the ζ of the plain run (argmin c·f = argmin f;
+    the search re-centres until the optimum is reached), or exit 2 with one error line, no SCF
+    run and nothing written. (common practice, no source)"""
+    import tomllib
+
+    from stobuilder import checks
+
+    reference = _tune_reference_zeta()
+    with tempfile.TemporaryDirectory() as folder:
+        inputs = os.path.join(folder, "in")
+        os.mkdir(inputs)
+        path = os.path.join(inputs, name + ".xyz")
+        try:
+            with open(path, "w") as handle:
+                handle.write(_TUNE_H2)
+        except OSError:  # a name the file system refuses (too long in bytes)
+            return
+        out_dir = os.path.join(folder, "out")
+        os.mkdir(out_dir)
+        out = {"missing-folder": os.path.join(out_dir, "no", "z.toml"),
+               "file-as-folder": os.path.join(inputs, name + ".xyz", "z.toml")}.get(where, os.path.join(out_dir, "z.toml"))
+        if where == "existing":
+            with open(out, "w") as handle:
+                handle.write("# mine\n")
+        argv = ["tune", path] + ([path] if where == "twice" else []) + ["--gaussians", "1", "--threads", "1", "--out", out]
+        if scale is not None:
+            weights = os.path.join(folder, "w.toml")
+            with open(weights, "w", encoding="utf-8") as handle:
+                handle.write(f"{_toml_key(name + '.xyz')} = {scale!r}\n")
+            argv += ["--weights", weights]
+        if start is not None:
+            argv.append(f"--zeta=H:1s={start!r}")
+        scf_runs = {"n": 0}
+        real_solve = checks.solve
+
+        def counting_solve(*args, **kwargs):
+            scf_runs["n"] += 1
+            return real_solve(*args, **kwargs)
+
+        with mock.patch.object(checks, "solve", counting_solve):
+            code, message = _run(argv)
+        event(f"tune {where} exit {code}")
+        assert "Traceback" not in message
+        if where == "plain":
+            assert code == 0, (argv, message)
+            with open(out, "rb") as handle:
+                doc = tomllib.load(handle)
+            assert set(doc) == {"H"} and set(doc["H"]) == {"1s"}, doc
+            # each search stops within ~1e-4 of the optimum in ln ζ (tests/test_tune_edges.py)
+            assert abs(doc["H"]["1s"] - reference) <= 1e-4 * reference, (argv, doc)
+        else:
+            assert code == 2 and scf_runs["n"] == 0, (argv, message)
+            errors = [line for line in message.splitlines() if line.startswith("stobuilder: error: ")]
+            assert len(errors) == 1 and message.endswith(errors[0] + "\n"), message
+            assert os.listdir(out_dir) == (["z.toml"] if where == "existing" else []), os.listdir(out_dir)

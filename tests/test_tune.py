@@ -222,14 +222,17 @@ def test_tuned_file_lowers_every_training_energy_in_build_check(tmp_path, capsys
 
 
 def test_weight_two_is_the_structure_counted_twice(tmp_path, capsys):
-    """Σ w E with w = 2 for one structure is the same sum with that structure listed twice (the
-    definition of the weighted objective; common practice, no source)."""
+    """Σ w E with w = 2 for one structure is the same sum with a copy of that structure in a
+    second file (the definition of the weighted objective; common practice, no source). The
+    same file given twice is refused (test_tune_edges.py)."""
     h2, hf = _write_h2(tmp_path), _write_molecule(tmp_path, "HF")
+    copy = tmp_path / "h2-copy.xyz"
+    copy.write_bytes(open(h2, "rb").read())
     weights = tmp_path / "w.toml"
     weights.write_text('h2 = 2\n"hf.xyz" = 1.0\n')
     common = ["--rule", "molecular", "--vary", "H:1s"]
     a = _tune_json(capsys, h2, hf, *common, "--weights", str(weights), "--out", str(tmp_path / "a.toml"))
-    b = _tune_json(capsys, h2, h2, hf, *common, "--out", str(tmp_path / "b.toml"))
+    b = _tune_json(capsys, h2, str(copy), hf, *common, "--out", str(tmp_path / "b.toml"))
     # both searches stop at |dE/d ln ζ| ≤ 1e-5 hartree; the curvature here is ≳ 0.5 hartree, so
     # the two ζ agree to ~2e-5 (estimate, common practice)
     assert a["zeta"]["H"]["1s"] == pytest.approx(b["zeta"]["H"]["1s"], abs=1e-4)
