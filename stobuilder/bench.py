@@ -151,8 +151,8 @@ def file_structures(paths: Sequence[str]) -> tuple[BenchStructure, ...]:
     for path in paths:
         real = os.path.realpath(path)
         if real in seen:
-            same = "" if seen[real] == path else f" (as {seen[real]})"
-            raise InputError(f"{path}: structure file given twice{same}; give each once")
+            same = "" if seen[real] == path else f" (as {one_line(seen[real])})"
+            raise InputError(f"{one_line(path)}: structure file given twice{same}; give each once")
         seen[real] = path
     out = []
     for path in paths:

@@ -111,10 +111,17 @@ def _figure(width: float, height: float, panels: int = 1):
 MARKERS = "osD^v<>pPX*h"
 
 
-def _plot_text(text) -> str:
+PLOT_LABEL_CHARACTERS = 28  # a longer structure name is shown by its end in a plot (the tables hold it whole)
+
+
+def _plot_text(text, shorten: bool = False) -> str:
     """Text from an input as a plot label: one line, and a ``$`` shown as itself (matplotlib
-    takes text between two ``$`` for mathematics)."""
-    return one_line(text).replace("$", r"\$")
+    takes text between two ``$`` for mathematics); with ``shorten``, a long name (a path) as
+    "…" and its last PLOT_LABEL_CHARACTERS − 1 characters."""
+    text = one_line(text)
+    if shorten and len(text) > PLOT_LABEL_CHARACTERS:
+        text = "…" + text[-(PLOT_LABEL_CHARACTERS - 1):]
+    return text.replace("$", r"\$")
 
 
 def _png(fig) -> bytes:
@@ -176,7 +183,7 @@ def energy_figure(structures: Sequence[str], variants: Sequence[str], rows, refe
         ax.grid(True, linewidth=0.3)
         ax.legend(fontsize=8)
     axes[-1].set_xticks(x)
-    axes[-1].set_xticklabels([_plot_text(s) for s in structures], rotation=90, fontsize=7)
+    axes[-1].set_xticklabels([_plot_text(s, shorten=True) for s in structures], rotation=90, fontsize=7)
     # fixed margins in inches: room for the rotated names
     fig.subplots_adjust(left=0.9 / width, right=1 - 0.2 / width, bottom=1.05 / height, top=1 - 0.45 / height,
                         hspace=0.6 / 3.5)
@@ -222,7 +229,7 @@ def atomization_figure(variants: Sequence[str], rows, against: str):
             ax.scatter(xs, ys, s=16, marker=MARKERS[i % len(MARKERS)], label=_plot_text(v))
             for (px, py), name, out in zip(pts, names, outlying(pts)):
                 if out:
-                    ax.annotate(_plot_text(name), (px, py), xytext=(4, 3), textcoords="offset points", fontsize=7)
+                    ax.annotate(_plot_text(name, shorten=True), (px, py), xytext=(4, 3), textcoords="offset points", fontsize=7)
             lo.append(min(min(xs), min(ys)))
             hi.append(max(max(xs), max(ys)))
     if lo:
@@ -257,24 +264,26 @@ def data_uri(png: bytes) -> str:
 
 
 def cautions(plan) -> tuple[str, ...]:
-    """The cautions of the report: CAUTIONS, and one for charged structures, whose atomization
-    energies are taken against neutral free atoms."""
+    """The cautions of the report: CAUTIONS (the one on the experimental values only where the
+    structures have them), and one for charged structures, whose atomization energies are taken
+    against neutral free atoms."""
+    out = CAUTIONS if any(b.experiment_kcal_mol is not None for b in plan.structures) else CAUTIONS[:2]
     charged = [b.name for b in plan.structures if b.structure.charge != 0]
     if not charged:
-        return CAUTIONS
+        return out
     shown = ", ".join(one_line(n) for n in charged[:10]) + (f" and {len(charged) - 10} more" if len(charged) > 10 else "")
-    return CAUTIONS + (
+    return out + (
         f"Charged structures ({shown}): their atomization energies are taken against neutral free atoms, so they "
         "include an ionization energy or an electron affinity and are not the energy to break the ion into "
         "its fragments.",)
 
 
-def render_html(plan, rows, summary, atoms, images: Mapping[str, tuple[bytes, str]], notes: Sequence[str] = ()) -> str:
+def render_html(plan, rows, summary, atoms, images: Mapping[str, tuple[bytes, str]], notes: Sequence[str] = (),
+                hartree_kcal_mol: float | None = None) -> str:
     """The report page: cautions, summary per variant, the plots (``images``: caption → (PNG
     bytes, text under it), embedded), ``notes`` on plots left out, the free atoms, the
-    failures, and every row. Byte-identical for the same input."""
-    from .bench import hartree_to_kcal_mol
-
+    failures, and every row; ``hartree_kcal_mol`` the factor used (stated when given).
+    Byte-identical for the same input."""
     e = html.escape
     ref = plan.reference
     out = ["<!DOCTYPE html>", '<html lang="en"><head><meta charset="utf-8">', "<title>stobuilder bench</title>",
@@ -286,8 +295,8 @@ def render_html(plan, rows, summary, atoms, images: Mapping[str, tuple[bytes, st
                + (f"; reference basis {_text(ref)}" if ref else "") + ". SCF: RHF for closed shells, ROHF for open "
                "shells (the method <code>build --check</code> picks); free atoms in their ground-state multiplicity, "
                "occupations fixed by atomic symmetry, computed once per element and variant. Energies in hartree, "
-               "atomization energies D<sub>e</sub> = ΣE(free atoms) − E(molecule) in kcal/mol "
-               f"(1 hartree = {hartree_to_kcal_mol():.6f} kcal/mol).</p>")
+               "atomization energies D<sub>e</sub> = ΣE(free atoms) − E(molecule) in kcal/mol"
+               + (f" (1 hartree = {hartree_kcal_mol:.6f} kcal/mol)" if hartree_kcal_mol else "") + ".</p>")
     out.append('<div class="caution"><h2>Cautions</h2><ul>' + "".join(f"<li>{e(c)}</li>" for c in cautions(plan))
                + "</ul></div>")
     out.append("<h2>Summary per variant</h2><table><tr><th class='t'>variant</th><th>structures</th><th>failed</th>"
@@ -370,8 +379,9 @@ def render_outputs(plan, rows, summary, atoms, files: Mapping[str, str], documen
     written = {k: p for k, p in files.items() if k not in ("energy_plot", "atomization_plot") or p in contents}
     contents[files["tsv"]] = render_tsv(rows)
     contents[files["atoms_tsv"]] = render_atoms_tsv(atoms)
-    contents[files["json"]] = render_json(document(written))
-    contents[files["report"]] = render_html(plan, rows, summary, atoms, images, notes)
+    doc = document(written)
+    contents[files["json"]] = render_json(doc)
+    contents[files["report"]] = render_html(plan, rows, summary, atoms, images, notes, doc.get("hartree_to_kcal_mol"))
     return contents
 
 

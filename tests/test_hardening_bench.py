@@ -378,7 +378,7 @@ def test_outlying_points_are_labelled_with_their_molecule():
 def test_wording_singular_and_cautions(tmp_path):
     from stobuilder.structures import Structure
 
-    one = bench.BenchStructure("LiH", bench.set_structures("g2-1", ["LiH"])[0].structure)
+    (one,) = bench.set_structures("g2-1", ["LiH"])
     ion = bench.BenchStructure("oh-.xyz", Structure("oh-.xyz", 0, ("O", "H"), ((0, 0, 0), (0, 0, 0.97)), -1, 0, False))
     variants = bench.make_variants(["slater"], [3], ["l2"])
     page = bench_report.render_html(bench.BenchPlan((one,), variants, None, ()), (), (), (), {})
@@ -390,3 +390,16 @@ def test_wording_singular_and_cautions(tmp_path):
     page = bench_report.render_html(bench.BenchPlan((one, ion), variants, None, ()), (), (), (), {})
     assert "2 structures × 1 variant" in page
     assert "Charged structures (oh-.xyz)" in page and "neutral free atoms" in page
+    # structure files only: no experiment, so no caution about the experimental values
+    page = bench_report.render_html(bench.BenchPlan((ion,), variants, None, ()), (), (), (), {})
+    assert "Experiment contains" not in page and "Charged structures (oh-.xyz)" in page
+
+
+def test_long_names_are_shortened_in_plots_only():
+    # a path longer than the label room is shown by its end in the plot; the tables keep it whole
+    name = "/a/very/long/folder/of/structures/methane.xyz"
+    rows = [bench.BenchRow(name, "CH4", v, "slater", 3, "l2", None, 0, "RHF", e, True, 3, 0.1, None, None, None, None)
+            for v, e in (("v1", -40.0), ("v2", -40.1))]
+    fig = bench_report.energy_figure([name], ["v1", "v2"], rows, None)
+    (label,) = [t.get_text() for t in fig.axes[-1].get_xticklabels()]
+    assert label.startswith("…") and name.endswith(label[1:]) and len(label) == bench_report.PLOT_LABEL_CHARACTERS
