@@ -287,8 +287,9 @@ class Calculation:
 
     @classmethod
     def from_json(cls, key: str, doc: Mapping) -> "Calculation":
-        return cls(key, doc["method"], doc["energy_hartree"], doc["converged"], doc["iterations"],
-                   doc["wall_seconds"], doc.get("error"), doc.get("worker", ""))
+        energy = doc["energy_hartree"]
+        return cls(key, doc["method"], None if energy is None else float(energy), doc["converged"], doc["iterations"],
+                   float(doc["wall_seconds"]), doc.get("error"), doc.get("worker", ""))
 
 
 def free_atom(symbol: str) -> Structure:
