@@ -173,6 +173,21 @@ def test_a_bench_manifest_that_is_a_symbolic_link_is_refused(tmp_path, capsys, t
     assert sorted(os.listdir(out)) == [bench.MANIFEST_NAME]  # nothing computed, nothing written
 
 
+def test_an_output_that_is_a_symbolic_link_is_replaced_not_written_through(tmp_path, capsys, threads):
+    outside = tmp_path / "precious.txt"
+    outside.write_text("not yours\n")
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    tsv = tmp_path / "out" / "bench.tsv"
+    text = tsv.read_text()
+    tsv.unlink()
+    tsv.symlink_to(outside)
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    assert outside.read_text() == "not yours\n"
+    assert not tsv.is_symlink() and tsv.read_text() == text
+
+
 def test_a_batch_manifest_that_is_a_symbolic_link_is_refused(tmp_path, capsys):
     src = tmp_path / "h2o.xyz"
     write(src, molecule("H2O"))
