@@ -263,6 +263,23 @@ def data_uri(png: bytes) -> str:
     return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
 
 
+def _data_table(first, numbers, items, last=()) -> str:
+    """An HTML table: the ``first`` columns (header, cell function, "t" for text), the number
+    columns (header, attribute, digits) that hold a value in some item (a column empty in
+    every row is left out), then the ``last`` columns."""
+    numbers = [c for c in numbers if any(getattr(i, c[1]) is not None for i in items)]
+    head = "".join(f"<th class='{k}'>{h}</th>" if k else f"<th>{h}</th>" for h, _, k in first)
+    head += "".join(f"<th>{h}</th>" for h, _, _ in numbers)
+    head += "".join(f"<th class='{k}'>{h}</th>" if k else f"<th>{h}</th>" for h, _, k in last)
+    lines = [f"<table><tr>{head}</tr>"]
+    for i in items:
+        cells = "".join(f"<td class='{k}'>{f(i)}</td>" if k else f"<td>{f(i)}</td>" for _, f, k in first)
+        cells += "".join(f"<td>{_num(getattr(i, name), digits)}</td>" for _, name, digits in numbers)
+        cells += "".join(f"<td class='{k}'>{f(i)}</td>" if k else f"<td>{f(i)}</td>" for _, f, k in last)
+        lines.append(f"<tr>{cells}</tr>")
+    return "\n".join(lines) + "</table>"
+
+
 def cautions(plan) -> tuple[str, ...]:
     """The cautions of the report: CAUTIONS (the one on the experimental values only where the
     structures have them), and one for charged structures, whose atomization energies are taken
@@ -299,30 +316,29 @@ def render_html(plan, rows, summary, atoms, images: Mapping[str, tuple[bytes, st
                + (f" (1 hartree = {hartree_kcal_mol:.6f} kcal/mol)" if hartree_kcal_mol else "") + ".</p>")
     out.append('<div class="caution"><h2>Cautions</h2><ul>' + "".join(f"<li>{e(c)}</li>" for c in cautions(plan))
                + "</ul></div>")
-    out.append("<h2>Summary per variant</h2><table><tr><th class='t'>variant</th><th>structures</th><th>failed</th>"
-               "<th>mean |ΔD<sub>e</sub>| vs experiment</th><th>max |ΔD<sub>e</sub>| vs experiment</th>"
-               "<th>mean E − E(reference)</th><th>mean |D<sub>e</sub> − D<sub>e</sub>(reference)|</th></tr>")
-    for s in summary:
-        out.append(f"<tr><td class='t'>{_text(s.variant)}</td><td>{s.structures}</td><td>{s.failed}</td>"
-                   f"<td>{_num(s.mean_abs_atomization_error_kcal_mol, 2)}</td>"
-                   f"<td>{_num(s.max_abs_atomization_error_kcal_mol, 2)}</td>"
-                   f"<td>{_num(s.mean_energy_above_reference_hartree, 6)}</td>"
-                   f"<td>{_num(s.mean_abs_atomization_vs_reference_kcal_mol, 2)}</td></tr>")
-    out.append("</table>")
+    summary_columns = [
+        ("mean |ΔD<sub>e</sub>| vs experiment / kcal mol⁻¹", "mean_abs_atomization_error_kcal_mol", 2),
+        ("max |ΔD<sub>e</sub>| vs experiment / kcal mol⁻¹", "max_abs_atomization_error_kcal_mol", 2),
+        ("mean E − E(reference) / hartree", "mean_energy_above_reference_hartree", 6),
+        ("mean |D<sub>e</sub> − D<sub>e</sub>(reference)| / kcal mol⁻¹", "mean_abs_atomization_vs_reference_kcal_mol", 2),
+    ]
+    out.append("<h2>Summary per variant</h2>" + _data_table(
+        [("variant", lambda s: _text(s.variant), "t"), ("structures", lambda s: str(s.structures), ""),
+         ("failed", lambda s: str(s.failed), "")],
+        [(head, name, digits) for head, name, digits in summary_columns], summary))
     for caption, (png, under) in images.items():
         out.append(f"<h2>{e(caption)}</h2><p><img src=\"{data_uri(png)}\" alt=\"{e(caption)}\"></p>"
                    + (f"<p class='note'>{e(under)}</p>" if under else ""))
     for note in notes:
         out.append(f"<p class='note'>{e(note)}</p>")
     out.append("<h2>Free atoms</h2><p>The energies every atomization energy is made of (also in "
-               "<code>free_atoms.tsv</code> and <code>bench.json</code>).</p><table><tr><th class='t'>variant</th>"
-               "<th class='t'>element</th><th>2S</th><th class='t'>method</th><th>E</th><th class='t'>state</th></tr>")
-    for a in atoms:
-        state = "converged" if a.converged else "failed: " + (a.error or "SCF failed")
-        out.append(f"<tr><td class='t'>{_text(a.variant)}</td><td class='t'>{e(a.element)}</td><td>{a.spin}</td>"
-                   f"<td class='t'>{e(a.method)}</td><td>{_num(a.energy_hartree, 8)}</td>"
-                   f"<td class='t'>{_text(state)}</td></tr>")
-    out.append("</table>")
+               "<code>free_atoms.tsv</code> and <code>bench.json</code>): D<sub>e</sub> = ΣE(free atoms) − "
+               "E(molecule).</p>" + _data_table(
+                   [("variant", lambda a: _text(a.variant), "t"), ("element", lambda a: e(a.element), "t"),
+                    ("2S", lambda a: str(a.spin), ""), ("method", lambda a: e(a.method), "t"),
+                    ("E / hartree", lambda a: _num(a.energy_hartree, 8), ""),
+                    ("state", lambda a: "converged" if a.converged else _text("failed: " + (a.error or "SCF failed")),
+                     "t")], [], atoms))
     failed = [r for r in rows if r.failed]
     out.append("<h2>Failures</h2>")
     if failed:
@@ -330,19 +346,18 @@ def render_html(plan, rows, summary, atoms, images: Mapping[str, tuple[bytes, st
                                     for r in failed) + "</ul>")
     else:
         out.append("<p>None: every SCF converged.</p>")
-    out.append("<h2>Every row</h2><table><tr><th class='t'>structure</th><th class='t'>variant</th><th>2S</th>"
-               "<th class='t'>method</th><th>E</th><th>E(reference)</th><th>D<sub>e</sub></th>"
-               "<th>D<sub>e</sub>(reference)</th><th>D<sub>e</sub>(experiment)</th><th>iterations</th>"
-               "<th>seconds</th><th class='t'>state</th></tr>")
-    for r in rows:
-        state = "failed: " + r.error if r.failed else "converged"
-        out.append(f"<tr><td class='t'>{_text(r.structure)}</td><td class='t'>{_text(r.variant)}</td><td>{r.spin}</td>"
-                   f"<td class='t'>{e(r.method)}</td><td>{_num(r.energy_hartree, 8)}</td>"
-                   f"<td>{_num(r.reference_energy_hartree, 8)}</td><td>{_num(r.atomization_kcal_mol, 2)}</td>"
-                   f"<td>{_num(r.reference_atomization_kcal_mol, 2)}</td>"
-                   f"<td>{_num(r.experiment_atomization_kcal_mol, 2)}</td><td>{r.iterations}</td>"
-                   f"<td>{r.wall_seconds:.3f}</td><td class='t'>{_text(state)}</td></tr>")
-    out.append("</table></body></html>")
+    out.append("<h2>Every row</h2>" + _data_table(
+        [("structure", lambda r: _text(r.structure), "t"), ("variant", lambda r: _text(r.variant), "t"),
+         ("2S", lambda r: str(r.spin), ""), ("method", lambda r: e(r.method), "t"),
+         ("E / hartree", lambda r: _num(r.energy_hartree, 8), ""),
+         ("D<sub>e</sub> / kcal mol⁻¹", lambda r: _num(r.atomization_kcal_mol, 2), "")],
+        [("E(reference) / hartree", "reference_energy_hartree", 8),
+         ("D<sub>e</sub>(reference) / kcal mol⁻¹", "reference_atomization_kcal_mol", 2),
+         ("D<sub>e</sub>(experiment) / kcal mol⁻¹", "experiment_atomization_kcal_mol", 2)],
+        rows,
+        [("iterations", lambda r: str(r.iterations), ""), ("seconds", lambda r: f"{r.wall_seconds:.3f}", ""),
+         ("state", lambda r: _text("failed: " + r.error if r.failed else "converged"), "t")]))
+    out.append("</body></html>")
     return "\n".join(out) + "\n"
 
 

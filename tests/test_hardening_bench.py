@@ -418,3 +418,11 @@ def test_long_names_are_shortened_in_plots_only():
     fig = bench_report.energy_figure([name], ["v1", "v2"], rows, None)
     (label,) = [t.get_text() for t in fig.axes[-1].get_xticklabels()]
     assert label.startswith("…") and name.endswith(label[1:]) and len(label) == bench_report.PLOT_LABEL_CHARACTERS
+
+
+def test_page_columns_carry_units_and_empty_ones_are_left_out(two_variants):
+    # no reference basis was asked for: no reference column says "–" in every row
+    out, _ = two_variants
+    page = (out / "report.html").read_text()
+    assert "E(reference)" not in page and "D<sub>e</sub>(reference)" not in page
+    assert "<th>D<sub>e</sub>(experiment) / kcal mol⁻¹</th>" in page and "<th>E / hartree</th>" in page
