@@ -426,3 +426,16 @@ def test_page_columns_carry_units_and_empty_ones_are_left_out(two_variants):
     page = (out / "report.html").read_text()
     assert "E(reference)" not in page and "D<sub>e</sub>(reference)" not in page
     assert "<th>D<sub>e</sub>(experiment) / kcal mol⁻¹</th>" in page and "<th>E / hartree</th>" in page
+
+
+def test_batch_prints_a_failure_from_a_hostile_file_name_on_one_line(tmp_path, capsys, threads):
+    src = tmp_path / "src"
+    src.mkdir()
+    bad = src / "bad\nname.xyz"
+    bad.write_text("")  # an empty structure file: the item fails
+    write(src / "h2o.xyz", molecule("H2O"))
+    code, stdout, err = run_cli(["batch", str(src), "--out", str(tmp_path / "out"), "--progress", "off"], capsys)
+    assert code == 1, err
+    failed = [x for x in stdout.splitlines() if x.startswith("failed: ")]
+    assert len(failed) == 1 and one_line(str(bad)) in failed[0]
+    assert "name.xyz" not in stdout.replace(failed[0], "")  # no stray line holding the rest of the name
