@@ -27,6 +27,7 @@ import concurrent.futures as cf
 import fnmatch
 import hashlib
 import json
+import math
 import os
 import socket
 import stat
@@ -401,24 +402,109 @@ def manifest_path(out_dir: str) -> str:
     return os.path.join(out_dir, MANIFEST_NAME)
 
 
+# Record layouts: key → (test, what the value must be, required). A record is usable when it is a
+# JSON object with every required key, no unknown key, and every value passing its test; a nested
+# layout (a dict in place of the test) is checked the same way. One layout per record kind: the
+# batch's here (BATCH_RECORD), the bench's in bench.py; ``layout_problem`` checks either.
+
+
+def is_text(v) -> bool:
+    return isinstance(v, str)
+
+
+def is_whole(v) -> bool:
+    return isinstance(v, int) and not isinstance(v, bool)
+
+
+def is_count(v) -> bool:
+    return is_whole(v) and v >= 0
+
+
+def is_finite(v) -> bool:
+    """A JSON number (not a bool) that is finite."""
+    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
+
+
+def is_seconds(v) -> bool:
+    return is_finite(v) and v >= 0
+
+
+def is_sha256(v) -> bool:
+    return isinstance(v, str) and len(v) == 64 and all(c in "0123456789abcdef" for c in v)
+
+
+def optional(test: Callable[[object], bool]) -> Callable[[object], bool]:
+    return lambda v: v is None or test(v)
+
+
+def list_of(test: Callable[[object], bool]) -> Callable[[object], bool]:
+    return lambda v: isinstance(v, list) and all(test(x) for x in v)
+
+
+def one_of(*values) -> Callable[[object], bool]:
+    return lambda v: isinstance(v, str) and v in values
+
+
+def layout_problem(doc, layout: Mapping, where: str = "") -> str | None:
+    """Why ``doc`` (decoded JSON) does not follow ``layout`` (key → (test or nested layout,
+    what, required)), or None. The reason names the key, never the value (it goes on stderr)."""
+    if not isinstance(doc, dict):
+        return f"{where.rstrip('.') or 'the line'} is not a JSON object"
+    for key in doc:
+        if key not in layout:
+            return f"unknown key {where}{str(key)[:40]!r}"
+    for key, (test, what, required) in layout.items():
+        if key not in doc:
+            if required:
+                return f"no {where}{key}"
+            continue
+        if isinstance(test, Mapping):
+            problem = layout_problem(doc[key], test, f"{where}{key}.")
+            if problem:
+                return problem
+        elif not test(doc[key]):
+            return f"{where}{key} is not {what}"
+    return None
+
+
+def _is_files(v) -> bool:
+    return isinstance(v, dict) and all(
+        isinstance(code, str) and isinstance(e, dict) and set(e) == {"path", "sha256"}
+        and isinstance(e["path"], str) and is_sha256(e["sha256"]) for code, e in v.items())
+
+
+def _is_timings(v) -> bool:
+    return isinstance(v, dict) and all(
+        (is_text(x) if k == "finished_utc" else is_seconds(x)) for k, x in v.items())
+
+
+BATCH_RECORD = {
+    "input": (is_text, "a path", True),
+    "name": (is_text, "a text", True),
+    "input_sha256": (optional(is_sha256), "a SHA-256 (64 hex digits) or null", True),
+    "options": (lambda v: isinstance(v, dict), "an object", True),
+    "status": (one_of(*STATUSES), "one of " + ", ".join(STATUSES), True),
+    "files": (_is_files, "a table of {path, sha256}", True),
+    "elements": (list_of(is_text), "a list of element symbols", True),
+    "formula": (optional(is_text), "a text or null", True),
+    "frames": (is_count, "a whole number >= 0", True),
+    "charge": (optional(is_whole), "a whole number or null", True),
+    "spin": (optional(is_count), "a whole number >= 0 or null", True),
+    "checks": (list_of(lambda c: isinstance(c, dict)), "a list of objects", True),
+    "notes": (list_of(is_text), "a list of texts", True),
+    "error": (optional(is_text), "a text or null", True),
+    "timings": (_is_timings, "a table of seconds (finite, >= 0)", True),
+    "worker": (is_text, "a text", True),
+}
+
+
 def _record_problem(record) -> str | None:
     """Why a decoded manifest line is not a batch record this version can use, or None."""
-    if not isinstance(record, dict):
-        return "not a JSON object"
-    if not isinstance(record.get("input"), str):
-        return "no input path"
-    if record.get("status") not in STATUSES:
-        return f"status {record.get('status')!r} is none of {', '.join(STATUSES)}"
-    if not isinstance(record.get("options", {}), dict):
-        return "options is not an object"
-    files = record.get("files") or {}
-    if not isinstance(files, dict) or not all(
-        isinstance(e, dict) and isinstance(e.get("path"), str) and isinstance(e.get("sha256"), (str, type(None)))
-        for e in files.values()
-    ):
-        return "files is not a table of {path, sha256}"
-    if not isinstance(record.get("input_sha256"), (str, type(None))):
-        return "input_sha256 is not a text"
+    problem = layout_problem(record, BATCH_RECORD)
+    if problem:
+        return problem
+    if (record["status"] == "failed") != bool(record["error"]):
+        return f"status {record['status']} does not match its error"
     return None
 
 
@@ -532,13 +618,20 @@ class Manifest:
         """Open (creating) and lock the manifest ``path``. With ``fresh`` (``--force``) an existing
         manifest is first copied byte for byte to a new backup (``MANIFEST.bak``, ``.bak2``, …;
         named in ``notes``) and emptied, under the lock. InputError when another batch holds
-        the lock or ``path`` is not a regular file (a FIFO would block the open)."""
+        the lock or ``path`` is not a regular file (a FIFO would block the open) or is a
+        symbolic link (our records would be appended to whatever file it names, outside the
+        output folder: never written through, the link is refused)."""
         self.path = path
         self.notes: list[str] = []
+        if os.path.islink(path):
+            raise InputError(f"{path}: the {what} manifest is a symbolic link; it must be a regular file of the "
+                             "output folder (remove the link)")
         if os.path.lexists(path) and not os.path.isfile(path):
             raise InputError(f"{path}: the {what} manifest is not a regular file")
         try:
-            self.handle = open(path, "a", encoding="utf-8", newline="\n")
+            # O_NOFOLLOW: a link made after the check above is refused too (ELOOP), never followed
+            fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o666)
+            self.handle = open(fd, "a", encoding="utf-8", newline="\n")
         except OSError as exc:
             raise InputError(f"{path}: cannot open the {what} manifest ({exc.strerror})") from None
         try:

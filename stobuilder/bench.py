@@ -34,14 +34,16 @@ import time
 import warnings
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
+from functools import lru_cache
 from itertools import product
 
 from .errors import InputError
+from .limits import one_line
 from .options import BuildOptions
 from .structures import Structure
 
 MANIFEST_NAME = "stobuilder-bench.jsonl"
-OUTPUT_NAMES = {"tsv": "bench.tsv", "json": "bench.json", "report": "report.html",
+OUTPUT_NAMES = {"tsv": "bench.tsv", "atoms_tsv": "free_atoms.tsv", "json": "bench.json", "report": "report.html",
                 "energy_plot": "energy_error.png", "atomization_plot": "atomization.png"}
 TASK_LAYOUT = 1  # bump when a change can move a calculation's result: finished records are then recomputed
 
@@ -109,7 +111,8 @@ def _spin_from_moments(moments, where: str) -> int:
 
 def set_structures(name: str, select: Sequence[str] = ()) -> tuple[BenchStructure, ...]:
     """The structures of set ``name`` (``list_sets``), or only those named in ``select`` (in the
-    order given). InputError for an unknown set or a name the set does not hold."""
+    order given). InputError for an unknown set, a name the set does not hold, or a name given
+    twice (as for structure files: a structure is computed once, and a repeat is refused)."""
     if name not in SETS:
         raise InputError(f"--set {name!r}: unknown set; choose one of {', '.join(SETS)} (stobuilder bench --list-sets)")
     from ase.data import g2_1
@@ -117,10 +120,12 @@ def set_structures(name: str, select: Sequence[str] = ()) -> tuple[BenchStructur
     from .structures import validate_charge_spin
 
     names = _g2_1_names()
-    chosen = list(dict.fromkeys(select)) if select else list(names)
+    chosen = list(select) if select else list(names)
     for n in chosen:
         if n not in names:
             raise InputError(f"{n!r}: not a molecule of set {name} (its names: {', '.join(names)})")
+        if chosen.count(n) > 1:
+            raise InputError(f"{n!r}: molecule of set {name} given twice; give each once")
     out = []
     for n in chosen:
         entry = g2_1.data[n]  # the same geometries as ase.collections.g2 (tests/test_bench.py), read 5× faster
@@ -138,11 +143,19 @@ def set_structures(name: str, select: Sequence[str] = ()) -> tuple[BenchStructur
 def file_structures(paths: Sequence[str]) -> tuple[BenchStructure, ...]:
     """Structures from files (``structures.read_structures``; every frame, named "PATH" or
     "PATH@FRAME"). No experimental value. A periodic structure is an InputError: the bench
-    computes molecules."""
+    computes molecules. A file given twice (under any spelling of its path) is an InputError:
+    each structure is computed once, and a repeat would count it twice in every mean."""
     from .structures import check_geometry, read_structures
 
+    seen: dict[str, str] = {}
+    for path in paths:
+        real = os.path.realpath(path)
+        if real in seen:
+            same = "" if seen[real] == path else f" (as {one_line(seen[real])})"
+            raise InputError(f"{one_line(path)}: structure file given twice{same}; give each once")
+        seen[real] = path
     out = []
-    for path in dict.fromkeys(paths):
+    for path in paths:
         frames = read_structures(path)
         for frame in frames:
             label = path if len(frames) == 1 else f"{path}@{frame.frame}"
@@ -239,10 +252,13 @@ class BenchTask:
         """SHA-256 of everything the result depends on (a resumed record must match it)."""
         from .version import __version__
 
+        options = None
+        if self.options is not None:  # a zeta file's ζ of elements not in this structure do not count
+            options = self.options.to_json() | {"zeta": self.options.zeta_for(self.structure.symbols) or {}}
         doc = {"layout": TASK_LAYOUT, "stobuilder": __version__, "kind": self.kind,
                "symbols": list(self.structure.symbols), "positions": [list(p) for p in self.structure.positions],
                "charge": self.structure.charge, "spin": self.structure.spin,
-               "options": None if self.options is None else self.options.to_json(), "reference": self.reference}
+               "options": options, "reference": self.reference}
         return hashlib.sha256(json.dumps(doc, sort_keys=True).encode()).hexdigest()
 
 
@@ -271,8 +287,9 @@ class Calculation:
 
     @classmethod
     def from_json(cls, key: str, doc: Mapping) -> "Calculation":
-        return cls(key, doc["method"], doc["energy_hartree"], doc["converged"], doc["iterations"],
-                   doc["wall_seconds"], doc.get("error"), doc.get("worker", ""))
+        energy = doc["energy_hartree"]
+        return cls(key, doc["method"], None if energy is None else float(energy), doc["converged"], doc["iterations"],
+                   float(doc["wall_seconds"]), doc.get("error"), doc.get("worker", ""))
 
 
 def free_atom(symbol: str) -> Structure:
@@ -399,7 +416,10 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
          threads: int = 1) -> BenchPlan:
     """The calculations of a bench, every input checked first (InputError, before any SCF): two
     structures with one name, a reference basis PySCF lacks for an element, a variant whose basis
-    cannot be built for an element (every basis is built here, which is cheap)."""
+    cannot be built for an element (every basis is built here, which is cheap), a zeta file that
+    names none of the structures' elements (its variant would repeat its rule's numbers). A zeta
+    file is a library: its ζ apply to the elements it names wherever they occur, the rest of it
+    is unused."""
     from .elements import atomic_number
     from .pipeline import basis_for
 
@@ -414,6 +434,12 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     elements = tuple(sorted({s for b in structures for s in b.structure.symbols}, key=atomic_number))
     if reference is not None:
         reference = check_reference(reference, elements)
+    for v in variants:
+        named = {symbol for symbol, _ in v.options.zeta}
+        if v.zeta_file is not None and not named & set(elements):
+            raise InputError(f"{one_line(v.zeta_file)}: the zeta file names none of the structures' elements (it names "
+                             f"{', '.join(sorted(named, key=atomic_number)) or 'no element'}; the structures have "
+                             f"{', '.join(elements)}): its variant would repeat its rule's numbers")
     tasks: list[BenchTask] = []
     for v in variants:
         for b in structures:
@@ -499,6 +525,42 @@ class VariantSummary:
         return dict(self.__dict__)
 
 
+ATOM_FIELDS = ("variant", "element", "spin", "method", "energy_hartree", "converged", "iterations", "error")
+
+
+@dataclass(frozen=True)
+class FreeAtomRow:
+    """One free atom in one variant (or in the reference basis: variant "reference:BASIS"): the
+    neutral ground-state atom whose energy (hartree) enters every atomization energy with that
+    element, Σ E(atoms) − E(molecule). ``spin`` is 2S (Hund's rule)."""
+
+    variant: str
+    element: str
+    spin: int
+    method: str
+    energy_hartree: float | None
+    converged: bool
+    iterations: int
+    error: str | None = None
+
+    def to_json(self) -> dict:
+        return {name: getattr(self, name) for name in ATOM_FIELDS}
+
+
+def assemble_atoms(plan: "BenchPlan", results: Mapping[str, Calculation]) -> tuple[FreeAtomRow, ...]:
+    """The free atoms behind the atomization energies: per variant (then the reference basis)
+    per element by atomic number (a pure function of the results)."""
+    out = []
+    for v in [*plan.variants, *([None] if plan.reference is not None else [])]:
+        name = _variant_name(v, plan.reference)
+        for symbol in plan_elements(plan):
+            c = results.get(atom_key(v, symbol, plan.reference))
+            out.append(FreeAtomRow(name, symbol, free_atom(symbol).spin, c.method if c else "",
+                                   c.energy_hartree if c and c.ok else None, bool(c and c.ok),
+                                   c.iterations if c else 0, None if c and c.ok else (c.error if c else "not computed")))
+    return tuple(out)
+
+
 def _mean(values) -> float | None:
     values = [v for v in values if v is not None]
     return sum(values) / len(values) if values else None
@@ -527,15 +589,28 @@ def _failure_text(molecule: Calculation | None, atoms: Mapping[str, Calculation]
     return None
 
 
+def plan_elements(plan: BenchPlan) -> tuple[str, ...]:
+    """The elements of the plan's structures, by atomic number."""
+    from .elements import atomic_number
+
+    return tuple(sorted({s for b in plan.structures for s in b.structure.symbols}, key=atomic_number))
+
+
+def _atoms_of(variant: Variant | None, plan: BenchPlan, results: Mapping[str, Calculation]) -> dict[str, Calculation]:
+    """{symbol: the free atom's Calculation} of a variant (None: the reference basis), by key."""
+    keys = {symbol: atom_key(variant, symbol, plan.reference) for symbol in plan_elements(plan)}
+    return {symbol: results[k] for symbol, k in keys.items() if k in results}
+
+
 def assemble(plan: BenchPlan, results: Mapping[str, Calculation]) -> tuple[BenchRow, ...]:
     """The rows, structures within variants in the order given (a pure function of the results)."""
     ref = plan.reference
     ref_atoms = {}
     if ref is not None:
-        ref_atoms = {k.split("|")[2]: c for k, c in results.items() if k.startswith(f"atom|reference:{ref}|")}
+        ref_atoms = _atoms_of(None, plan, results)
     rows = []
     for v in plan.variants:
-        atoms = {k.split("|")[2]: c for k, c in results.items() if k.startswith(f"atom|{v.label}|")}
+        atoms = _atoms_of(v, plan, results)
         for b in plan.structures:
             s = b.structure
             mol = results.get(molecule_key(v, b.name))
@@ -575,12 +650,14 @@ def summarize(variants: Sequence[Variant], rows: Sequence[BenchRow]) -> tuple[Va
 
 @dataclass(frozen=True)
 class BenchResult:
-    """A finished bench: its plan, rows, summary, files written (name → path), the calculations
-    computed in this run and those taken from the manifest, the failed calculations, notes."""
+    """A finished bench: its plan, rows, summary, free atoms, files written (name → path), the
+    calculations computed in this run and those taken from the manifest, the failed
+    calculations, notes."""
 
     plan: BenchPlan
     rows: tuple[BenchRow, ...]
     summary: tuple[VariantSummary, ...]
+    atoms: tuple[FreeAtomRow, ...]
     files: Mapping[str, str]
     computed: int
     resumed: int
@@ -594,29 +671,54 @@ class BenchResult:
         return 1 if self.failed or any(r.failed for r in self.rows) else 0
 
     def to_json(self) -> dict:
-        return bench_document(self.plan, self.rows, self.summary, self.files)
+        return bench_document(self.plan, self.rows, self.summary, self.atoms, self.files)
 
 
-def bench_document(plan: BenchPlan, rows, summary, files: Mapping[str, str]) -> dict:
-    """The JSON of ``--json`` and bench.json: {"variants", "rows", "summary", "files"}."""
+def bench_document(plan: BenchPlan, rows, summary, atoms, files: Mapping[str, str]) -> dict:
+    """The JSON of ``--json`` and bench.json: {"variants", "rows", "summary", "free_atoms",
+    "hartree_to_kcal_mol", "files"}. With the free atoms' energies and the factor, every
+    atomization energy of the rows can be recomputed: (Σ E(atoms) − E(molecule)) × factor."""
     return {"variants": [v.to_json() for v in plan.variants], "rows": [r.to_json() for r in rows],
-            "summary": [s.to_json() for s in summary], "files": dict(files)}
+            "summary": [s.to_json() for s in summary], "free_atoms": [a.to_json() for a in atoms],
+            "hartree_to_kcal_mol": hartree_to_kcal_mol(), "files": dict(files)}
+
+
+@lru_cache(maxsize=1)
+def _layouts():
+    """The bench manifest record (batch.layout_problem's form): task, fingerprint, status, the
+    Calculation's fields with their types and ranges, the time it finished."""
+    from .batch import is_count, is_finite, is_seconds, is_sha256, is_text, layout_problem, one_of, optional
+
+    result = {
+        "method": (is_text, "a text", True),
+        "energy_hartree": (optional(is_finite), "a finite number or null", True),
+        "converged": (lambda v: isinstance(v, bool), "true or false", True),
+        "iterations": (is_count, "a whole number >= 0", True),
+        "wall_seconds": (is_seconds, "a finite number >= 0", True),
+        "error": (optional(is_text), "a text or null", True),
+        "worker": (is_text, "a text", True),
+    }
+    record = {
+        "task": (is_text, "a text", True),
+        "fingerprint": (is_sha256, "a SHA-256 (64 hex digits)", True),
+        "status": (one_of("done", "failed"), "done or failed", True),
+        "result": (result, "", True),
+        "finished_utc": (is_text, "a text", True),
+    }
+    return record, layout_problem
 
 
 def _record_problem(record) -> str | None:
-    if not isinstance(record, dict):
-        return "not a JSON object"
-    if not isinstance(record.get("task"), str) or not isinstance(record.get("fingerprint"), str):
-        return "no task or fingerprint"
-    if record.get("status") not in ("done", "failed"):
-        return f"status {record.get('status')!r} is neither done nor failed"
-    result = record.get("result")
-    try:
-        Calculation.from_json(record["task"], result)
-    except (KeyError, TypeError, AttributeError):
-        return "no usable result"
-    if not (result["energy_hartree"] is None or isinstance(result["energy_hartree"], (int, float))):
-        return "energy is not a number"
+    """Why a decoded bench manifest line is not a record this version can use, or None: every
+    field of its layout (``_layouts``) checked, and the status must match the result (done
+    exactly when the calculation converged with a finite energy and no error)."""
+    layout, layout_problem = _layouts()
+    problem = layout_problem(record, layout)
+    if problem:
+        return problem
+    calc = Calculation.from_json(record["task"], record["result"])
+    if (record["status"] == "done") != calc.ok:
+        return f"status {record['status']} does not match its result"
     return None
 
 
@@ -679,12 +781,14 @@ def run_bench(
         progress.close()
     rows = assemble(plan, results)
     summary = summarize(plan.variants, rows)
+    atoms = assemble_atoms(plan, results)
     files = {name: os.path.join(out_dir, base) for name, base in OUTPUT_NAMES.items()}
-    contents = render_outputs(plan, rows, summary, files, lambda written: bench_document(plan, rows, summary, written))
+    contents = render_outputs(plan, rows, summary, atoms, files,
+                              lambda written: bench_document(plan, rows, summary, atoms, written))
     write_all(contents)
     files = {name: p for name, p in files.items() if p in contents}
     failed = tuple(sorted(k for k, c in results.items() if not c.ok))
-    return BenchResult(plan, rows, summary, files, computed, resumed, failed, time.perf_counter() - start,
+    return BenchResult(plan, rows, summary, atoms, files, computed, resumed, failed, time.perf_counter() - start,
                        tuple(notes))
 
 
@@ -694,27 +798,27 @@ def summary_table(result: BenchResult) -> str:
     def num(value, digits):
         return "-" if value is None else f"{value:.{digits}f}"
 
-    width = max([len("variant")] + [len(s.variant) for s in result.summary]) + 2
+    width = max([len("variant")] + [len(one_line(s.variant)) for s in result.summary]) + 2
     lines = [f"{'variant':<{width}}{'structures':>11}{'failed':>8}{'MAE vs exp':>12}{'max |err|':>11}"
              f"{'E-E(ref)':>12}{'MAE vs ref':>12}", f"{'':<{width}}{'':>11}{'':>8}{'kcal/mol':>12}{'kcal/mol':>11}"
              f"{'hartree':>12}{'kcal/mol':>12}"]
     for s in result.summary:
-        lines.append(f"{s.variant:<{width}}{s.structures:>11}{s.failed:>8}"
+        lines.append(f"{one_line(s.variant):<{width}}{s.structures:>11}{s.failed:>8}"
                      f"{num(s.mean_abs_atomization_error_kcal_mol, 2):>12}{num(s.max_abs_atomization_error_kcal_mol, 2):>11}"
                      f"{num(s.mean_energy_above_reference_hartree, 6):>12}"
                      f"{num(s.mean_abs_atomization_vs_reference_kcal_mol, 2):>12}")
     for r in result.rows:
         if r.failed:
-            lines.append(f"failed: {r.structure} ({r.variant}): {r.error}")
+            lines.append(f"failed: {one_line(r.structure)} ({one_line(r.variant)}): {one_line(r.error)}")
     for path in result.files.values():
-        lines.append(f"wrote {path}")
+        lines.append(f"wrote {one_line(path)}")
     lines.append(f"{len(result.plan.tasks)} calculations: {result.computed} computed, {result.resumed} taken from the "
                  f"manifest, {len(result.failed)} failed; {result.seconds:.1f} s")
     return "\n".join(lines)
 
 
-__all__ = ["BenchPlan", "BenchResult", "BenchRow", "BenchSet", "BenchStructure", "BenchTask", "Calculation",
+__all__ = ["BenchPlan", "BenchResult", "BenchRow", "BenchSet", "BenchStructure", "BenchTask", "Calculation", "FreeAtomRow",
            "MANIFEST_NAME", "OUTPUT_NAMES", "ROW_FIELDS", "SETS", "Variant", "VariantSummary", "assemble",
-           "bench_document", "check_reference", "file_structures", "free_atom", "hartree_to_kcal_mol", "list_sets",
+           "assemble_atoms", "bench_document", "check_reference", "file_structures", "free_atom", "hartree_to_kcal_mol", "list_sets",
            "make_variants", "plan", "run_bench", "run_calculation", "select_structures", "set_structures", "summarize",
            "summary_table"]

@@ -292,6 +292,7 @@ def _executor(args):
 
 def _cmd_batch(args) -> int:
     from . import batch
+    from .limits import one_line  # a path with a line end in a note stays one line
 
     workers, note = _workers(args)
     notes: list[str] = [note] if note else []
@@ -300,19 +301,19 @@ def _cmd_batch(args) -> int:
     options = from_args(args)
     items = batch.discover(args.inputs, exclude=args.out, notes=notes)
     for note in notes:
-        print(f"stobuilder: note: {note}", file=sys.stderr)
+        print(f"stobuilder: note: {one_line(note)}", file=sys.stderr)
     with _executor(args) as executor:
         summary = batch.run_batch(
             items, options, args.out, executor=executor, workers=workers, force=args.force,
             progress=batch.make_progress(len(items), args.progress),
         )
     for note in summary.notes:
-        print(f"stobuilder: note: {note}", file=sys.stderr)
+        print(f"stobuilder: note: {one_line(note)}", file=sys.stderr)
     if args.json:
         _print_json(summary.to_json())
     else:
         for path, error in summary.failures:
-            print(f"failed: {error}")
+            print(f"failed: {one_line(error)}")
         print(
             f"{summary.total} structures: {summary.done} done, {summary.skipped} skipped (up to date), "
             f"{summary.failed} failed, {summary.seconds:.1f} s; manifest {summary.manifest}"
@@ -325,6 +326,7 @@ def _cmd_batch(args) -> int:
 
 def _cmd_bench(args) -> int:
     from . import batch, bench
+    from .limits import one_line
 
     if args.list_sets:
         for info in bench.list_sets():
@@ -343,7 +345,7 @@ def _cmd_bench(args) -> int:
                                  progress=batch.make_progress(len(plan.tasks), args.progress, label="stobuilder bench",
                                                               unit="calculations"))
     for note in result.notes:
-        print(f"stobuilder: note: {note}", file=sys.stderr)
+        print(f"stobuilder: note: {one_line(note)}", file=sys.stderr)
     if args.json:
         _print_json(result.to_json())
     else:

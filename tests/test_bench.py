@@ -146,7 +146,7 @@ def test_spins_from_the_set():
 
 def test_json_layout_and_files(sto3g_run):
     out, doc = sto3g_run
-    assert list(doc) == ["variants", "rows", "summary", "files"]
+    assert list(doc) == ["variants", "rows", "summary", "free_atoms", "hartree_to_kcal_mol", "files"]
     for row in doc["rows"]:
         assert list(row) == ROW_KEYS
     assert [v["label"] for v in doc["variants"]] == ["molecular N=3 l2"]
@@ -158,9 +158,9 @@ def test_json_layout_and_files(sto3g_run):
     # minimal-basis HF atomization energies are far from experiment (tens of kcal/mol on average)
     assert summary["mean_abs_atomization_error_kcal_mol"] > 10
     assert _strict((out / "bench.json").read_text()) == doc
-    for name in ("bench.tsv", "bench.json", "report.html", "energy_error.png", "atomization.png"):
+    for name in ("bench.tsv", "free_atoms.tsv", "bench.json", "report.html", "energy_error.png", "atomization.png"):
         assert (out / name).is_file(), name
-    assert set(doc["files"]) == {"tsv", "json", "report", "energy_plot", "atomization_plot"}
+    assert set(doc["files"]) == {"tsv", "atoms_tsv", "json", "report", "energy_plot", "atomization_plot"}
 
 
 def test_tsv_one_row_per_structure_and_variant(sto3g_run):
@@ -185,16 +185,30 @@ class _Images(HTMLParser):
             self.sources.append(dict(attrs)["src"])
 
 
-def test_report_references_existing_pngs(sto3g_run):
-    out, _ = sto3g_run
-    page = (out / "report.html").read_text(encoding="utf-8")
+def _embedded(page):
+    """The PNG bytes of the page's images, which must all be data: URIs (RFC 2397)."""
+    import base64
+
     parser = _Images()
     parser.feed(page)
-    assert sorted(parser.sources) == ["atomization.png", "energy_error.png"]
+    out = []
     for src in parser.sources:
-        assert (out / src).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # the PNG signature (PNG specification, W3C 2003)
-    assert "tens of kcal/mol" in page and "does not validate" in page  # the cautions
-    assert "<script" not in page and "http" not in page.replace("https://", "")  # self-contained
+        assert src.startswith("data:image/png;base64,"), src[:60]
+        out.append(base64.b64decode(src.split(",", 1)[1], validate=True))
+    return out
+
+
+def test_report_is_self_contained_and_embeds_the_pngs(sto3g_run):
+    # the page alone shows its plots: each image is the PNG file beside it, embedded (issue 21 §5)
+    out, _ = sto3g_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    images = _embedded(page)
+    assert images == [(out / "energy_error.png").read_bytes(), (out / "atomization.png").read_bytes()]
+    for png in images:
+        assert png[:8] == b"\x89PNG\r\n\x1a\n"  # the PNG signature (PNG specification, W3C 2003)
+    assert "tens to hundreds of kcal/mol" in page and "does not validate" in page  # the cautions
+    assert "<script" not in page and "http" not in page.replace("https://", "")  # nothing fetched
+    assert "src=\"energy_error.png\"" not in page
 
 
 def _manifest(out):
@@ -216,7 +230,7 @@ def test_resume_after_a_kill(tmp_path, capsys):
     assert _counts(stdout) == (12, 12, 0, 0)
     lines = _manifest(out)
     assert sum(json.loads(x)["task"].startswith("atom|") for x in lines) == 6
-    first = {name: (out / name).read_bytes() for name in ("bench.tsv", "bench.json", "report.html",
+    first = {name: (out / name).read_bytes() for name in ("bench.tsv", "free_atoms.tsv", "bench.json", "report.html",
                                                           "energy_error.png", "atomization.png")}
     # nothing to do: every calculation comes from the manifest, every file byte for byte the same
     code, stdout, err = run_cli(argv, capsys)
@@ -348,11 +362,14 @@ def test_structure_files_on_a_callers_executor(tmp_path):
         (set_row,) = bench.run_bench(bench.plan(bench.set_structures("g2-1", ["H2O"]), plan.variants),
                                      str(tmp_path / "set"), executor=pool).rows
     assert row.energy_hartree == pytest.approx(set_row.energy_hartree, abs=1e-9)
-    parser = _Images()
-    parser.feed((tmp_path / "out" / "report.html").read_text())
-    assert parser.sources == ["energy_error.png"]
-    assert not (tmp_path / "out" / "atomization.png").exists()
-    assert "atomization_plot" not in _strict((tmp_path / "out" / "bench.json").read_text())["files"]
+    # one variant, no reference, no experiment: neither plot (an energy panel would be zero
+    # everywhere), and the page says why
+    page = (tmp_path / "out" / "report.html").read_text()
+    assert _embedded(page) == []
+    assert "No energy plot" in page and "No atomization plot" in page
+    assert not (tmp_path / "out" / "atomization.png").exists() and not (tmp_path / "out" / "energy_error.png").exists()
+    files = _strict((tmp_path / "out" / "bench.json").read_text())["files"]
+    assert "atomization_plot" not in files and "energy_plot" not in files
 
 
 def test_dask_executor_and_resume_across_engines(tmp_path):
