@@ -367,3 +367,36 @@ def test_the_python_door_names_python_arguments(tmp_path, kwargs, needle):
     with pytest.raises(InputError) as e:
         relax_structures([AMMONIA], BuildOptions(check=True), out_dir=str(tmp_path / "out"))
     assert "options.check" in str(e.value) and "--" not in str(e.value)
+
+
+def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_path, monkeypatch):
+    import _thread
+    import threading
+    import time
+
+    from stobuilder import checks
+    from stobuilder.options import BuildOptions
+    from stobuilder.relax import RelaxInterrupted, relax_structures
+
+    first, second = tmp_path / "a.xyz", tmp_path / "b.xyz"
+    first.write_text(H2_TEXT)
+    second.write_text("3\n\nO 0 0 0\nH 0 0.80 0.55\nH 0 -0.75 0.62\n")
+    out = tmp_path / "out"
+    real = checks.solve
+
+    def solve(mol, *args, **kwargs):
+        if mol.natm == 3:  # the water, in the worker thread: Ctrl-C in the waiting thread
+            _thread.interrupt_main()
+            time.sleep(0.2)  # an SCF still running after the interrupt
+        return real(mol, *args, **kwargs)
+
+    monkeypatch.setattr(checks, "solve", solve)
+    with pytest.raises(RelaxInterrupted) as e:
+        relax_structures([str(first), str(second)], BuildOptions(gaussians=2), out_dir=str(out))
+    assert isinstance(e.value, KeyboardInterrupt)
+    assert [r.path for r in e.value.finished] == [str(first)] and e.value.running == str(second)
+    assert e.value.finished[0].relaxed_path == str(out / "a.relaxed.extxyz") and e.value.finished[0].converged
+    for worker in [t for t in threading.enumerate() if t.name == "stobuilder-relax"]:
+        worker.join(30)  # the worker ends at its next step and writes nothing more
+        assert not worker.is_alive()
+    assert sorted(os.listdir(out)) == ["a.nw", "a.relaxed.extxyz"]
