@@ -13,6 +13,12 @@ The basis is built once per element set and options (``pipeline.basis_for``, cac
 ``pipeline.basis_key``) and reused at every geometry step; each SCF starts from the density of
 the previous one. The last PySCF SCF object is ``calc.scf`` (orbitals, energies, ...).
 
+What decides whether to recompute is ASE's ``check_state`` (positions, numbers, cell, ...) plus
+the charge and 2S the calculator would use: from its parameters, else the atoms' info
+(``charge``, ``spin``, ``multiplicity``), so changing ``atoms.info`` drops the old results.
+One calculator may be shared by threads: a lock serialises its calls (``get_property``,
+``calculate``, ``set``), so each call computes and returns the result of its own atoms.
+
 ``pyscf_mole(atoms_or_path, **options)`` gives the PySCF ``Mole`` with the same basis, for
 PySCF scripts. Units: hartree and bohr inside PySCF, eV and Å on ASE's side (``ase.units``).
 """
@@ -20,6 +26,7 @@ PySCF scripts. Units: hartree and bohr inside PySCF, eV and Å on ASE's side (``
 from __future__ import annotations
 
 import os
+import threading
 
 import numpy as np
 from ase.calculators.calculator import Calculator, SCFError, all_changes
@@ -140,6 +147,15 @@ class STOCalculator(Calculator):
     After a calculation: ``scf`` (PySCF's SCF object), ``mol`` (its Mole), ``basis`` (our
     Basis), ``iterations`` (SCF cycles of the last call), ``builds`` (bases built so far).
     An SCF that does not converge raises ``ase.calculators.calculator.SCFError``.
+
+    A change of the charge or 2S the calculator would use (``atoms.info`` ``charge``, ``spin``,
+    ``multiplicity`` when the parameters leave them open) is a system change, reported by
+    ``check_state`` as ``"info"``: the results are dropped and the SCF rerun.
+
+    Threads: one calculator may be shared. Its calls are serialised by a lock (one SCF at a
+    time), so each ``get_property`` (``atoms.get_potential_energy()``, ...) returns the result
+    for the atoms it was given, never another thread's. ``scf``, ``mol``, ``results`` are those
+    of the last call of any thread; for parallel SCFs give each thread its own calculator.
     """
 
     implemented_properties = ["energy", "free_energy", "forces", "dipole", "charges"]
@@ -150,6 +166,7 @@ class STOCalculator(Calculator):
     }
 
     def __init__(self, **kwargs):
+        self._lock = threading.RLock()  # before Calculator.__init__, which calls set()
         self._options = None
         self._cache: dict = {}
         self._density = None  # (signature, density) of the last SCF
@@ -160,7 +177,52 @@ class STOCalculator(Calculator):
         if self._options is None:
             self._options = build_options()
 
+    def __getstate__(self):  # copy.deepcopy and pickle: a lock is not copied, a new one is made
+        state = dict(self.__dict__)
+        state.pop("_lock", None)
+        return state
+
+    def __setstate__(self, state):
+        self.__dict__.update(state)
+        self._lock = threading.RLock()
+
+    def get_property(self, name, atoms=None, allow_calculation=True):
+        with self._lock:  # check_state, calculate and the read of the result as one step
+            return super().get_property(name, atoms, allow_calculation)
+
+    def calculation_required(self, atoms, properties):
+        with self._lock:
+            return super().calculation_required(atoms, properties)
+
+    def check_state(self, atoms, tol=1e-15):
+        """ASE's system changes, plus ``"info"`` when the charge or 2S this calculator would use
+        for ``atoms`` differs from that of the atoms of the last calculation."""
+        changes = super().check_state(atoms, tol)
+        if self.atoms is not None and "info" not in changes \
+                and self._charge_spin(atoms) != self._charge_spin(self.atoms):
+            changes = [*changes, "info"]
+        return changes
+
+    def _charge_spin(self, atoms):
+        """(charge, 2S) the calculator would use for ``atoms``: its parameters, else the atoms'
+        info keys; for info it cannot read, the error text (so bad info is a change, and the
+        calculation that follows raises the error)."""
+        from .structures import INFO_KEYS, structure_from_atoms
+
+        options = self._options or build_options()
+        if options.charge is not None and options.spin is not None:
+            return options.charge, options.spin
+        try:
+            structure = structure_from_atoms(atoms, atoms.get_chemical_formula(), options.charge, options.spin)
+        except InputError as exc:
+            return ("error", str(exc), tuple(repr(atoms.info.get(k)) for k in INFO_KEYS))
+        return structure.charge, structure.spin
+
     def set(self, **kwargs):
+        with self._lock:
+            return self._set(**kwargs)
+
+    def _set(self, **kwargs):
         own = {k: v for k, v in kwargs.items() if k not in ("parameters",)}
         _check_names(own, BASIS_PARAMETERS + SCF_PARAMETERS, "STOCalculator")
         merged = {**dict(self.parameters or self.get_default_parameters()), **own}
@@ -178,6 +240,10 @@ class STOCalculator(Calculator):
         return changed
 
     def calculate(self, atoms=None, properties=("energy",), system_changes=all_changes):
+        with self._lock:
+            self._calculate(atoms, properties, system_changes)
+
+    def _calculate(self, atoms, properties, system_changes):
         from ase.units import Bohr, Hartree
 
         from .checks import solve, structure_mole

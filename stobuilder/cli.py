@@ -72,10 +72,10 @@ def _parser() -> argparse.ArgumentParser:
     r = sub.add_parser("relax", help="relax molecules with the basis (ASE optimizer, PySCF SCF); relaxed extxyz and basis files")
     r.add_argument("structures", nargs="+", metavar="STRUCTURE", help="molecule files ASE reads (a file's last frame)")
     add_arguments(r, _whole_number)
-    r.add_argument("--fmax", type=float, default=relax.DEFAULT_FMAX, metavar="EV_PER_A",
+    r.add_argument("--fmax", type=_relax_fmax, default=relax.DEFAULT_FMAX, metavar="EV_PER_A",
                    help=f"largest force on an atom at convergence (default {relax.DEFAULT_FMAX} eV/Å)")
-    r.add_argument("--steps", type=_whole_number, default=relax.DEFAULT_STEPS, metavar="N",
-                   help=f"optimizer steps at most (default {relax.DEFAULT_STEPS})")
+    r.add_argument("--steps", type=_relax_steps, default=relax.DEFAULT_STEPS, metavar="N",
+                   help=f"optimizer steps at most, 0 to {relax.MAX_STEPS} (default {relax.DEFAULT_STEPS})")
     r.add_argument("--optimizer", choices=relax.OPTIMIZERS, default=relax.OPTIMIZERS[0],
                    help=f"ASE optimizer (default {relax.OPTIMIZERS[0]})")
     r.add_argument("--out", default="relaxed", metavar="DIR", help="output folder (default ./relaxed)")
@@ -238,12 +238,55 @@ def _build_table(report) -> str:
 # ---------------------------------------------------------------------------- relax
 
 
-def _cmd_relax(args) -> int:
-    from .options import from_args
-    from .relax import relax_structures
+def _relax_fmax(text: str) -> float:
+    """``--fmax``: a finite positive number (eV/Å)."""
+    from .relax import fmax_ok
 
-    results = relax_structures(args.structures, from_args(args), fmax=args.fmax, steps=args.steps,
-                               optimizer=args.optimizer, out_dir=args.out, force=args.force)
+    try:
+        value = float(text)
+    except ValueError:
+        value = None
+    if value is None or not fmax_ok(value):
+        raise argparse.ArgumentTypeError(f"{text!r} must be a positive number (eV/Å)")
+    return value
+
+
+def _relax_steps(text: str) -> int:
+    """``--steps``: a whole number (``200``, also ``2e2``) from 0 to relax.MAX_STEPS."""
+    from decimal import Decimal, InvalidOperation
+
+    from .relax import MAX_STEPS
+
+    try:
+        value = Decimal(text.strip())
+    except InvalidOperation:
+        value = None
+    if value is None or not value.is_finite() or value != value.to_integral_value():
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number")
+    if not 0 <= value <= MAX_STEPS:
+        raise argparse.ArgumentTypeError(f"{text} is out of range: steps go from 0 to {MAX_STEPS}")
+    return int(value)
+
+
+def _cmd_relax(args) -> int:
+    from .limits import one_line
+    from .options import from_args
+    from .relax import RelaxInterrupted, relax_structures
+
+    if args.check:
+        raise InputError("--check is build's; relax runs an SCF at every step already")
+    try:
+        results = relax_structures(args.structures, from_args(args), fmax=args.fmax, steps=args.steps,
+                                   optimizer=args.optimizer, out_dir=args.out, force=args.force)
+    except RelaxInterrupted as stop:  # say what was kept; main reports the interrupt (exit 130)
+        for r in stop.finished:
+            files = ", ".join(one_line(p) for p in (r.relaxed_path, *r.files.values()))
+            print(f"stobuilder: kept {one_line(r.path)} ({'relaxed' if r.converged else 'NOT CONVERGED'}, "
+                  f"{r.steps} steps): {files}", file=sys.stderr)
+        running = f"; {one_line(stop.running)} was running, nothing of it written" if stop.running else ""
+        print(f"stobuilder: relax stopped: {len(stop.finished)} of {len(args.structures)} structures written"
+              f"{running}", file=sys.stderr)
+        raise
     if args.json:
         _print_json({"structures": [r.to_json() for r in results]})
     else:

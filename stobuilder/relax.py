@@ -4,17 +4,28 @@ Each structure file walks build's path first (``pipeline.prepare``: read, geomet
 built, basis texts made) and is then relaxed with ``STOCalculator`` and an ASE optimizer (BFGS
 or FIRE), with the basis built by ``prepare`` handed to the calculator, so no fit is repeated.
 A file of several frames is relaxed from its last frame (what ``ase.io.read`` gives). Every
-structure is prepared, and every target checked, before the first relaxation; the files of the
-whole job are written at the end, all or none (``files.write_all``):
+structure is prepared, and every output location checked (the folder can be made or written
+into, no target exists unless ``force``), before the first SCF; a bad input found then writes
+nothing. Each structure's files are written as soon as it is relaxed, together
+(``files.write_all``: all of that structure's files or none):
 
     <out>/<name>.relaxed.extxyz   the relaxed molecule: energy (eV) and forces (eV/Å) as ASE's
                                   extxyz writer stores them, plus charge, spin (2S),
-                                  energy_hartree, relax_steps, relax_converged
+                                  energy_hartree, relax_steps, relax_converged (no text taken
+                                  from the input goes into its comment line)
     <out>/<name><extension>       its basis file for every code of the options
 
 A relaxation that runs out of steps is written all the same (``relax_converged=F``, so it can
 be continued from the file) and reported as not converged. An SCF that fails at any step is an
-InputError naming the file and the step; then nothing is written.
+InputError naming the file and the step; that structure writes nothing, the ones relaxed before
+it keep their files. An interrupt (KeyboardInterrupt, SIGINT) raises ``RelaxInterrupted`` (a
+KeyboardInterrupt) holding the results whose files were written; the running structure writes
+nothing.
+
+The relaxations run in a worker thread while the calling thread waits: a long call into PySCF's
+C code (integrals, BLAS) cannot hold up a KeyboardInterrupt, which Python delivers only to the
+main thread between bytecodes. On an interrupt the worker writes nothing more (a write in
+progress is finished first) and stops at its next optimizer step.
 
 Progress goes to the ``stobuilder.relax`` logger: one line per optimizer step (energy, largest
 force on an atom).
@@ -26,6 +37,7 @@ import io
 import logging
 import math
 import os
+import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
@@ -35,6 +47,7 @@ from .options import BuildOptions
 OPTIMIZERS = ("bfgs", "fire")
 DEFAULT_FMAX = 0.05  # eV/Å, ASE's own default for its optimizers
 DEFAULT_STEPS = 200
+MAX_STEPS = 100000
 RELAXED_SUFFIX = ".relaxed.extxyz"
 
 _log = logging.getLogger("stobuilder.relax")
@@ -73,16 +86,61 @@ def max_force(forces) -> float:
     return float(np.sqrt((f * f).sum(axis=1)).max(initial=0.0))
 
 
+class RelaxInterrupted(KeyboardInterrupt):
+    """A relaxation job interrupted: ``finished`` holds the RelaxResults whose files were written
+    (in the order of the paths), ``running`` the structure file that was being relaxed (None
+    between structures); it wrote nothing."""
+
+    def __init__(self, finished, running):
+        super().__init__("relaxation interrupted")
+        self.finished = tuple(finished)
+        self.running = running
+
+
+def fmax_ok(fmax) -> bool:
+    """A usable force limit (eV/Å): a finite positive number."""
+    return not isinstance(fmax, bool) and isinstance(fmax, (int, float)) and math.isfinite(fmax) and fmax > 0
+
+
 def _check_settings(fmax, steps, optimizer) -> tuple[float, int, str]:
+    """The Python arguments checked; messages name them as Python names them (the command line
+    checks its flags itself, in its own words)."""
     from .limits import whole_number
 
-    if isinstance(fmax, bool) or not isinstance(fmax, (int, float)) or not math.isfinite(fmax) or fmax <= 0:
-        raise InputError(f"--fmax {fmax!r}: must be a positive number (eV/Å)")
-    steps = whole_number(steps, "--steps", 0, 100000)
+    if not fmax_ok(fmax):
+        raise InputError(f"fmax={fmax!r}: must be a positive number (eV/Å)")
+    steps = whole_number(steps, "steps", 0, MAX_STEPS)
     name = str(optimizer).lower()
     if name not in OPTIMIZERS:
-        raise InputError(f"--optimizer {optimizer!r}: choose one of {', '.join(OPTIMIZERS)}")
+        raise InputError(f"optimizer={optimizer!r}: choose one of {', '.join(OPTIMIZERS)}")
     return float(fmax), steps, name
+
+
+def check_out_dir(out_dir: str, targets) -> None:
+    """InputError unless every folder of ``targets`` (paths under ``out_dir``) exists as a folder
+    we can write into, or can be made: its nearest existing ancestor is a folder we can write into
+    (tried with a temporary file, removed at once: permission bits, read-only file systems and
+    root's rights all answer as they will for the real files). Writes nothing that stays."""
+    import tempfile
+
+    from .files import TEMP_PREFIX, TEMP_SUFFIX
+    from .limits import one_line
+
+    for folder in sorted({os.path.dirname(os.path.abspath(t)) for t in targets} or {os.path.abspath(out_dir)}):
+        probe = folder
+        while not os.path.lexists(probe):
+            probe = os.path.dirname(probe)
+        if not os.path.isdir(probe):
+            if probe == os.path.abspath(out_dir):
+                raise InputError(f"{one_line(out_dir)}: exists and is not a folder (the output folder)")
+            raise InputError(f"{one_line(probe)}: is not a folder, so the output folder {one_line(out_dir)} cannot be made")
+        try:
+            fd, name = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=probe)
+        except OSError as exc:
+            what = "write into it" if probe == folder else f"make {one_line(out_dir)} in it"
+            raise InputError(f"{one_line(probe)}: cannot {what} ({exc.strerror or exc})") from None
+        os.close(fd)
+        os.unlink(name)
 
 
 def _calculator(frame, basis, options: BuildOptions, conv_tol, max_cycle):
@@ -129,15 +187,11 @@ def relax_structures(
 ) -> tuple[RelaxResult, ...]:
     """Relax every molecule in ``paths`` (``fmax`` eV/Å on every atom, at most ``steps``
     optimizer steps) and write its relaxed structure and basis files to ``out_dir`` (see the
-    module docstring). Existing files are kept unless ``force``; bad input is an InputError
-    before anything is computed or written."""
-    import numpy as np
-    from ase import Atoms
-    from ase.calculators.calculator import CalculationFailed
-    from ase.optimize import BFGS, FIRE
-    from ase.units import Hartree
-
-    from .files import check_targets, write_all
+    module docstring). Existing files are kept unless ``force``; bad input (settings, structures,
+    output locations) is an InputError before anything is computed or written. Each structure's
+    files are written when it is relaxed; an interrupt raises ``RelaxInterrupted``."""
+    from .files import check_targets
+    from .limits import one_line
     from .naming import structure_name
     from .pipeline import check_electrons, check_zeta_elements, claim_target, prepare
 
@@ -148,7 +202,7 @@ def relax_structures(
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     fmax, steps, optimizer = _check_settings(fmax, steps, optimizer)
     if options.check:
-        raise InputError("--check is build's; relax runs an SCF at every step already")
+        raise InputError("options.check is build's; relax runs an SCF at every step already")
     if not paths:
         raise InputError("no structure files given")
     jobs, sources = [], {}
@@ -157,7 +211,7 @@ def relax_structures(
         frame = item.frames[-1]
         if frame.periodic:
             raise InputError(
-                f"{item.path}: periodic structure; relax does molecules (stobuilder build writes the "
+                f"{one_line(item.path)}: periodic structure; relax does molecules (stobuilder build writes the "
                 "basis files for periodic codes)"
             )
         check_electrons(frame, item.basis, options.method)  # the method suits it, its electrons fit the basis
@@ -169,17 +223,85 @@ def relax_structures(
     check_zeta_elements(options, (frame for _, frame, _, _ in jobs))
     if write:
         check_targets(sources, force)
-    contents: dict[str, str] = {}
-    results = []
+        check_out_dir(out_dir, sources)
+    run = _Run()
+    return _in_worker(lambda: _relax_jobs(run, jobs, options, fmax, steps, optimizer, out_dir, write,
+                                          conv_tol, max_cycle), run)
+
+
+class _Stop(Exception):
+    """Raised in the worker at its next optimizer step once the caller was interrupted."""
+
+
+class _Run:
+    """What the worker thread and the waiting thread share: the interrupt flag, the lock held
+    while a structure's files are written, the finished results, the structure running."""
+
+    def __init__(self):
+        self.stop = threading.Event()
+        self.writing = threading.Lock()
+        self.finished: list[RelaxResult] = []
+        self.running: str | None = None
+
+
+def _in_worker(job, run: _Run):
+    """Run ``job`` in a worker thread (with the caller's PySCF thread count) and wait for it.
+    An interrupt while waiting stops the worker's writes (one in progress is finished first) and
+    raises RelaxInterrupted; the worker's own exception is raised here."""
+    from pyscf import lib
+
+    threads = lib.num_threads()  # OpenMP's count is per thread: hand the caller's on
+    outcome: dict = {}
+
+    def work():
+        try:
+            with lib.with_omp_threads(threads):
+                outcome["value"] = job()
+        except _Stop:
+            pass
+        except BaseException as exc:  # noqa: BLE001 — raised again in the waiting thread
+            outcome["error"] = exc
+
+    worker = threading.Thread(target=work, name="stobuilder-relax", daemon=True)
+    try:
+        worker.start()
+        while worker.is_alive():
+            worker.join(0.1)
+    except KeyboardInterrupt:
+        run.stop.set()
+        with run.writing:  # a structure's files being written are finished; no write starts after
+            finished, running = tuple(run.finished), run.running
+        raise RelaxInterrupted(finished, running) from None
+    if "error" in outcome:
+        raise outcome["error"]
+    return outcome["value"]
+
+
+def _relax_jobs(run: _Run, jobs, options, fmax, steps, optimizer, out_dir, write, conv_tol, max_cycle):
+    import numpy as np
+    from ase import Atoms
+    from ase.calculators.calculator import CalculationFailed
+    from ase.optimize import BFGS, FIRE
+    from ase.units import Hartree
+
+    from .files import write_all
+    from .limits import one_line
+
     kinds = {"bfgs": BFGS, "fire": FIRE}
     for item, frame, relaxed, targets in jobs:
+        if run.stop.is_set():
+            raise _Stop
+        run.running = item.path
+        name = one_line(item.path)
         atoms = Atoms(frame.symbols, positions=frame.positions)
         atoms.calc = _calculator(frame, item.basis, options, conv_tol, max_cycle)
         opt = kinds[optimizer](atoms, logfile=None)
 
-        def report(atoms=atoms, opt=opt, item=item):
+        def report(atoms=atoms, opt=opt, name=name):
+            if run.stop.is_set():
+                raise _Stop
             e = atoms.get_potential_energy() / Hartree
-            _log.info(f"{item.path} step {opt.nsteps}: E = {e:.10f} hartree, max force "
+            _log.info(f"{name} step {opt.nsteps}: E = {e:.10f} hartree, max force "
                       f"{max_force(atoms.get_forces()):.5f} eV/Å")
 
         opt.attach(report, interval=1)
@@ -187,18 +309,26 @@ def relax_structures(
             converged = bool(opt.run(fmax=fmax, steps=steps))
         except (CalculationFailed, InputError) as exc:
             reason = " ".join(str(exc).split())
-            raise InputError(f"{item.path}: step {opt.nsteps}: {reason}; nothing written") from None
+            kept = [one_line(r.path) for r in run.finished] if write else []
+            tail = (f"nothing of it written; kept the files of {len(kept)} relaxed before it ({', '.join(kept)})"
+                    if kept else "nothing written")
+            raise InputError(f"{name}: step {opt.nsteps}: {reason}; {tail}") from None
         energy = float(atoms.get_potential_energy())
         forces = np.array(atoms.get_forces())
-        contents[relaxed] = relaxed_text(atoms, energy, forces, frame.charge, frame.spin, opt.nsteps, converged)
+        contents = {relaxed: relaxed_text(atoms, energy, forces, frame.charge, frame.spin, opt.nsteps, converged)}
         for code, rel, text in item.texts:
             contents[targets[code]] = text
-        results.append(RelaxResult(item.path, relaxed, frame.formula, energy / Hartree, int(opt.nsteps), converged,
-                                   max_force(forces), targets))
-    if write:
-        write_all(contents, out_dir)
-    return tuple(results)
+        result = RelaxResult(item.path, relaxed, frame.formula, energy / Hartree, int(opt.nsteps), converged,
+                             max_force(forces), targets)
+        with run.writing:
+            if run.stop.is_set():
+                raise _Stop
+            if write:
+                write_all(contents, out_dir)
+            run.finished.append(result)
+            run.running = None
+    return tuple(run.finished)
 
 
-__all__ = ["DEFAULT_FMAX", "DEFAULT_STEPS", "OPTIMIZERS", "RELAXED_SUFFIX", "RelaxResult", "max_force",
-           "relax_structures", "relaxed_text"]
+__all__ = ["DEFAULT_FMAX", "DEFAULT_STEPS", "MAX_STEPS", "OPTIMIZERS", "RELAXED_SUFFIX", "RelaxInterrupted",
+           "RelaxResult", "check_out_dir", "fmax_ok", "max_force", "relax_structures", "relaxed_text"]

@@ -302,3 +302,43 @@ def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name,
             errors = [line for line in message.splitlines() if line.startswith("stobuilder: error: ")]
             assert len(errors) == 1 and message.endswith(errors[0] + "\n"), message
             assert os.listdir(out_dir) == (["z.toml"] if where == "existing" else []), os.listdir(out_dir)
+
+
+# ---------------------------------------------------------------------------- the calculator's info (issue 21)
+
+info_values = st.one_of(
+    st.none(), st.integers(-3, 4), st.floats(allow_nan=True, allow_infinity=True), st.booleans(),
+    st.sampled_from(["1", "two", "", "1.0", 10**40]),
+)
+
+
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(charge=info_values, spin=info_values, multiplicity=info_values)
+def test_calculator_info_changes_give_a_fresh_calculators_answer(charge, spin, multiplicity):
+    """issue 21: after a first energy, any change of atoms.info charge/spin/multiplicity gives
+    what a new calculator gives for the same atoms: the same energy, or the same InputError;
+    never the earlier molecule's energy. (common practice, no source)"""
+    from stobuilder import InputError
+    from stobuilder.calculator import STOCalculator
+
+    def answer(atoms, calc):
+        atoms.calc = calc
+        try:
+            return atoms.get_potential_energy()
+        except InputError as exc:
+            assert "\n" not in str(exc)
+            return "InputError"
+
+    h2 = molecule("H2")
+    calc = STOCalculator(gaussians=2)
+    answer(h2, calc)
+    for key, value in (("charge", charge), ("spin", spin), ("multiplicity", multiplicity)):
+        if value is not None:
+            h2.info[key] = value
+    got = answer(h2, calc)
+    event(f"calculator info {'error' if got == 'InputError' else 'energy'}")
+    fresh = answer(h2.copy(), STOCalculator(gaussians=2))
+    if "InputError" in (got, fresh):
+        assert got == fresh
+    else:  # eV; two SCFs converged to 1e-10 hartree agree far closer than this
+        assert abs(got - fresh) <= 1e-6

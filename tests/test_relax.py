@@ -4,6 +4,7 @@ and the bad-input contract (exit 2, one line, nothing written)."""
 
 import json
 import os
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -165,3 +166,239 @@ def test_an_scf_that_fails_during_a_relaxation_writes_nothing(tmp_path):
     text = str(e.value)
     assert "\n" not in text and "step 0" in text and "did not converge" in text and "nothing written" in text
     assert not out.exists()
+
+
+H2_TEXT = "2\n\nH 0 0 0\nH 0 0 0.80\n"  # near the H2 bond length (value from memory: 0.74 Å)
+
+
+@pytest.fixture
+def no_scf(monkeypatch):
+    """Any SCF is a failure: the output locations must be refused before the first one."""
+    from stobuilder import checks
+
+    def fail(*args, **kwargs):
+        pytest.fail("an SCF ran before the output location was checked")
+
+    monkeypatch.setattr(checks, "solve", fail)
+
+
+def _listing(folder):
+    return sorted(str(p.relative_to(folder)) for p in folder.rglob("*"))
+
+
+def _read_only_folder(tmp_path):
+    """A folder where nothing can be made: a 0o555 folder, or for root (who ignores permission
+    bits) /sys, where the kernel refuses new files; None when neither is at hand."""
+    if os.geteuid() != 0:
+        folder = tmp_path / "locked"
+        folder.mkdir()
+        folder.chmod(0o555)
+        return folder
+    if os.path.isdir("/sys"):
+        try:
+            open("/sys/stobuilder-probe", "w").close()
+        except OSError:
+            return Path("/sys")
+        os.unlink("/sys/stobuilder-probe")
+    return None
+
+
+@pytest.mark.parametrize("case", ["input file", "input file, --force", "under a file", "read-only"])
+def test_relax_refuses_a_bad_output_location_before_the_first_scf(tmp_path, capsys, no_scf, case):
+    # issue 21: each of these ran the whole relaxation, then exited 2
+    h2 = tmp_path / "h2.xyz"
+    h2.write_text(H2_TEXT)
+    out = {"input file": h2, "input file, --force": h2, "under a file": h2 / "sub"}.get(case)
+    if case == "read-only":
+        locked = _read_only_folder(tmp_path)
+        if locked is None:
+            pytest.skip("no folder here refuses new files")
+        out = locked / "stobuilder-relax-out"
+    before = _listing(tmp_path)
+    argv = ["relax", str(h2), "--gaussians", "2", "--out", str(out)] + (["--force"] if "force" in case else [])
+    code, _, err = run_cli(argv, capsys)
+    assert_one_line_error(code, err)
+    assert ("cannot" in err) if case == "read-only" else ("not a folder" in err), err
+    assert _listing(tmp_path) == before and h2.read_text() == H2_TEXT
+    if case in ("under a file", "read-only"):
+        assert not out.exists()
+
+
+def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones_before(tmp_path, monkeypatch):
+    from ase.calculators.calculator import SCFError
+
+    from stobuilder import InputError, checks
+    from stobuilder.options import BuildOptions
+    from stobuilder.relax import relax_structures
+
+    first, second = tmp_path / "a.xyz", tmp_path / "b.xyz"
+    first.write_text(H2_TEXT)
+    second.write_text("3\n\nO 0 0 0\nH 0 0.76 0.59\nH 0 -0.76 0.59\n")
+    out = tmp_path / "out"
+    real = checks.solve
+    seen = []
+
+    def solve(mol, *args, **kwargs):
+        if mol.natm == 3:  # the water: its first file must be on disk by now
+            seen.append(sorted(os.listdir(out)))
+            raise SCFError("a simulated SCF failure")
+        return real(mol, *args, **kwargs)
+
+    monkeypatch.setattr(checks, "solve", solve)
+    with pytest.raises(InputError) as e:
+        relax_structures([str(first), str(second)], BuildOptions(gaussians=2), out_dir=str(out))
+    text = str(e.value)
+    assert "\n" not in text and text.startswith(f"{second}: step 0: a simulated SCF failure")
+    assert f"kept the files of 1 relaxed before it ({first})" in text
+    assert seen == [["a.nw", "a.relaxed.extxyz"]]
+    assert sorted(os.listdir(out)) == ["a.nw", "a.relaxed.extxyz"]
+
+
+INTERRUPTED_RUN = """
+import sys, time
+from stobuilder import checks
+real = checks.solve
+def slow(mol, *args, **kwargs):
+    if mol.natm == 3:  # the second structure (water): a slow SCF at every step
+        time.sleep(0.2)
+    return real(mol, *args, **kwargs)
+checks.solve = slow
+from stobuilder.cli import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+def test_an_interrupted_relax_keeps_the_finished_structures_and_says_so(tmp_path):
+    # issue 21: SIGINT in the second of two molecules lost the converged first one
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    import ase.io
+
+    first, second = tmp_path / "a_h2.xyz", tmp_path / "b_water.xyz"
+    first.write_text(H2_TEXT)
+    second.write_text("3\n\nO 0 0 0\nH 0 0.80 0.55\nH 0 -0.75 0.62\n")
+    out = tmp_path / "out"
+    kept = out / "a_h2.relaxed.extxyz"
+    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
+    env = dict(os.environ, PYTHONPATH=root, OMP_NUM_THREADS="1")
+    proc = subprocess.Popen([sys.executable, "-c", INTERRUPTED_RUN, "relax", str(first), str(second), "--gaussians",
+                             "2", "--out", str(out)], cwd=str(tmp_path), env=env, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        deadline = time.monotonic() + 120
+        while not kept.exists() and proc.poll() is None and time.monotonic() < deadline:
+            time.sleep(0.01)
+        assert proc.poll() is None and kept.exists(), "the first structure's file did not appear while running"
+        time.sleep(0.1)  # into the water's relaxation (each of its steps sleeps 0.2 s), not between the two
+        proc.send_signal(signal.SIGINT)
+        _, err = proc.communicate(timeout=120)
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+            proc.wait()
+    assert proc.returncode == 130, err  # 128 + SIGINT, as the other commands exit on an interrupt
+    assert "Traceback" not in err
+    lines = err.splitlines()
+    assert lines[-1] == "stobuilder: interrupted"
+    assert f"stobuilder: kept {first} (relaxed," in err and str(kept) in err
+    assert "stobuilder: relax stopped: 1 of 2 structures written" in lines[-2]
+    assert f"{second} was running, nothing of it written" in lines[-2] or second.name not in lines[-2]
+    assert sorted(os.listdir(out)) == ["a_h2.nw", "a_h2.relaxed.extxyz"]  # no water file, no temporary
+    atoms = ase.io.read(str(kept), format="extxyz")  # complete and valid
+    assert atoms.get_chemical_symbols() == ["H", "H"] and atoms.info["relax_converged"] is True
+    assert abs(atoms.get_potential_energy() / Hartree - atoms.info["energy_hartree"]) <= 1e-9
+    assert np.abs(atoms.get_forces()).max() <= 0.05  # converged to the default fmax
+
+
+def test_text_from_the_input_cannot_break_out_of_the_extxyz_or_the_progress_lines(tmp_path, capsys):
+    import ase.io
+
+    odd = tmp_path / 'we"ird\nname.xyz'
+    odd.write_text(H2_TEXT)
+    out = tmp_path / "out"
+    code, _, err = run_cli(["relax", str(odd), "--gaussians", "2", "--out", str(out)], capsys)
+    assert code == 0, err
+    steps = [line for line in err.splitlines() if " step " in line]
+    assert steps and all(line.startswith("stobuilder: ") and "we\\u0022ird\\u000aname.xyz step" in line
+                         for line in steps), err
+    relaxed = out / 'we"ird\nname.relaxed.extxyz'
+    text = relaxed.read_text()
+    assert text.count("\n") == 2 + 2 and '"ird' not in text and "name" not in text  # no input text in it
+    atoms = ase.io.read(str(relaxed), format="extxyz")
+    assert set(atoms.info) == {"charge", "spin", "energy_hartree", "relax_steps", "relax_converged"}
+
+
+@pytest.mark.parametrize(
+    "value, needle",
+    [("1e9", "out of range: steps go from 0 to 100000"), ("100001", "out of range"), ("-3", "out of range"),
+     ("1.5", "is not a whole number"), ("nan", "is not a whole number"), ("ten", "is not a whole number"),
+     ("1e999999999", "out of range")],
+)
+def test_relax_steps_flag_says_the_range_or_not_a_whole_number(tmp_path, capsys, value, needle):
+    # issue 21: --steps 1e9 said "not a whole number"; it is one, out of range
+    out = tmp_path / "out"
+    code, _, err = run_cli(["relax", AMMONIA, "--steps", value, "--out", str(out)], capsys)
+    assert_one_line_error(code, err)
+    assert "--steps" in err and needle in err, err
+    assert not out.exists()
+
+
+def test_relax_steps_flag_takes_a_whole_number_written_with_an_exponent(tmp_path, capsys):
+    out = tmp_path / "out"
+    code, stdout, err = run_cli(["relax", AMMONIA, "--steps", "1e0", "--optimizer", "fire", "--gaussians", "2",
+                                 "--out", str(out)], capsys)
+    assert code == 1 and "NOT CONVERGED after 1 steps" in stdout, err
+
+
+@pytest.mark.parametrize(
+    "kwargs, needle",
+    [({"steps": 10**9}, "steps must be <= 100000"), ({"steps": 2.0}, "steps must be a whole number"),
+     ({"fmax": -1}, "fmax=-1"), ({"fmax": float("nan")}, "fmax=nan"), ({"optimizer": "lbfgs"}, "optimizer='lbfgs'")],
+)
+def test_the_python_door_names_python_arguments(tmp_path, kwargs, needle):
+    from stobuilder import InputError
+    from stobuilder.options import BuildOptions
+    from stobuilder.relax import relax_structures
+
+    with pytest.raises(InputError) as e:
+        relax_structures([AMMONIA], BuildOptions(), out_dir=str(tmp_path / "out"), **kwargs)
+    assert needle in str(e.value) and "--" not in str(e.value)
+    with pytest.raises(InputError) as e:
+        relax_structures([AMMONIA], BuildOptions(check=True), out_dir=str(tmp_path / "out"))
+    assert "options.check" in str(e.value) and "--" not in str(e.value)
+
+
+def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_path, monkeypatch):
+    import _thread
+    import threading
+    import time
+
+    from stobuilder import checks
+    from stobuilder.options import BuildOptions
+    from stobuilder.relax import RelaxInterrupted, relax_structures
+
+    first, second = tmp_path / "a.xyz", tmp_path / "b.xyz"
+    first.write_text(H2_TEXT)
+    second.write_text("3\n\nO 0 0 0\nH 0 0.80 0.55\nH 0 -0.75 0.62\n")
+    out = tmp_path / "out"
+    real = checks.solve
+
+    def solve(mol, *args, **kwargs):
+        if mol.natm == 3:  # the water, in the worker thread: Ctrl-C in the waiting thread
+            _thread.interrupt_main()
+            time.sleep(0.2)  # an SCF still running after the interrupt
+        return real(mol, *args, **kwargs)
+
+    monkeypatch.setattr(checks, "solve", solve)
+    with pytest.raises(RelaxInterrupted) as e:
+        relax_structures([str(first), str(second)], BuildOptions(gaussians=2), out_dir=str(out))
+    assert isinstance(e.value, KeyboardInterrupt)
+    assert [r.path for r in e.value.finished] == [str(first)] and e.value.running == str(second)
+    assert e.value.finished[0].relaxed_path == str(out / "a.relaxed.extxyz") and e.value.finished[0].converged
+    for worker in [t for t in threading.enumerate() if t.name == "stobuilder-relax"]:
+        worker.join(30)  # the worker ends at its next step and writes nothing more
+        assert not worker.is_alive()
+    assert sorted(os.listdir(out)) == ["a.nw", "a.relaxed.extxyz"]
