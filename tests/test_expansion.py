@@ -86,14 +86,17 @@ def classify(block, n_gauss):
 
 
 def eps_of(ex, n, l, c=None):
-    """ε of a contraction of normalised primitives; c = None gives the least-squares optimum."""
+    """‖φ − χ‖² = ∫(φ − χ)² of a contraction χ of normalised primitives, χ normalised first (the
+    published objective, [HSP69]; a stored contraction is normalised only to its printed
+    digits); c = None gives the best normalised contraction at these exponents, 2(1 − √q) with
+    q = sᵀG⁻¹s."""
     ex = np.asarray(ex)
     g = gaussian_overlap(l, ex)
     s, _ = sto_gaussian_overlap(n, l, ex)
     if c is None:
-        return 1.0 - s @ np.linalg.solve(g, s)
+        return 2.0 * (1.0 - math.sqrt(s @ np.linalg.solve(g, s)))
     c = np.asarray(c)
-    return 1.0 - 2.0 * c @ s + c @ g @ c
+    return 2.0 * (1.0 - c @ s / math.sqrt(c @ g @ c))
 
 
 def analyse(fname, n_gauss):
@@ -370,7 +373,7 @@ def test_sto1g_exact():
     assert fit.coefficients["1s"][0] == pytest.approx(1.0, abs=1e-15)
     # s = N_sto N_g I_3 with N_sto = 2, N_g = (2^(7/2) α^(3/2) / Γ(3/2))^(1/2)
     s = 2.0 * math.sqrt(2 * (2 * root) ** 1.5 / gamma(1.5)) * i(3, root)
-    assert fit.error["1s"] == pytest.approx(1 - s * s, rel=1e-9)
+    assert fit.error["1s"] == pytest.approx(2 * (1 - s), rel=1e-9)  # ‖φ − g‖² of two unit functions
     energy_opt = brentq(lambda a: 1.5 - math.sqrt(2 / (math.pi * a)), 0.05, 1.0, xtol=1e-15)
     assert energy_opt == pytest.approx(8 / (9 * math.pi), rel=1e-12)
     assert abs(fit.exponents[0] - 8 / (9 * math.pi)) > 0.01

@@ -81,11 +81,14 @@ def entry_to_fit(labels: tuple[str, ...], gaussians: int, norm: str, entry: dict
 
 
 _METHODS = {
-    "l2": "least-squares expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents "
-    "within a family (objective: sum of the squared L2 residual norms)",
+    "l2": "expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents within a family, "
+    "minimising the sum over the family of the squared L2 distances |phi - chi|^2 with the contraction chi "
+    "normalised, = 2(1 - sqrt(q)), q the squared cosine between the STO and the Gaussian span (the published "
+    "objective)",
     "h1": "expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents within a family, "
-    "minimising the sum of the squared Sobolev H1 residual norms |f|^2 + |grad f|^2 (gradient in units of 1/zeta); "
-    "coefficients then rescaled to an L2-normalised contraction",
+    "minimising the sum over the family of the squared Sobolev H1 distances (|f|^2 + |grad f|^2, gradient in units "
+    "of 1/zeta) between the STO and the contraction, both normalised in H1, = 2(1 - sqrt(q)), q the squared H1 "
+    "cosine between the STO and the Gaussian span; coefficients then rescaled to an L2-normalised contraction",
 }
 
 
@@ -100,7 +103,8 @@ def provenance(norm: str = "l2") -> dict:
             "G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413 (1973)",
         ],
         "units": "exponents in bohr^-2 at zeta = 1 bohr^-1 (scale by zeta^2); coefficients for normalised "
-        "primitives, contraction normalised to 1; error = squared residual norm of the optimum in the fitted norm",
+        "primitives, contraction normalised to 1; error = per subshell the squared distance 2(1 - sqrt(q)) between "
+        "the STO and the contraction, both normalised in the fitted norm",
         "algorithm": ALGORITHM,
         "command": REGENERATE_COMMAND,
         "version": __version__,
