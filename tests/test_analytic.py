@@ -226,6 +226,9 @@ def test_library_optimum_is_stationary_for_the_independent_sampled_residual(fam,
     assert abs(sum(eps) - fit.total_error) <= 1e-10 * fit.total_error + 1e-22
     if not fit.constrained:
         assert np.max(np.abs(grad)) < 1e-15
+        if len(fam) == 1:  # one subshell: also the optimum of the unnormalised error 1 − q
+            res, jac, _, _ = problem.solve(x)
+            assert np.max(np.abs(2.0 * jac.T @ res)) < 1e-15
         return
     # on the bound (ratios ≥ MIN_RATIO; [6s,6p] with N = 3): stationary along the free directions,
     # in the variables (ln α₁, gaps ln α_k − ln α_(k+1)); ε rises where a gap sits on the bound
