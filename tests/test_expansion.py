@@ -1,4 +1,8 @@
-"""STO-nG least-squares expansions (stobuilder.expansion) against published tables and exact results.
+"""STO-nG expansions (stobuilder.expansion) against published tables and exact results.
+
+The objective of [HSP69] and [S70], which our fits minimise: Σ ∫(φ − χ)² over the subshells
+sharing exponents, each contraction χ normalised, = Σ 2(1 − √q) with q = sᵀG⁻¹s; ε below is a
+subshell's term of it.
 
 References used below:
   [HSP69]  W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)   (STO-3G, STO-nG)
@@ -11,7 +15,8 @@ References used below:
 
 Conventions checked against PySCF's files: their coefficients refer to normalised primitives and
 give a contraction of norm 1 (within 1e-7, the rounding of the printed digits), not the
-least-squares optimum (norm √(1 − ε)); our stored coefficients follow the same convention.
+unnormalised least-squares optimum (norm² q = 1 − ε + ε²/4); our stored coefficients follow the
+same convention.
 """
 
 from __future__ import annotations
@@ -242,10 +247,11 @@ OFF_4SP_STO6G = {(s, "4s,4p", "sp") for s in K_KR}
 
 
 def test_pyscf_contractions_are_normalised(sto3g):
-    """PySCF's STO-3G coefficients give norm-1 contractions (as ours do), not the L2 optimum (norm² = 1 − ε).
+    """PySCF's STO-3G coefficients give norm-1 contractions (as ours do), not the unnormalised L2
+    optimum (norm² = q ≈ 1 − ε).
 
-    Measured: |norm² − 1| ≤ 0.01 ε for every consistent STO-3G block, where the least-squares
-    optimum would be off by exactly ε. (STO-6G cannot discriminate: its 4sp coefficients are
+    Measured: |norm² − 1| ≤ 0.01 ε for every consistent STO-3G block, where the unnormalised
+    least-squares optimum would be off by about ε. (STO-6G cannot discriminate: its 4sp coefficients are
     printed with 7 decimals, whose rounding alone moves norm² by ~2e-6 ≈ 2ε.)
     """
     for r in sto3g:
