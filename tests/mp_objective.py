@@ -1,6 +1,8 @@
 """The fit objective of stobuilder.expansion.analytic evaluated in mpmath at MP_DIGITS digits: a
 test reference for the double-precision and the ball-arithmetic evaluations. It shares the
-assembly (stobuilder.expansion.assembly) but not the arithmetic or the radial integrals: integer
+residual part of the assembly (stobuilder.expansion.assembly.residuals: ε = ‖φ‖² − sᵀG⁻¹s, its
+gradient and Hessian) but not the step to the published objective, which ``evaluate_mp`` forms
+itself, nor the arithmetic or the radial integrals: integer
 n* by erfc and the recurrences of tests/scalar_integrals.py, non-integer n* by mpmath's hyperu
 (the closed form Γ(ν)(4α)^(−ν/2) U(ν/2, ½, ζ²/(4α)): I. S. Gradshteyn, I. M. Ryzhik, Table of
 Integrals, 7th ed., 2007, 3.462.1) and the upward recurrence, and a Cholesky written out.
@@ -12,7 +14,7 @@ import numpy as np
 
 from scalar_integrals import radial_integrals_mp
 from stobuilder.expansion.arithmetic import MIN_RCOND
-from stobuilder.expansion.assembly import assemble
+from stobuilder.expansion.assembly import residuals
 
 MP_DIGITS = 34  # digits of the mpmath evaluation (ε ~ 1e-15 resolved to ~1e-34)
 
@@ -120,9 +122,31 @@ def evaluate_mp(problem, log_alpha: np.ndarray, order: int = 1):
                 nu = mp.mpf(t.n_eff) + t.l + 2
                 cols = [integrals_nonint_mp(nu, 6, a, zeta) for a in alpha]
             ints.append([np.array([[col[j] for col in cols]], dtype=object) for j in range(6)])
-        eps, total, grad, hess, coefs, valid = assemble(ops, problem, xm, ints, order)
+        parts, valid = residuals(ops, problem, xm, ints, order)
         if not valid[0]:
             return None
+        # the published objective per target, written out at MP_DIGITS digits: q = 1 − ε/‖φ‖²,
+        # f = 2 − 2√q (Hehre, Stewart & Pople 1969: Σ ∫(φ − χ)² with ‖χ‖ = 1), ∂f = −∂q/√q,
+        # ∂²f = −∂²q/√q + ∂q ∂qᵀ/(2 q^(3/2))
+        fs, coefs = [], []
+        grad = hess = None
+        for (eps, g, h, c), norm2 in zip(parts, ops_norm2(problem, ops)):
+            q = 1 - eps[0] / norm2
+            fs.append(2 - 2 * mp.sqrt(q))
+            coefs.append(c[0])
+            if g is not None:
+                dq = -g[0] / norm2
+                gf = -dq / mp.sqrt(q)
+                grad = gf if grad is None else grad + gf
+            if h is not None:
+                d2q = -h[0] / norm2
+                hf = -d2q / mp.sqrt(q) + np.outer(dq, dq) / (2 * q * mp.sqrt(q))
+                hess = hf if hess is None else hess + hf
         tofloat = np.vectorize(float, otypes=[float])
-        return ([e[0] for e in eps], None if grad is None else tofloat(grad[0]),
-                None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
+        return (fs, None if grad is None else tofloat(grad),
+                None if hess is None else tofloat(hess), [tofloat(c) for c in coefs])
+
+
+def ops_norm2(problem, ops):
+    """‖φ‖² per target at the working precision (the closed form of analytic.sto_h1_norm2)."""
+    return problem.norm2_of(ops)

@@ -158,6 +158,25 @@ class Problem:
                 jac.append(-(term1 + q @ rinv_t))
         return np.concatenate(res), (np.vstack(jac) if jacobian else None), coefs, eps
 
+    def objective(self, log_alpha: np.ndarray):
+        """The published objective from the sampled residual: per target f = ‖φ̂ − χ̂‖², φ̂ and
+        the optimal χ̂ normalised in the norm (Hehre, Stewart & Pople 1969; Stewart 1970: ∫(φ − χ)²
+        with ‖χ‖ = 1), and the gradient of Σf in ln α. The residual r = b − χ is orthogonal to
+        χ, so ‖χ‖² = ‖b‖² − ε and f = 2(1 − ‖χ‖/‖b‖) = 2e/(1 + √(1 − e)), e = ε/‖b‖² (‖b‖² the
+        sampled ‖φ‖²); ∂f = ∂ε/(‖b‖² √(1 − e)). Returns (f per target, ∇Σf)."""
+        res, jac, _, eps = self.solve(log_alpha)
+        fs, grad = [], np.zeros(len(log_alpha))
+        start = 0
+        for b, e_abs in zip(self.b, eps):
+            rows = slice(start, start + b.size)
+            start += b.size
+            norm2 = float(b @ b)
+            e = e_abs / norm2
+            root = math.sqrt(1.0 - e)
+            fs.append(2.0 * e / (1.0 + root))
+            grad += 2.0 * jac[rows].T @ res[rows] / (norm2 * root)
+        return fs, grad
+
 
 # √ of the smallest reciprocal condition number of the Gaussian overlap matrix accepted:
 # cond(G) = cond(A)² ≤ 1e14 (common practice, no source: beyond it the coefficients lose more

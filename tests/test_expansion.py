@@ -1,8 +1,13 @@
-"""STO-nG least-squares expansions (stobuilder.expansion) against published tables and exact results.
+"""STO-nG expansions (stobuilder.expansion) against published tables and exact results.
+
+The objective of [HSP69] and [S70], which our fits minimise: Σ ∫(φ − χ)² over the subshells
+sharing exponents, each contraction χ normalised, = Σ 2(1 − √q) with q = sᵀG⁻¹s; ε below is a
+subshell's term of it.
 
 References used below:
   [HSP69]  W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)   (STO-3G, STO-nG)
   [S70]    R. F. Stewart, J. Chem. Phys. 52, 431 (1970)                              (STO-nG, n ≤ 6)
+  [HDSP70] W. J. Hehre, R. Ditchfield, R. F. Stewart, J. A. Pople, J. Chem. Phys. 52, 2769 (1970) (Na–Ar)
   [P80/83] W. J. Pietro et al., J. Am. Chem. Soc. 102, 2225 (1980); J. Comput. Chem. 4, 241 (1983)
   [GR]     Gradshteyn & Ryzhik, Table of Integrals, 7th ed. (2007), 3.462.1
   [SO]     A. Szabo, N. S. Ostlund, Modern Quantum Chemistry (1982/1989), ch. 3
@@ -10,7 +15,8 @@ References used below:
 
 Conventions checked against PySCF's files: their coefficients refer to normalised primitives and
 give a contraction of norm 1 (within 1e-7, the rounding of the printed digits), not the
-least-squares optimum (norm √(1 − ε)); our stored coefficients follow the same convention.
+unnormalised least-squares optimum (norm² q = 1 − ε + ε²/4); our stored coefficients follow the
+same convention.
 """
 
 from __future__ import annotations
@@ -33,9 +39,65 @@ from stobuilder.expansion import Fit, fit_sto, library_families, lookup
 from stobuilder.expansion.analytic import gaussian_overlap
 
 BASIS_DIR = os.path.join(os.path.dirname(pyscf.__file__), "gto", "basis")
-EXP_TOL = 1e-5  # relative, exponents at ζ = 1 vs ours (task specification)
-COEF_TOL = 1e-5  # absolute, coefficients vs ours (task specification: same scale as the exponents)
+EXP_TOL = 1e-5  # relative, exponents at ζ = 1 vs ours (task specification; the printed-precision test is tighter)
+COEF_TOL = 1e-5  # absolute, coefficients vs ours (task specification; the printed-precision test is tighter)
 EPS_TOL = 1e-7  # relative slack on "our ε ≤ stored ε" (task specification)
+
+
+def printed_unit(token: str) -> float:
+    """One unit in the last printed digit of a number as the file prints it ("0.3775056000D-02":
+    trailing zeros are padding of the fixed-width columns, so 1e-9 here; common practice, no source)."""
+    mantissa, _, exponent = token.upper().replace("D", "E").partition("E")
+    decimals = len(mantissa.partition(".")[2].rstrip("0"))
+    return 10.0 ** (int(exponent or 0) - decimals)
+
+
+def allowed(token: str, zeta2: float | None = None) -> float:
+    """|stored − ours| allowed for one printed number: half a unit in its last digit (its own
+    rounding), plus, where the file itself carries a rounding of an earlier rounded number, that
+    one's half unit (common practice, no source):
+    - an exponent (``zeta2`` given) is ζ² × a ζ = 1 value the papers printed with as many
+      significant digits (Hehre, Stewart & Pople 1969; Stewart 1970; Pietro et al. 1980/83
+      tabulate ζ = 1 sets and the scaling ζ² with 2-decimal ζ), so it may be off by that value's
+      half unit × ζ² too;
+    - coefficients printed with 10 decimals (Pietro et al., K–I) carry the published fit's own
+      convergence, ~1e-11 (measured ≤ 0.75 units): one unit; with fewer decimals half a unit.
+    """
+    unit = printed_unit(token)
+    mantissa = token.upper().replace("D", "E").partition("E")[0].lstrip("-")
+    if zeta2 is not None:
+        value = abs(float(token.upper().replace("D", "E")))
+        digits = len(mantissa.replace(".", "").rstrip("0").lstrip("0"))
+        source = value / zeta2
+        source_unit = 10.0 ** (math.floor(math.log10(source)) - digits + 1)
+        return 0.5 * unit + 0.5 * source_unit * zeta2
+    return (1.0 if len(mantissa.partition(".")[2]) >= 10 else 0.5) * unit
+
+
+def printed_tokens(fname, symbol):
+    """{exponents tuple: {"ex": tokens, l: tokens}} of one element as printed in the file."""
+    out, rows, kind = {}, None, None
+
+    def close():
+        if rows:
+            ex = tuple(float(r[0].upper().replace("D", "E")) for r in rows)
+            entry = out.setdefault(ex, {"ex": [r[0] for r in rows]})
+            for j, l in enumerate({"S": [0], "P": [1], "D": [2], "F": [3], "SP": [0, 1]}[kind]):
+                entry[l] = [r[1 + j] for r in rows]
+
+    for line in open(os.path.join(BASIS_DIR, fname)):
+        parts = line.split()
+        if len(parts) == 2 and parts[1] in ("S", "SP", "P", "D", "F"):
+            close()
+            rows, kind = ([] if parts[0] == symbol else None), parts[1]
+            continue
+        if rows is not None and parts and parts[0][0] in "0123456789.-":
+            rows.append(parts)
+        elif rows is not None:
+            close()
+            rows = None
+    close()
+    return out
 
 
 # ---------------------------------------------------------------- PySCF's tables, block by block
@@ -86,24 +148,31 @@ def classify(block, n_gauss):
 
 
 def eps_of(ex, n, l, c=None):
-    """ε of a contraction of normalised primitives; c = None gives the least-squares optimum."""
+    """‖φ − χ‖² = ∫(φ − χ)² of a contraction χ of normalised primitives, χ normalised first (the
+    published objective, [HSP69]; a stored contraction is normalised only to its printed
+    digits); c = None gives the best normalised contraction at these exponents, 2(1 − √q) with
+    q = sᵀG⁻¹s."""
     ex = np.asarray(ex)
     g = gaussian_overlap(l, ex)
     s, _ = sto_gaussian_overlap(n, l, ex)
     if c is None:
-        return 1.0 - s @ np.linalg.solve(g, s)
+        return 2.0 * (1.0 - math.sqrt(s @ np.linalg.solve(g, s)))
     c = np.asarray(c)
-    return 1.0 - 2.0 * c @ s + c @ g @ c
+    return 2.0 * (1.0 - c @ s / math.sqrt(c @ g @ c))
 
 
 def analyse(fname, n_gauss):
-    """One record per block: family, ζ², exponent deviations, coefficient deviations, ε stored vs ours."""
+    """One record per block: family, ζ² (of ζ rounded to the two decimals of the published
+    values), exponent and coefficient deviations, ε stored vs ours, and ``items``: the numbers
+    that differ from ours by more than ``allowed`` (their printed precision)."""
     records = []
     for symbol in element_symbols(fname):
+        tokens = printed_tokens(fname, symbol)
         for b in blocks(fname, symbol):
             fam, fit = classify(b, n_gauss)
             ratio = np.array(b["ex"]) / np.array(fit.exponents)
             zeta2 = float(np.median(ratio))
+            zeta2_published = round(math.sqrt(zeta2), 2) ** 2  # every ζ of both files has 2 decimals
             exp_dev = ratio / zeta2 - 1.0
             coef_dev = {
                 label_of(fam, l): np.array(b["c"][l]) - np.array(fit.coefficients[label_of(fam, l)]) for l in b["c"]
@@ -114,8 +183,11 @@ def analyse(fname, n_gauss):
             )
             eps_ours = sum(fit.error[label_of(fam, l)] for l in b["c"])
             ls = "".join("spdf"[l] for l in sorted(b["c"]))
-            items = {f"exp{k}" for k in range(n_gauss) if abs(exp_dev[k]) > EXP_TOL}
-            items |= {f"c{lab}{k}" for lab, d in coef_dev.items() for k in range(n_gauss) if abs(d[k]) > COEF_TOL}
+            printed = tokens[b["ex"]]
+            items = {f"exp{k}" for k in range(n_gauss)
+                     if abs(b["ex"][k] - fit.exponents[k] * zeta2_published) > allowed(printed["ex"][k], zeta2_published)}
+            items |= {f"c{label_of(fam, l)}{k}" for l in b["c"] for k in range(n_gauss)
+                      if abs(coef_dev[label_of(fam, l)][k]) > allowed(printed[l][k])}
             records.append(
                 dict(symbol=symbol, fam=",".join(fam), ls=ls, block=b, fit=fit, zeta2=zeta2, exp_dev=exp_dev,
                      coef_dev=coef_dev, eps_stored=eps_stored, eps_ours=eps_ours, items=items)
@@ -133,40 +205,53 @@ def sto6g():
     return analyse("sto-6g.dat", 6)
 
 
-# Every block of sto-3g.dat that deviates from our fits by more than the tolerances, with the
-# defect established by refitting (see the dedicated tests below for the evidence).
+# Every block of sto-3g.dat that deviates from our fits by more than its printed precision
+# (``allowed``), with the defect established by refitting (see the dedicated tests below for the
+# evidence). Under the published objective (contractions normalised) every other number of the file
+# is ours to its printed digits; two defects claimed under the unnormalised one are withdrawn
+# (test_sto3g_2sp_is_the_normalised_optimum, test_sto3g_4s4p4d_is_the_normalised_optimum).
 Y_CD = ("Y", "Zr", "Nb", "Mo", "Tc", "Ru", "Rh", "Pd", "Ag", "Cd")
 IN_I = ("In", "Sn", "Sb", "Te", "I")
+EXP3 = {"exp0", "exp1", "exp2"}
 KNOWN_STO3G = {
+    # O 1s: second exponent 23.8088610 for 23.8088660 (test_sto3g_oxygen_1s_exponent_digit)
+    ("O", "1s", "s"): {"exp1"},
     # Y: exponents belong to other fits than the coefficients (test_sto3g_yttrium_mixed_fits)
-    ("Y", "3s,3p,3d", "sp"): {"exp0", "exp1"},
-    ("Y", "4s,4p,4d", "sp"): {"exp0", "exp1", "c4s1", "c4s2"},
-    ("Y", "3s,3p,3d", "d"): {"exp0", "exp2"},
-    ("Y", "4s,4p,4d", "d"): {"exp0", "exp2"},
+    ("Y", "3s,3p,3d", "sp"): EXP3,
+    ("Y", "4s,4p,4d", "sp"): EXP3 | {"c4s2"},
+    ("Y", "3s,3p,3d", "d"): EXP3,
+    ("Y", "4s,4p,4d", "d"): EXP3,
     # Zr: 5SP and valence-D exponent sets swapped (test_sto3g_zirconium_swapped_exponents)
-    ("Zr", "5s,5p", "sp"): {"exp0", "exp2"},
-    ("Zr", "4s,4p,4d", "d"): {"exp0", "exp2"},
-    # Y–Cd 4SP: 4s coefficient 1.1557874500 for 1.1155787450 (test_sto3g_4s_coefficient_transposed);
-    # c4s1 is the slightly unconverged published fit (test_sto3g_4s4p4d_published_fit_not_converged)
-    **{(s, "4s,4p,4d", "sp"): {"c4s1", "c4s2"} for s in Y_CD if s != "Y"},
-    **{(s, "4s,4p,4d", "spd"): {"c4s1"} for s in IN_I},
+    ("Zr", "5s,5p", "sp"): EXP3,
+    ("Zr", "4s,4p,4d", "d"): EXP3,
+    # Y–Cd 4SP: 4s coefficient 1.1557874500 for 1.1155787450 (test_sto3g_4s_coefficient_transposed)
+    **{(s, "4s,4p,4d", "sp"): {"c4s2"} for s in Y_CD if s != "Y"},
 }
 SC_ZN = ("Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn")
 GA_KR = ("Ga", "Ge", "As", "Se", "Br", "Kr")
+K_KR = ("K", "Ca") + SC_ZN + GA_KR
 ALL6 = {f"exp{k}" for k in range(6)}
 SP6 = {f"c3{x}{k}" for x in "sp" for k in range(6)}
 KNOWN_STO6G = {
     # 3SP coefficients of the [3s,3p] fit paired with exponents of the [3s,3p,3d] fit (test_sto6g_mixed_3sp)
     **{(s, "3s,3p", "sp"): ALL6 for s in SC_ZN},
     **{(s, "3s,3p,3d", "spd"): SP6 for s in GA_KR},
+    # B: exponents scattered by up to 4.3e-6 around ζ² times ours (test_sto6g_matches_stewart_closely)
+    ("B", "1s", "s"): ALL6,
+    ("B", "2s,2p", "sp"): {"exp0", "exp2", "exp3", "exp5"},
 }
+# K–Kr 4SP: the published ζ = 1 [4s,4p] set itself is off the optimum by up to 1.5e-7 relative,
+# the same for every element (test_sto6g_4sp_published_fit_not_converged); which of its exponents
+# exceed their printed precision depends on the element's ζ², so these blocks are listed by family.
+OFF_4SP_STO6G = {(s, "4s,4p", "sp") for s in K_KR}
 
 
 def test_pyscf_contractions_are_normalised(sto3g):
-    """PySCF's STO-3G coefficients give norm-1 contractions (as ours do), not the L2 optimum (norm² = 1 − ε).
+    """PySCF's STO-3G coefficients give norm-1 contractions (as ours do), not the unnormalised L2
+    optimum (norm² = q ≈ 1 − ε).
 
-    Measured: |norm² − 1| ≤ 0.01 ε for every consistent STO-3G block, where the least-squares
-    optimum would be off by exactly ε. (STO-6G cannot discriminate: its 4sp coefficients are
+    Measured: |norm² − 1| ≤ 0.01 ε for every consistent STO-3G block, where the unnormalised
+    least-squares optimum would be off by about ε. (STO-6G cannot discriminate: its 4sp coefficients are
     printed with 7 decimals, whose rounding alone moves norm² by ~2e-6 ≈ 2ε.)
     """
     for r in sto3g:
@@ -188,6 +273,9 @@ def test_reproduces_published_expansions(which, request):
     records = request.getfixturevalue(which)
     known = KNOWN_STO3G if which == "sto3g" else KNOWN_STO6G
     found = {(r["symbol"], r["fam"], r["ls"]): r["items"] for r in records if r["items"]}
+    if which == "sto6g":
+        off = {key: found.pop(key) for key in OFF_4SP_STO6G if key in found}
+        assert all(items <= ALL6 for items in off.values()) and len(off) >= 16
     assert found == known
     families = {r["fam"] for r in records}
     # every shell family in the files is covered (check by coefficients, see classify)
@@ -209,51 +297,133 @@ def test_our_error_never_larger_than_published(which, request):
 
 
 def test_sto6g_matches_stewart_closely(sto6g):
-    """Stewart's 1970 STO-6G [S70] is reproduced to < 2e-7 in exponents (extended-precision polish),
-    except boron, whose 1s and 2sp exponents scatter by up to 4.3e-6 (measured) around ζ² times
-    our fit: within the tolerance, but 100× worse than every other element, as if B were derived
-    from a less precise ζ = 1 table (the B 1s ζ from the median primitive is 4.679999582, not 4.68)."""
+    """Stewart's 1970 STO-6G [S70] is reproduced to < 2e-7 in exponents wherever it is consistent.
+    Boron (KNOWN_STO6G) is the exception: its 1s and 2sp exponents scatter by up to 4.3e-6
+    (measured) around ζ² times our fit, 100× worse than every other element, as if B were derived
+    from a less precise ζ = 1 table (the B 1s ζ from the median primitive is 4.679999582, not 4.68);
+    refitting cannot recover its digits (no other fit or ζ reproduces them), so it stays a defect."""
     for r in sto6g:
-        if r["items"]:
-            continue
         dev = float(np.max(np.abs(r["exp_dev"])))
         if r["symbol"] == "B":
-            assert 1e-6 < dev < EXP_TOL
-        else:
+            assert 1e-6 < dev < EXP_TOL and r["items"]
+        elif not r["items"]:
             assert dev < 2e-7, (r["symbol"], r["fam"])
 
 
-def test_sto3g_2sp_published_fit_not_converged(sto3g):
-    """[HSP69] 2sp (all of Li–I): first exponent 8.2e-6 off the exact optimum, ε higher by 6.6e-13.
+def _quadrature_fit(n_gauss, start):
+    """An independent fit of [2s, 2p] at ζ = 1 (a different method from the package's closed
+    forms and Newton search): overlaps ⟨φ|g_k⟩ by Gauss–Legendre quadrature in r = t/(1 − t),
+    the published objective Σ 2(1 − √q) with q = sᵀG⁻¹s ([HSP69]: ∫(φ − χ)² with ∫χ² = 1; G of
+    normalised Gaussians (2√(αβ)/(α+β))^(l+3/2), [SO] ch. 3) minimised by scipy's Nelder–Mead."""
+    from scipy.optimize import minimize
 
-    Not a transcription error: the same digits appear for every element, and the published
-    exponents with least-squares coefficients give ε = 1.00251370704e-3 against our
-    1.00251370638e-3 (mpmath check while developing; double precision resolves it too).
-    """
+    t, w = np.polynomial.legendre.leggauss(400)
+    t, w = (t + 1) / 2, w / 2
+    r, dr = t / (1 - t), 1 / (1 - t) ** 2
+    sto = r**2 * np.exp(-r) * 2**2.5 / math.sqrt(24)  # r·R(r) of the 2s and 2p STO, R = N r e^(−r)
+
+    def objective(x):
+        a = np.exp(x)
+        total = 0.0
+        for l in (0, 1):
+            g = r[:, None] ** (l + 1) * np.exp(-np.outer(r * r, a)) * np.sqrt(2 * (2 * a) ** (l + 1.5) / gamma(l + 1.5))
+            s = (w * dr * sto) @ g
+            total += 2 * (1 - math.sqrt(s @ np.linalg.solve(gaussian_overlap(l, a), s)))
+        return total
+
+    res = minimize(objective, np.log(start), method="Nelder-Mead",
+                   options={"xatol": 1e-11, "fatol": 1e-17, "maxiter": 4000})
+    return np.exp(res.x), res.fun
+
+
+def test_sto3g_2sp_is_the_normalised_optimum(sto3g):
+    """[HSP69] 2sp (Li–I): the stored digits are the optimum of the published objective, with the
+    contractions normalised. Withdrawn: the defect "first exponent 8.2e-6 off the optimum, not
+    converged" claimed before, which came from our minimising Σ(1 − q) (the unnormalised
+    least-squares errors) instead. Evidence: Li 2sp (ζ = 0.80 [HSP69]) divided by ζ² equals ours
+    to the printed digits (stored 0.6362897, 0.1478601, 0.0480887), and an independent quadrature
+    fit (``_quadrature_fit``, started from PySCF's stored digits ÷ ζ²) lands on our exponents to
+    3e-7 relative; its objective 1.002649306e-3 is ours (issue #22 measured 1.002649305984e-3 by
+    another independent quadrature fit)."""
     li = next(r for r in sto3g if r["symbol"] == "Li" and r["fam"] == "2s,2p")
-    assert li["exp_dev"][0] == pytest.approx(8.24e-6, abs=0.01e-6)  # measured, this comparison
-    ex = np.array(li["block"]["ex"]) / 0.64  # ζ(Li 2sp) = 0.80 [HSP69]
     ours = lookup(["2s", "2p"], 3)
-    stored_eps = eps_of(ex, 2, 0) + eps_of(ex, 2, 1)
-    assert stored_eps - ours.total_error == pytest.approx(6.6e-13, abs=0.3e-13)
+    assert not li["items"]
+    assert np.allclose(np.array(li["block"]["ex"]), np.array(ours.exponents) * 0.64, rtol=0, atol=1e-7)  # printed to 1e-7
+    alpha, value = _quadrature_fit(3, np.array(li["block"]["ex"]) / 0.64)
+    # the optimum is flat: a double-precision objective (rounding ~1e-16) places it to ~1e-7 in
+    # ln α (measured 1.2e-7; issue #22's quadrature fit: 0.99420288, 0.23103134, 0.07513856), far
+    # closer than the optimum of Σ(1 − q), 0.9941928 (our library before issue #22, 1e-5 away)
+    assert np.allclose(alpha, ours.exponents, rtol=3e-7)
+    assert abs(alpha[0] / 0.9941928 - 1) > 5e-6
+    assert value == pytest.approx(ours.total_error, rel=1e-10)
+    assert ours.total_error == pytest.approx(1.002649305984e-3, rel=1e-11)  # issue #22, independent quadrature fit
+    # PySCF's digits at ζ = 1 ([HSP69] 2sp of every element Li–I): 0.994203, 0.231031, 0.0751386
+    # (issue #22 table); ours rounds to them
+    assert [round(a, 6) for a in ours.exponents[:2]] == [0.994203, 0.231031] and round(ours.exponents[2], 7) == 0.0751386
 
 
-def test_sto3g_4s4p4d_published_fit_not_converged(sto3g):
-    """In–I [4s,4p,4d] (Pietro et al.): 4s c₂ = 0.0576109534 vs our 0.0576256; consistent with the published exponents.
+def test_sto3g_oxygen_1s_exponent_digit(sto3g):
+    """O 1s (sto-3g.dat): second exponent 23.8088610, where ζ² × the [HSP69] 1s set gives
+    23.808866 (0.405771156 × 7.66² = 23.80886604, [HSP69] 1s at ζ = 1; ours 23.80886605); the other two O
+    1s exponents and the 1s of every other element match to their printed digits, so this is one
+    digit (6 → 1 in the sixth decimal) of the transcription. Effect: 2.1e-7 relative on one
+    exponent."""
+    o = next(r for r in sto3g if r["symbol"] == "O" and r["fam"] == "1s")
+    assert o["block"]["ex"][1] == 23.808861  # PySCF sto-3g.dat as stored
+    assert round(lookup("1s", 3).exponents[1] * 7.66**2, 6) == 23.808866  # ζ(O 1s) = 7.66 [HSP69]
+    assert round(0.405771156 * 7.66**2, 6) == 23.808866  # [HSP69] 1s at ζ = 1
+    assert o["items"] == {"exp1"}
 
-    The least-squares coefficients at the published exponents reproduce the published 4s
-    coefficients to 1e-9, and our ε is lower: the published fit sits slightly off the optimum.
-    """
+
+def test_sto3g_4s4p4d_is_the_normalised_optimum(sto3g):
+    """In–I [4s,4p,4d] (Pietro et al. [P80/83]): the stored 4s coefficients are ours to the 10
+    printed decimals (4s c₁ = 0.0576109534 stored, ours 0.05761095337). Withdrawn: the defect
+    "published fit not converged, c₁ = 0.0576109534 vs our 0.0576256" claimed before, which was
+    the optimum of Σ(1 − q), not of the published objective."""
     r = next(r for r in sto3g if r["symbol"] == "In" and r["fam"] == "4s,4p,4d")
-    scaled = np.array(r["block"]["ex"]) / 4.65**2  # ζ(In 4sp) = 4.65 [P80/83]
-    g = gaussian_overlap(0, scaled)
-    s, _ = sto_gaussian_overlap(4, 0, scaled)
-    c = np.linalg.solve(g, s)
-    c /= math.sqrt(c @ g @ c)
-    assert np.max(np.abs(c - np.array(r["block"]["c"][0]))) < 1e-8
-    assert r["coef_dev"]["4s"][1] == pytest.approx(-1.4647e-5, abs=0.001e-5)  # measured
-    total_stored = sum(eps_of(scaled, 4, l) for l in range(3))
-    assert total_stored > lookup(["4s", "4p", "4d"], 3).total_error
+    assert not r["items"]
+    assert abs(r["coef_dev"]["4s"][1]) < 1e-10
+    for symbol in IN_I:
+        assert not next(x for x in sto3g if x["symbol"] == symbol and x["fam"] == "4s,4p,4d")["items"]
+
+
+def test_sto6g_4sp_published_fit_not_converged(sto6g):
+    """K–Kr 4SP ([S70] as stored in sto-6g.dat): the exponents are ζ² × one ζ = 1 set that lies
+    off the optimum of the published objective by up to 1.5e-7 relative (measured; beyond the 10
+    printed digits). Not a transcription error: the deviations from ours are the same for every
+    element (the same set scaled), and at that set the objective is higher than ours and its
+    gradient is not zero (ball arithmetic, 34 digits): the published fit was converged to ~1e-7."""
+    from stobuilder.expansion.analytic import Problem, Target
+
+    ours = lookup(["4s", "4p"], 6)
+    devs = []
+    for r in sto6g:
+        if (r["symbol"], r["fam"], r["ls"]) in OFF_4SP_STO6G:
+            devs.append(r["exp_dev"])
+    assert len(devs) == len(K_KR)
+    devs = np.array(devs)
+    assert np.max(np.abs(devs - devs[0])) < 2e-9  # one set for all (the printed digits' rounding)
+    assert 1e-7 < np.max(np.abs(devs[0])) < 2e-7
+    problem = Problem((Target(4.0, 0, 1.0), Target(4.0, 1, 1.0)), "l2")
+    k = next(r for r in sto6g if r["symbol"] == "K" and r["fam"] == "4s,4p")
+    stored = problem.evaluate_ball(np.log(np.array(k["block"]["ex"]) / 1.43**2), order=1)  # ζ(K 4sp) = 1.43
+    mine = problem.evaluate_ball(np.log(np.array(ours.exponents)), order=1)
+    assert sum(stored[0]) - sum(mine[0]) > 1e-17 and sum(mine[0]) == pytest.approx(ours.total_error, rel=1e-14)
+    assert np.max(np.abs(stored[1])) > 1e-10 > 1e-16 > np.max(np.abs(mine[1]))
+
+
+def test_sto6g_magnesium_is_a_copy_of_sodium(sto3g, sto6g):
+    """PySCF's sto-6g.dat Mg: every block equals Na's (exponents and coefficients), so its ζ are
+    Na's (1s 10.61, 2sp 3.48, 3sp 1.75) where Mg's are 11.59, 3.90, 1.70 (Hehre, Ditchfield, Stewart
+    & Pople 1970, as in sto-3g.dat). Found by the --gaussians 6 energies: the Mg atom comes out
+    1.6 hartree below the stored sto-6g (test_molecular_energies). Each block is a consistent fit,
+    so the block comparison above cannot see it."""
+    assert blocks("sto-6g.dat", "Mg") == blocks("sto-6g.dat", "Na")
+    zeta6 = {r["fam"]: round(math.sqrt(r["zeta2"]), 2) for r in sto6g if r["symbol"] == "Mg"}
+    zeta3 = {r["fam"]: round(math.sqrt(r["zeta2"]), 2) for r in sto3g if r["symbol"] == "Mg"}
+    na3 = {r["fam"]: round(math.sqrt(r["zeta2"]), 2) for r in sto3g if r["symbol"] == "Na"}
+    assert zeta6 == na3 == {"1s": 10.61, "2s,2p": 3.48, "3s,3p": 1.75}  # [HDSP70] Na
+    assert zeta3 == {"1s": 11.59, "2s,2p": 3.90, "3s,3p": 1.70}  # [HDSP70] Mg
 
 
 def test_sto3g_4s_coefficient_transposed(sto3g):
@@ -321,12 +491,13 @@ def test_sto6g_mixed_3sp(sto6g):
     """
     sp, spd = lookup(["3s", "3p"], 6), lookup(["3s", "3p", "3d"], 6)
     for r in sto6g:
-        if (r["symbol"], r["fam"], r["ls"]) not in KNOWN_STO6G:
+        if (r["symbol"], r["fam"], r["ls"]) not in KNOWN_STO6G or r["symbol"] == "B":
             continue
         z, spread = _proportional_to(r["block"]["ex"], ["3s", "3p", "3d"], 6)
         assert spread < 1e-7
         for l, lab in ((0, "3s"), (1, "3p")):
-            assert np.max(np.abs(np.array(r["block"]["c"][l]) - np.array(sp.coefficients[lab]))) < 1e-7
+            # the [3s,3p] fit's to the printed 10 digits (measured 3.7e-11)
+            assert np.max(np.abs(np.array(r["block"]["c"][l]) - np.array(sp.coefficients[lab]))) < 1e-10
         scaled = np.array(r["block"]["ex"]) / z**2
         stored = sum(eps_of(scaled, 3, l, r["block"]["c"][l]) for l in (0, 1))
         assert stored > spd.error["3s"] + spd.error["3p"]
@@ -370,7 +541,7 @@ def test_sto1g_exact():
     assert fit.coefficients["1s"][0] == pytest.approx(1.0, abs=1e-15)
     # s = N_sto N_g I_3 with N_sto = 2, N_g = (2^(7/2) α^(3/2) / Γ(3/2))^(1/2)
     s = 2.0 * math.sqrt(2 * (2 * root) ** 1.5 / gamma(1.5)) * i(3, root)
-    assert fit.error["1s"] == pytest.approx(1 - s * s, rel=1e-9)
+    assert fit.error["1s"] == pytest.approx(2 * (1 - s), rel=1e-9)  # ‖φ − g‖² of two unit functions
     energy_opt = brentq(lambda a: 1.5 - math.sqrt(2 / (math.pi * a)), 0.05, 1.0, xtol=1e-15)
     assert energy_opt == pytest.approx(8 / (9 * math.pi), rel=1e-12)
     assert abs(fit.exponents[0] - 8 / (9 * math.pi)) > 0.01

@@ -1,6 +1,9 @@
-"""The fit problem in closed form: ε = ‖φ‖² − sᵀG⁻¹s of several STOs sharing one set of Gaussian
-exponents, its gradient and its exact Hessian in ln α, L² or H¹ norm (``Problem``), evaluated in
-double precision (batched over exponent sets: the search) or in Arb ball arithmetic (the finish).
+"""The fit problem in closed form: the objective Σ 2(1 − √q) of several STOs sharing one set of
+Gaussian exponents (q = sᵀG⁻¹s/‖φ‖², the squared cosine between an STO and the Gaussian span;
+2(1 − √q) = ‖φ − χ‖² with φ and the best contraction χ normalised: Hehre, Stewart & Pople 1969,
+Stewart 1970), its gradient and its exact Hessian in ln α, L² or H¹ norm (``Problem``), evaluated
+in double precision (batched over exponent sets: the search) or in Arb ball arithmetic (the
+finish). Below, ε = ‖φ‖² − sᵀG⁻¹s is the residual the objective is formed from (``assembly``).
 
 The jobs around it: ``radial_tables`` supplies the radial integrals I_ν(α, ζ) = ∫_0^∞ r^(ν−1)
 e^(−αr² − ζr) dr that every STO–Gaussian overlap is made of (Gaussian–Gaussian overlaps are
@@ -164,9 +167,10 @@ class Problem:
 
     # ------------------------------------------------------------------ evaluations
     def evaluate_batch(self, log_alpha: np.ndarray, order: int = 1):
-        """Double precision for a batch of exponent sets x (S, N): (ε per target as (S,) arrays,
-        Σε (S,), ∇Σε (S, N), Hessian (S, N, N), coefficients per target (S, N)); gradient and
-        Hessian None below ``order`` (0, 1, 2). Σε is +inf where a set leaves the exponent range
+        """Double precision for a batch of exponent sets x (S, N): (the objective 2(1 − √q) per
+        target as (S,) arrays, their sum (S,), its gradient (S, N) and Hessian (S, N, N), the
+        optimal coefficients c = G⁻¹s per target (S, N)); gradient and Hessian None below
+        ``order`` (0, 1, 2). The sum is +inf where a set leaves the exponent range
         or its Gram matrix is numerically singular."""
         x = np.array(log_alpha, dtype=float)
         inside = self.inside(x)
@@ -184,8 +188,8 @@ class Problem:
         return eps, total, grad, hess, coefs
 
     def evaluate(self, log_alpha: np.ndarray, order: int = 1):
-        """One exponent set in double precision: (ε per target, ∇Σε, Hessian, coefficients per
-        target), None outside the exponent range or for a numerically singular Gram matrix."""
+        """One exponent set in double precision: (objective per target, its gradient and Hessian,
+        coefficients per target), None outside the exponent range or for a numerically singular Gram matrix."""
         x = np.asarray(log_alpha, dtype=float)
         eps, total, grad, hess, coefs = self.evaluate_batch(x[None, :], order)
         if not np.isfinite(total[0]):
@@ -195,7 +199,7 @@ class Problem:
 
     def evaluate_ball(self, log_alpha: np.ndarray, order: int = 1, with_total: bool = False):
         """As ``evaluate`` in Arb ball arithmetic (python-flint) at BALL_BITS bits, everything
-        returned rounded to float (ε is resolved to ~1e-30 absolute before rounding). The I_ν come
+        returned rounded to float (the objective is resolved to ~1e-30 absolute before rounding). The I_ν come
         from ``radial_tables.BallTable`` (~3e-37 relative), or where its series has not converged
         from the closed forms at a working precision raised until Arb's error bound is below
         2^-BALL_BITS; the linear algebra uses Arb's midpoint solver, so the results are accurate
@@ -232,7 +236,7 @@ class Problem:
             tofloat = np.vectorize(lambda v: float(v.mid()), otypes=[float])
             out = ([float(e[0].mid()) for e in eps], None if grad is None else tofloat(grad[0]),
                    None if hess is None else tofloat(hess[0]), [tofloat(c[0]) for c in coefs])
-            if with_total:  # Σε as a pair (high, low) of doubles, for comparisons finer than an ulp
+            if with_total:  # the objective as a pair (high, low) of doubles, for comparisons finer than an ulp
                 high = float(total[0].mid())
                 out = out + ((high, float((total[0] - high).mid())),)
             return out

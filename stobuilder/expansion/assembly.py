@@ -1,14 +1,19 @@
-"""Assembly of the fit objective by variable projection: ε per target, Σε, its gradient and its
-exact Hessian in x = ln α from the Gram matrices G, the overlaps s = ⟨φ|g_k⟩ and their
-derivatives, in any backend of ``arithmetic`` (``assemble``; batched over exponent sets) or, in
-double precision, with every target and every angular momentum in one array
-(``assemble_double``).
+"""Assembly of the fit objective by variable projection: per target the normalised objective
+f = 2(1 − √q), Σf, its gradient and its exact Hessian in x = ln α from the Gram matrices G, the
+overlaps s = ⟨φ|g_k⟩ and their derivatives, in any backend of ``arithmetic`` (``assemble``;
+batched over exponent sets) or, in double precision, with every target and every angular momentum
+in one array (``assemble_double``).
 
-With c = G⁻¹s optimal, ε = ‖φ‖² − sᵀc and ∂ε/∂x_k = −2 c_k ∂s_k/∂x_k + 2 c_k Σ_j c_j ∂G_kj/∂x_k
-(the partial derivative taken in the first index only; G. H. Golub, V. Pereyra, SIAM J. Numer.
-Anal. 10, 413, 1973); the Hessian is derived in ``assemble``. The radial integrals I_ν the
-overlaps are made of come from ``radial_tables``; the problem (targets, norm, ‖φ‖², prefactors)
-from ``analytic.Problem``.
+The residual first (``residuals``): with c = G⁻¹s optimal, ε = ‖φ‖² − sᵀc and ∂ε/∂x_k =
+−2 c_k ∂s_k/∂x_k + 2 c_k Σ_j c_j ∂G_kj/∂x_k (the partial derivative taken in the first index
+only; G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413, 1973); its Hessian is derived in
+``assemble``. Then the objective (``normalised``): q = sᵀG⁻¹s/‖φ‖² = 1 − ε/‖φ‖² is the squared
+cosine between φ and the Gaussian span in the norm, and f = ‖φ/‖φ‖ − χ/‖χ‖‖² = 2(1 − √q) the
+squared distance between φ and the best contraction χ, both normalised (Hehre, Stewart & Pople
+1969; Stewart 1970: Σᵢ ∫(φᵢ − χᵢ)² with ‖χᵢ‖ = 1). Formed as f = 2e/(1 + √(1 − e)), e = ε/‖φ‖²,
+it keeps the relative accuracy of ε; ∂f = −∂q/√q and ∂²f = −∂²q/√q + ∂q∂qᵀ/(2q^(3/2)) with
+∂q = −∂ε/‖φ‖². The radial integrals I_ν the overlaps are made of come from ``radial_tables``; the
+problem (targets, norm, ‖φ‖², prefactors) from ``analytic.Problem``.
 """
 
 from __future__ import annotations
@@ -120,23 +125,40 @@ def _matvec(ops, m, v):
     return ops.matmul(m, v[..., None])[..., 0]
 
 
-def assemble(ops, problem: Problem, x, ints_per_target, order: int):
-    """ε per target, Σε, ∇Σε and the exact Hessian of Σε in ln α (variable projection, c = G⁻¹s),
-    batched over the rows of x (S, N).
+def normalised(ops, eps, grad, hess, norm2):
+    """The objective f = 2(1 − √q) of one target, q = 1 − ε/‖φ‖², its gradient and Hessian in
+    ln α from ε's (module docstring; batched: eps (S,), grad (S, N), hess (S, N, N), either of
+    the last two may be None). Arrays stand left of the backend's scalars (see ``_gram_parts``)."""
+    e = eps / norm2
+    root = ops.sqrt(e * -1 + 1)  # √q
+    f = e * 2 / (root + 1)
+    g = h = None
+    if grad is not None:
+        w1 = 1 / (root * norm2)  # 1/(‖φ‖² √q)
+        g = grad * w1[:, None]
+        if hess is not None:
+            w2 = w1 * w1 * w1 * (norm2 / 2)  # 1/(2 ‖φ‖⁴ q^(3/2))
+            h = hess * w1[:, None, None] + grad[:, :, None] * grad[:, None, :] * w2[:, None, None]
+    return f, g, h
 
-    ε = ‖φ‖² − sᵀc.  With u = s' − A c (A_kj = ∂₁G_kj; u_k = ⟨∂g_k/∂x_k, φ − χ⟩):
-    ∂ε/∂x_k = −2 c_k u_k.  With W = diag(u) − Aᵀ diag(c), ∂c/∂x = G⁻¹ W =: D, and
+
+def residuals(ops, problem: Problem, x, ints_per_target, order: int):
+    """Per target the residual ε = ‖φ‖² − sᵀc of the optimum c = G⁻¹s, its gradient and its exact
+    Hessian in ln α (None below ``order``), and c; batched over the rows of x (S, N). Also
+    whether every Gram matrix passed the MIN_RCOND check (valid, (S,)).
+
+    With u = s' − A c (A_kj = ∂₁G_kj; u_k = ⟨∂g_k/∂x_k, φ − χ⟩): ∂ε/∂x_k = −2 c_k u_k.  With
+    W = diag(u) − Aᵀ diag(c), ∂c/∂x = G⁻¹ W =: D, and
     ∂²ε/∂x_m∂x_n = −2 u_m D_mn − 2 δ_mn c_m (s''_m − (B c)_m) + 2 c_m C_mn c_n + 2 c_m (A D)_mn
     (B = ∂₁²G, C = ∂₁∂₂G; derived by differentiating G c = s; checked against finite
-    differences in the tests).  Returns (eps list of (S,), total (S,), grad, hess, coefs, valid).
+    differences in the tests). Returns ([(ε, ∇ε, ∇²ε, c) per target], valid).
     """
     size = x.shape[1]
     diag = np.arange(size)
     alpha = ops.exp(x)
     grams: dict[int, tuple] = {}
     shared = _gram_shared(ops, x, alpha)
-    eps, coefs = [], []
-    grad = hess = None
+    out = []
     valid = np.ones(x.shape[0], dtype=bool)
     scale = ops.const(problem.scale)
     for t, norm2, ints in zip(problem.targets, problem.norm2_of(ops), ints_per_target):
@@ -150,24 +172,42 @@ def assemble(ops, problem: Problem, x, ints_per_target, order: int):
         s, s1, s2 = _overlap_parts(t, alpha, ints, problem.h1, scale, ops.const(t.zeta),
                                    ops.const(t.n_eff) - 1 - t.l, order, pre)
         coef = solve(s)
-        eps.append(-ops.total(s * coef) + norm2)
-        coefs.append(coef)
+        eps = -ops.total(s * coef) + norm2
+        g_t = h_t = None
         if order >= 1:
             u = s1 - _matvec(ops, a, coef)
-            grad = (coef * u * -2) if grad is None else grad - coef * u * 2
+            g_t = coef * u * -2
         if order >= 2:
             w = -(np.swapaxes(a, 1, 2) * coef[:, None, :])
             w[:, diag, diag] += u
             d = solve(w)
-            h = u[:, :, None] * d * -2 + coef[:, :, None] * c * coef[:, None, :] * 2 + coef[:, :, None] * ops.matmul(a, d) * 2
-            h[:, diag, diag] -= coef * (s2 - _matvec(ops, b, coef)) * 2
-            hess = h if hess is None else hess + h
-    if hess is not None:
-        hess = (hess + np.swapaxes(hess, 1, 2)) / 2
-    total = eps[0]
-    for e in eps[1:]:
-        total = total + e
-    return eps, total, grad, hess, coefs, valid
+            h_t = u[:, :, None] * d * -2 + coef[:, :, None] * c * coef[:, None, :] * 2 + coef[:, :, None] * ops.matmul(a, d) * 2
+            h_t[:, diag, diag] -= coef * (s2 - _matvec(ops, b, coef)) * 2
+            h_t = (h_t + np.swapaxes(h_t, 1, 2)) / 2
+        out.append((eps, g_t, h_t, coef))
+    return out, valid
+
+
+def assemble(ops, problem: Problem, x, ints_per_target, order: int):
+    """f = 2(1 − √q) per target, Σf, ∇Σf and the exact Hessian of Σf in ln α (``residuals``, then
+    ``normalised``), batched over the rows of x (S, N). Returns (f list of (S,), total (S,),
+    grad, hess, coefs, valid); the coefficients are the optimum c = G⁻¹s of the norm (not
+    normalised: χ = Σ c_k g_k has ‖χ‖² = sᵀc = q ‖φ‖²)."""
+    parts, valid = residuals(ops, problem, x, ints_per_target, order)
+    objectives, coefs = [], []
+    grad = hess = None
+    for (eps, g_t, h_t, coef), norm2 in zip(parts, problem.norm2_of(ops)):
+        f, g_t, h_t = normalised(ops, eps, g_t, h_t, norm2)
+        objectives.append(f)
+        coefs.append(coef)
+        if g_t is not None:
+            grad = g_t if grad is None else grad + g_t
+        if h_t is not None:
+            hess = h_t if hess is None else hess + h_t
+    total = objectives[0]
+    for f in objectives[1:]:
+        total = total + f
+    return objectives, total, grad, hess, coefs, valid
 
 
 def assemble_double(problem: Problem, x: np.ndarray, ints: np.ndarray, order: int):
@@ -204,19 +244,31 @@ def assemble_double(problem: Problem, x: np.ndarray, ints: np.ndarray, order: in
             s2 = s2 + fh * (k0 * (pt / 2 + 1) ** 2 - alpha[None] * k2 * (pt + 3) + alpha[None] ** 2 * k4)
     coef = gl(gt, s[..., None])[..., 0]  # (T, S, N)
     eps = k["norm2"][:, None] - np.einsum("tsk,tsk->ts", s, coef)
-    total = eps.sum(axis=0)
-    grad = hess = None
+    grad_t = hess_t = None
     if order >= 1:
         at = a[li]
         u = s1 - np.einsum("tsij,tsj->tsi", at, coef)
-        grad = (coef * u * -2).sum(axis=0)
+        grad_t = coef * u * -2
     if order >= 2:
         w = -(np.swapaxes(at, 2, 3) * coef[:, :, None, :])
         w[:, :, diag, diag] += u
         d = gl(gt, w)
-        h = (u[..., None] * d * -2 + coef[..., :, None] * c[li] * coef[..., None, :] * 2
-             + coef[..., :, None] * (at @ d) * 2)
-        h[:, :, diag, diag] -= coef * (s2 - np.einsum("tsij,tsj->tsi", b[li], coef)) * 2
-        hess = h.sum(axis=0)
-        hess = (hess + np.swapaxes(hess, 1, 2)) / 2
-    return list(eps), total, grad, hess, list(coef), valid
+        hess_t = (u[..., None] * d * -2 + coef[..., :, None] * c[li] * coef[..., None, :] * 2
+                  + coef[..., :, None] * (at @ d) * 2)
+        hess_t[:, :, diag, diag] -= coef * (s2 - np.einsum("tsij,tsj->tsi", b[li], coef)) * 2
+        hess_t = (hess_t + np.swapaxes(hess_t, 2, 3)) / 2
+    # the normalised objective of every target at once (``normalised``, with a target axis)
+    norm2 = k["norm2"][:, None]
+    e = eps / norm2
+    root = np.sqrt(1.0 - e)
+    f = e * 2 / (root + 1)
+    total = f.sum(axis=0)
+    grad = hess = None
+    if grad_t is not None:
+        w1 = 1.0 / (root * norm2)
+        grad = (grad_t * w1[..., None]).sum(axis=0)
+        if hess_t is not None:
+            w2 = w1 * w1 * w1 * (norm2 / 2)
+            hess = (hess_t * w1[..., None, None]
+                    + grad_t[..., :, None] * grad_t[..., None, :] * w2[..., None, None]).sum(axis=0)
+    return list(f), total, grad, hess, list(coef), valid

@@ -1,22 +1,28 @@
 """STO-nG expansions: one set of Gaussian exponents shared by several subshells, L² or H¹ norm.
 
 Method: W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969) and R. F. Stewart,
-J. Chem. Phys. 52, 431 (1970). A normalised STO φ = N r^(n−1) e^(−ζr) Y_lm (ζ = 1 bohr⁻¹ for the
-first subshell of a fit) is expanded in normalised Gaussians g_k = N_k r^l e^(−α_k r²) Y_lm by
-minimising ε = ‖φ − Σ_k c_k g_k‖² in the chosen norm; subshells fitted jointly share the α_k and
-the objective is Σ ε. For fixed α the optimal c solve a linear problem, so only x = ln α is
-optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413, 1973).
-Everything is in closed form (stobuilder.expansion.analytic: ε, its gradient and its exact
-Hessian from analytic STO–Gaussian integrals; no quadrature grid). The search is a trust-region
+J. Chem. Phys. 52, 431 (1970). A normalised STO φᵢ = N r^(n−1) e^(−ζr) Y_lm (ζ = 1 bohr⁻¹ for the
+first subshell of a fit) is expanded in normalised Gaussians g_k = N_k r^l e^(−α_k r²) Y_lm, the
+contraction χᵢ = Σ_k c_ik g_k normalised, and subshells fitted jointly share the α_k. The
+objective is the published one, Σᵢ ‖φᵢ − χᵢ‖² with ‖φᵢ‖ = ‖χᵢ‖ = 1 (for the L² norm Σᵢ ∫(φᵢ − χᵢ)²
+with ∫χᵢ² = 1, as in those papers; for H¹ both normalised in H¹, the distance of unit vectors):
+for fixed α the best χᵢ is the normalised projection of φᵢ on the Gaussian span, and the
+objective is Σᵢ 2(1 − √qᵢ), qᵢ = sᵢᵀG⁻¹sᵢ/‖φᵢ‖² the squared cosine between φᵢ and the span
+(sᵢ = ⟨φᵢ|g_k⟩, G the Gram matrix, both in the norm). A single subshell has the optimum of qᵢ
+alone, as with the unnormalised least-squares error 1 − qᵢ; joint fits differ from that one. Only
+x = ln α is optimised (variable projection: G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10,
+413, 1973). Everything is in closed form (stobuilder.expansion.analytic and assembly: the
+objective, its gradient and its exact Hessian from analytic STO–Gaussian integrals; no
+quadrature grid). The search is a trust-region
 Newton method on the absolute-value Hessian (stobuilder.expansion.newton), run in double
 precision for all deterministic starts at once (one batched evaluation per iteration). Starts: continuation from
 the N − 1 fit (a new tight, a new diffuse or a new middle exponent) and even-tempered sets
 (K. Ruedenberg, R. C. Raffenetti, R. D. Bardo, in Energy, Structure and Reactivity, Wiley 1973:
 α_k = α₀ β^k). Double precision places an optimum only to the rounding level of the Gram form
-(ε ± ~5e-16), so every fit is finished by the same Newton method with ε and its gradient in
-113-bit ball arithmetic (python-flint), and its ε and coefficients are evaluated there; where ε
-itself is below EXT_ALL_BELOW, double precision cannot even rank the runs, and all of them are
-finished that way. A finishing run that would merge two exponents below MIN_RATIO stops there
+(ε ± ~5e-16; below, ε stands for the objective), so every fit is finished by the same Newton
+method with ε and its gradient in 113-bit ball arithmetic (python-flint), and its ε and
+coefficients are evaluated there; where ε itself is below EXT_ALL_BELOW, double precision cannot
+even rank the runs, and all of them are finished that way. A finishing run that would merge two exponents below MIN_RATIO stops there
 and is finished on that bound.
 """
 
@@ -39,7 +45,7 @@ NORMS = ("l2", "h1")
 MAX_N = 6
 MAX_L = 3
 # Version of the fitting algorithm: part of every cache key (a change invalidates cached fits).
-ALGORITHM = "vp-closed-form-newton-3"
+ALGORITHM = "vp-closed-form-newton-4-normalised"
 
 # The settings of the search around the Newton runs (the thresholds of the runs themselves are
 # newton.SearchSettings); tuned on the whole library, which they leave unchanged.
@@ -52,10 +58,10 @@ ET_STARTS = ((0.7, 0.0), (1.2, 0.0), (1.8, 0.0), (0.7, -1.0), (0.7, 1.0))
 NEW_END = 1.5  # ln α of a continuation's new tight (diffuse) exponent beyond the N − 1 fit's end
 GAPS = 3  # gap insertions tried beyond N = 6: the widest gaps (one start per gap costs N − 1 runs)
 CONSTRAINED_STARTS = 3  # the best runs with merging exponents that start the bounded fit
-# below EXT_ALL_BELOW × Σ‖φ‖² double precision cannot rank the runs (ε differences ~ 100 × the
+# below EXT_ALL_BELOW × the number of subshells (each term of the objective is relative) double precision cannot rank the runs (ε differences ~ 100 × the
 # rounding level SearchSettings.noise): every distinct run is finished in ball arithmetic
 EXT_ALL_BELOW = 1e-13
-# below this × Σ‖φ‖² the continuation starts from the finished N − 1 fit (double precision
+# below this × the number of subshells the continuation starts from the finished N − 1 fit (double precision
 # places that one poorly)
 PREVIOUS_FINISHED_BELOW = 1e-10
 NEAR_BOUND = 0.5  # ln of the ratio above MIN_RATIO below which the bounded finish is tried too
@@ -76,10 +82,12 @@ class Fit:
     norm : the fit criterion: "l2" least squares, "h1" the Sobolev norm ‖·‖² + ‖∇·‖² (gradient
         measured in units of the first subshell's 1/ζ, see stobuilder.expansion.analytic).
     exponents : α_k in bohr⁻² at ζ = 1, descending.
-    coefficients : label → c_k for normalised primitives (order of ``exponents``), rescaled so
-        that the contraction has L² norm exactly 1 (the optimum of either norm is not normalised:
-        the L² optimum has norm √(1 − ε)); the sign makes the contraction overlap the STO positively.
-    error : label → ε of the optimum in the norm that was minimised (dimensionless at ζ = 1).
+    coefficients : label → c_k for normalised primitives (order of ``exponents``): the best
+        contraction in the fitted norm, scaled to L² norm exactly 1 (the contraction as a basis
+        file writes it); the sign makes it overlap the STO positively.
+    error : label → the subshell's term of the objective, ‖φ − χ‖² = 2(1 − √q) with φ and χ
+        normalised in the fitted norm (dimensionless, scale-invariant); ``total_error`` is the
+        objective that was minimised.
     constrained : True when no interior minimum exists and the fit is the best one with every
         neighbouring exponent ratio ≥ MIN_RATIO (e.g. [6s, 6p] with N = 3).
     n_eff : label → non-integer effective n* of the STO r^(n*−1) e^(−ζr); empty: n* = n.
@@ -98,7 +106,7 @@ class Fit:
 
     @property
     def total_error(self) -> float:
-        """Σ of ε over the subshells: the objective that was minimised."""
+        """Σ over the subshells of ‖φ − χ‖² = 2(1 − √q): the objective that was minimised."""
         return math.fsum(self.error.values())
 
     def scaled(self, zeta: float) -> tuple[float, ...]:
@@ -238,7 +246,7 @@ def _search(targets: tuple[Target, ...], norm: str, n_gauss: int):
         # continuation from the N − 1 search; where its ε is below PREVIOUS_FINISHED_BELOW
         # (double precision places it poorly), from the N − 1 fit finished in ball arithmetic
         prev_x, _, prev_f = _search(targets, norm, n_gauss - 1)[:3]
-        tiny = prev_f < PREVIOUS_FINISHED_BELOW * math.fsum(problem.norm2)
+        tiny = prev_f < PREVIOUS_FINISHED_BELOW * len(problem.targets)
         previous = np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0] if tiny else prev_x)
     starts = _starts(n_gauss, targets, previous)
     f, x = newton(problem, np.array(starts))
@@ -280,7 +288,7 @@ def _fit_log_alpha(targets: tuple[Target, ...], norm: str, n_gauss: int):
     # EXT_ALL_BELOW, where double precision cannot rank the runs) from every distinct run and
     # from the starts of the finished N − 1 fit
     rows = [tuple(x)]
-    if search_f < EXT_ALL_BELOW * math.fsum(problem.norm2):
+    if search_f < EXT_ALL_BELOW * len(problem.targets):
         previous = None if n_gauss == 1 else np.array(_fit_log_alpha(targets, norm, n_gauss - 1)[0])
         fs, zs = newton(problem, np.array(_starts(n_gauss, targets, previous)))
         for zk in list(candidates) + [tuple(v) for fk, v in zip(fs, -np.sort(-zs, axis=1)) if math.isfinite(fk)]:
@@ -326,7 +334,9 @@ def fit_sto(
     n_eff: Mapping[str, float] | None = None,
     zeta_ratio: Mapping[str, float] | None = None,
 ) -> Fit:
-    """Fit N normalised Gaussians to normalised STOs, sharing the exponents.
+    """Fit N normalised Gaussians to normalised STOs, sharing the exponents: minimise
+    Σ ‖φ − χ‖² over the subshells, φ and each contraction χ normalised in the norm (Hehre,
+    Stewart & Pople 1969; Stewart 1970), = Σ 2(1 − √q) (module docstring).
 
     Parameters
     ----------
@@ -336,8 +346,8 @@ def fit_sto(
     gaussians : int
         Number N of primitives, 1 … 12.
     norm : str
-        "l2": least squares (Hehre, Stewart & Pople 1969); "h1": Sobolev norm with the gradient
-        term, ∫|φ−χ|² + ζ₁⁻² ∫|∇φ−∇χ|² (see stobuilder.expansion.analytic).
+        "l2": ∫|φ−χ|² (Hehre, Stewart & Pople 1969); "h1": Sobolev norm with the gradient term,
+        ∫|φ−χ|² + ζ₁⁻² ∫|∇φ−∇χ|² (see stobuilder.expansion.analytic); φ and χ normalised in it.
     n_eff : dict label → float, optional
         Effective principal quantum number n* (1 ≤ n* ≤ 8) of the radial form r^(n*−1) e^(−ζr),
         e.g. Slater's 3.7, 4.0, 4.2 (J. C. Slater, Phys. Rev. 36, 57, 1930); default n.

@@ -9,7 +9,8 @@ software stack is byte-identical (``python -m stobuilder.expansion.regenerate --
 Fits the library lacks (other subshell combinations, non-integer n*, unequal ζ ratios) are fitted
 on demand and cached, one small JSON file per fit, in the user's cache folder:
 ``$STOBUILDER_CACHE_DIR`` if set, else ``platformdirs.user_cache_dir("stobuilder")``, sub-folder
-``fits``. Files are written atomically; a damaged or foreign file is ignored and refitted. The
+``fits``. Files are written atomically with a SHA-256 of their entry; a damaged, foreign, edited or
+inconsistent file (``_consistent``) is ignored, refitted and rewritten. The
 package directory is never written to.
 """
 
@@ -81,11 +82,14 @@ def entry_to_fit(labels: tuple[str, ...], gaussians: int, norm: str, entry: dict
 
 
 _METHODS = {
-    "l2": "least-squares expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents "
-    "within a family (objective: sum of the squared L2 residual norms)",
+    "l2": "expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents within a family, "
+    "minimising the sum over the family of the squared L2 distances |phi - chi|^2 with the contraction chi "
+    "normalised, = 2(1 - sqrt(q)), q the squared cosine between the STO and the Gaussian span (the published "
+    "objective)",
     "h1": "expansion of normalised STOs at zeta = 1 in N normalised Gaussians sharing exponents within a family, "
-    "minimising the sum of the squared Sobolev H1 residual norms |f|^2 + |grad f|^2 (gradient in units of 1/zeta); "
-    "coefficients then rescaled to an L2-normalised contraction",
+    "minimising the sum over the family of the squared Sobolev H1 distances (|f|^2 + |grad f|^2, gradient in units "
+    "of 1/zeta) between the STO and the contraction, both normalised in H1, = 2(1 - sqrt(q)), q the squared H1 "
+    "cosine between the STO and the Gaussian span; coefficients then rescaled to an L2-normalised contraction",
 }
 
 
@@ -100,7 +104,8 @@ def provenance(norm: str = "l2") -> dict:
             "G. H. Golub, V. Pereyra, SIAM J. Numer. Anal. 10, 413 (1973)",
         ],
         "units": "exponents in bohr^-2 at zeta = 1 bohr^-1 (scale by zeta^2); coefficients for normalised "
-        "primitives, contraction normalised to 1; error = squared residual norm of the optimum in the fitted norm",
+        "primitives, contraction normalised to 1; error = per subshell the squared distance 2(1 - sqrt(q)) between "
+        "the STO and the contraction, both normalised in the fitted norm",
         "algorithm": ALGORITHM,
         "command": REGENERATE_COMMAND,
         "version": __version__,
@@ -150,19 +155,87 @@ def _write_atomic(path: Path, text: str) -> None:
     atomic_write(path, text)
 
 
-def _cached_fit(labels, gaussians, norm, n_eff, zeta_ratio) -> Fit:
-    """Read the fit from the user cache, or fit it and store it there (best effort: an unwritable
-    cache folder only costs the refit next time)."""
-    key = _cache_key(labels, gaussians, norm, n_eff, zeta_ratio)
-    path = cache_dir() / (hashlib.sha256(key.encode()).hexdigest()[:24] + ".json")
+def _entry_digest(key: str, entry: dict) -> str:
+    """SHA-256 of the cache key and the entry as written (sorted keys, repr floats): stored beside
+    the entry, so any change of its numbers (a damaged disk, an edit) is detected."""
+    return hashlib.sha256((key + "\n" + json.dumps(entry, sort_keys=True)).encode()).hexdigest()
+
+
+# How far a cached entry's numbers may be from what they claim (common practice, no source: the
+# double-precision re-evaluation of a ball-arithmetic fit, measured over the whole library, N ≤ 12,
+# both norms: the norm² of a contraction within 2e-15 of 1, the squared L2 distance of a
+# contraction from the normalised optimum at its exponents ≤ 1.5e-25, its error within 6e-15 of
+# the objective recomputed there).
+CACHE_NORM_TOL = 1e-12
+CACHE_DISTANCE_TOL = 1e-20
+CACHE_ERROR_TOL = 1e-13
+
+
+def _consistent(fit: Fit) -> bool:
+    """Whether a fit read from the cache is what it claims, re-evaluated in double precision at
+    its exponents: N positive, finite, descending exponents; per subshell N finite coefficients
+    whose contraction has L2 norm 1 and equals the L2-normalised optimum at those exponents; an
+    error equal to the objective 2(1 − √q) there (tolerances CACHE_*_TOL)."""
+    import math
+
+    import numpy as np
+
+    from .analytic import Problem, gaussian_overlap
+    from .fit import targets_for
+
+    alpha = np.array(fit.exponents, dtype=float)
+    if alpha.shape != (fit.gaussians,) or not np.all(np.isfinite(alpha)) or not np.all(alpha > 0):
+        return False
+    if fit.gaussians > 1 and not np.all(alpha[:-1] > alpha[1:]):
+        return False
+    problem = Problem(targets_for(fit.subshells, fit.n_eff, fit.zeta_ratio), fit.norm)
+    out = problem.evaluate(np.log(alpha), order=0)
+    if out is None:
+        return False
+    optimum, _, _, best = out
+    for t, label, f_best, c_best in zip(problem.targets, fit.subshells, optimum, best):
+        c = np.array(fit.coefficients[label], dtype=float)
+        error = fit.error[label]
+        if c.shape != alpha.shape or not np.all(np.isfinite(c)) or not math.isfinite(error):
+            return False
+        if abs(float(c @ gaussian_overlap(t.l, alpha) @ c) - 1.0) > CACHE_NORM_TOL:
+            return False
+        # the stored contraction is the optimum at the stored exponents, L2-normalised as fit_sto does
+        c_best = np.asarray(c_best, dtype=float)
+        c_best = c_best / math.sqrt(float(c_best @ gaussian_overlap(t.l, alpha) @ c_best))
+        d = c - c_best
+        if float(d @ gaussian_overlap(t.l, alpha) @ d) > CACHE_DISTANCE_TOL:
+            return False
+        if abs(error - f_best) > CACHE_ERROR_TOL + 1e-9 * f_best:
+            return False
+    return True
+
+
+def _read_cached(path: Path, key: str, labels, gaussians, norm) -> Fit | None:
+    """The fit in the cache file, or None when it is missing, damaged, foreign or inconsistent."""
     try:
         doc = json.loads(path.read_text(encoding="ascii"))
-        if doc.get("key") == key:
-            return entry_to_fit(labels, gaussians, norm, doc["fit"])
+        if doc.get("key") != key or doc.get("sha256") != _entry_digest(key, doc["fit"]):
+            return None
+        fit = entry_to_fit(labels, gaussians, norm, doc["fit"])
     except (OSError, ValueError, KeyError, TypeError, AttributeError):
-        pass
+        return None
+    return fit if _consistent(fit) else None
+
+
+def _cached_fit(labels, gaussians, norm, n_eff, zeta_ratio) -> Fit:
+    """Read the fit from the user cache, or fit it and store it there (best effort: an unwritable
+    cache folder only costs the refit next time). A file is used only when its checksum matches
+    and its numbers are consistent (``_consistent``); anything else is refitted and rewritten."""
+    key = _cache_key(labels, gaussians, norm, n_eff, zeta_ratio)
+    path = cache_dir() / (hashlib.sha256(key.encode()).hexdigest()[:24] + ".json")
+    fit = _read_cached(path, key, labels, gaussians, norm)
+    if fit is not None:
+        return fit
     fit = fit_sto(list(labels), gaussians, norm, n_eff=n_eff or None, zeta_ratio=zeta_ratio or None)
-    text = json.dumps({"key": key, "version": __version__, "fit": fit_to_entry(fit)}, indent=1) + "\n"
+    entry = fit_to_entry(fit)
+    text = json.dumps({"key": key, "version": __version__, "sha256": _entry_digest(key, entry), "fit": entry},
+                      indent=1) + "\n"
     try:
         _write_atomic(path, text)
     except OSError:

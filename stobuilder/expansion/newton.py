@@ -44,7 +44,8 @@ class SearchSettings:
     # or when the largest change of ln α in a step is below this: far below the 1e-5 relative to
     # which exponents are compared with published tables
     xtol: float = 1e-10
-    # absolute rounding level of ε in double precision, × Σ‖φ‖² (measured ≤ 5e-16 against the
+    # absolute rounding level of ε in double precision, × the number of subshells (each term
+    # 2(1 − √q) is relative to its ‖φ‖²) (measured ≤ 5e-16 against the
     # ball evaluation with G, s and the prefactors accurate to a few ulp)
     noise: float = 1e-15
     # first radius: a factor 1.65 in α, below the spacing of neighbouring ln α in the
@@ -202,7 +203,7 @@ def newton(problem: Problem, z0: np.ndarray, settings: SearchSettings = SEARCH, 
     """
     evaluate = _Evaluator(problem, transform, extended)
     # absolute rounding level of ε = ‖φ‖² − sᵀc in double precision (none in ball arithmetic)
-    noise = 0.0 if extended else settings.noise * math.fsum(problem.norm2)
+    noise = 0.0 if extended else settings.noise * len(problem.targets)
     z = np.array(z0, dtype=float)
     f, g, h, low = evaluate(z)
     runs = _Runs(z, f, g, h, low, np.full(len(z), settings.radius_start), np.isfinite(f),

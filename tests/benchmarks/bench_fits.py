@@ -5,7 +5,7 @@ of the test run).
 
 Reports wall times of fresh fits (in-process caches cleared before each, so an N = 12 fit includes
 its continuation chain N = 1 … 11; best of 3) and, as the reference measured in the same run, the
-time of one closed-form evaluation (ε, gradient and Hessian) for a batch of 8 exponent sets, so
+time of one closed-form evaluation (the objective, its gradient and Hessian) for a batch of 8 exponent sets, so
 that figures from different machines (or from one machine in different states: this one varies
 by ±30 %) can be compared as ratios. The tables of I_ν that the fits build on first use are
 process-wide and so are warm in these repeats; ``--cold`` times the first fit of fresh processes.
