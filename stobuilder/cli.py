@@ -372,7 +372,7 @@ def _cmd_atom(args) -> int:
     if args.json:
         _print_json(doc)
         return 0
-    print(f"{doc['element']} {doc['configuration']}: {doc['state']}")
+    print(doc["state"])  # names the element, its configuration and the determinant computed
     source = "optimised" if args.optimize else f"rule {args.rule}" + (", your own ζ" if args.zeta else "")
     print(f"  STOs ({source}): " + "  ".join(f"{k} {v:.6f}" for k, v in doc["zeta"].items()))
     print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}"
