@@ -93,7 +93,10 @@ def read_toml(path, what: str) -> tuple[dict, str]:
     where = f"{what} {str(path)!r}"
     try:
         with open(path, "rb") as fh:
-            return tomllib.load(fh), where
+            data = fh.read()
+        if data.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark, as some editors write
+            data = data[3:]
+        return tomllib.loads(data.decode("utf-8")), where
     except OSError as err:
         raise InputError(f"{where}: cannot read it ({err.strerror})") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:

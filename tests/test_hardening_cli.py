@@ -155,6 +155,18 @@ def test_a_zeta_file_cannot_name_one_element_or_subshell_twice(hydrogen, tmp_pat
     assert not (tmp_path / "out").exists()
 
 
+def test_a_zeta_file_with_a_utf8_byte_order_mark_is_read(hydrogen, tmp_path, capsys):
+    path = tmp_path / "z.toml"
+    path.write_bytes(b"\xef\xbb\xbf[H]\n1s = 1.24\n")  # the BOM some editors put first
+    code, out, err = _run(["build", hydrogen, "--zeta-file", str(path), "--json", "--out", str(tmp_path / "out")],
+                          capsys)
+    assert code == 0, err
+    assert "1s 1.240000" in (tmp_path / "out" / "h.nw").read_text()
+    import stobuilder
+
+    assert stobuilder.load_zeta_file(str(path)) == {"H": {"1s": 1.24}}
+
+
 # ---------------------------------------------------------------------------- atom --json
 
 
