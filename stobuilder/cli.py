@@ -581,6 +581,16 @@ def _quiet_broken_pipe() -> int:
     return EXIT_BROKEN_PIPE
 
 
+def _flag_text(exc: InputError) -> str:
+    """The message of ``exc`` in the command line's words: an option's error (``OptionError``,
+    which names the Python argument) names the option's flag instead."""
+    from .options import CLI_FLAGS, OptionError
+
+    if isinstance(exc, OptionError):
+        return exc.named(CLI_FLAGS.get(exc.option, exc.option))
+    return str(exc)
+
+
 def main(argv=None) -> int:
     try:
         _StderrHandler.install()
@@ -591,7 +601,7 @@ def main(argv=None) -> int:
     except BrokenPipeError:
         return _quiet_broken_pipe()
     except InputError as exc:
-        print(f"stobuilder: error: {exc}", file=sys.stderr)
+        print(f"stobuilder: error: {_flag_text(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""

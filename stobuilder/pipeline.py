@@ -26,6 +26,7 @@ from .build import build_basis
 from .checks import Check
 from .errors import InputError
 from .files import check_targets, create_bytes, replace_bytes, write_all
+from .limits import one_line
 from .formats import format_for_path, get_format, merge_basis, render_checked
 from .methods import pick_method
 from .naming import output_file, structure_name
@@ -120,8 +121,9 @@ def basis_key(frames: Sequence[Structure], options: BuildOptions) -> tuple:
     """The content key of a basis: everything ``basis_for`` looks at (the element set, a single
     atom's charge, the options that shape it)."""
     elements = elements_of(tuple(frames))
+    zeta = options.zeta_for(elements) or {}
     return (elements, _single_atom_charge(frames), options.rule, options.gaussians, options.norm,
-            options.exponents, options.radial, tuple((s, t) for s, t in options.zeta if s in elements))
+            options.exponents, options.radial, tuple((s, tuple(sorted(t.items()))) for s, t in sorted(zeta.items())))
 
 
 def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
@@ -244,12 +246,23 @@ def claim_target(sources: dict[str, str], target: str, path: str) -> None:
 
 
 def check_zeta_elements(options: BuildOptions, frames) -> None:
-    """InputError when the options' ζ overrides name an element in none of ``frames``."""
-    named = {s for s, _ in options.zeta}
-    if named:
-        missing = named - {s for f in frames for s in f.symbols}
-        if missing:
-            raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(missing))}")
+    """Before any SCF: every element the options' ``zeta`` names is in one of ``frames`` (a typo
+    guard), and the zeta file's library (``zeta_library``), which is applied where its elements
+    occur, names at least one element of them. OptionError of ``zeta`` / ``zeta_file`` otherwise
+    (the CLI names ``--zeta`` / ``--zeta-file``)."""
+    from .elements import atomic_number
+
+    from .options import OptionError
+
+    present = {s for f in frames for s in f.symbols}
+    missing = {s for s, _ in options.zeta} - present
+    if missing:
+        raise OptionError("zeta", f" names elements in no structure: {', '.join(sorted(missing, key=atomic_number))}")
+    library = [s for s, _ in options.zeta_library]
+    if library and not present & set(library):
+        where = ("zeta_file", f" {one_line(options.zeta_file)}:") if options.zeta_file else ("zeta_library", ":")
+        raise OptionError(where[0], f"{where[1]} it names {', '.join(sorted(library, key=atomic_number))}, none of "
+                                    f"the elements of the structures ({', '.join(sorted(present, key=atomic_number))})")
 
 
 def union_basis(bases: Sequence[Basis]) -> Basis:
