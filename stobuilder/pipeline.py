@@ -166,7 +166,7 @@ def prepare(
             cache[("basis", key)] = basis
     if options.check:
         for frame in frames[: options.max_check_frames]:
-            check_electrons(frame, basis, options.method)
+            check_electrons(frame, basis, options.method, checks=True)
     name = name or structure_name(os.path.basename(path))
     texts = []
     for code in options.codes:
@@ -188,22 +188,35 @@ def _where(frame: Structure) -> str:
     return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
 
 
-def check_electrons(frame: Structure, basis: Basis, method: str) -> None:
-    """Before any SCF: the method suits the structure, and the basis has room for its electrons
-    (α ≤ functions, β ≤ functions). Periodic structures are checked on free atoms instead."""
-    if frame.periodic:
-        return
+def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = False) -> None:
+    """Before any SCF: the method suits the structure, the basis has room for its electrons
+    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``checks.check_scf_size``).
+    Periodic structures are checked on free atoms instead; so, with ``checks`` (the path of
+    ``run_checks``), is a structure of more than ``checks.MAX_BASIS_FUNCTIONS`` functions."""
+    from .checks import MAX_BASIS_FUNCTIONS, check_scf_size
+    from .methods import free_atom_method
+
+    def functions_of(symbols) -> int:
+        return sum(2 * s.l + 1 for symbol in symbols for s in basis[symbol].shells)
+
+    functions = functions_of(frame.symbols)
+    if frame.periodic or (checks and functions > MAX_BASIS_FUNCTIONS):
+        for symbol in frame.elements:  # the free atoms the checks compute instead (high spin: ROHF or UHF)
+            check_scf_size(functions_of([symbol]), free_atom_method(method, 1)[0], f"{_where(frame)}: free atom {symbol}")
+        if frame.periodic:
+            return
     try:
-        pick_method(method, frame.spin)
+        m = pick_method(method, frame.spin)
     except InputError as exc:
         raise InputError(f"{_where(frame)}: {exc}") from None
-    functions = sum(2 * s.l + 1 for symbol in frame.symbols for s in basis[symbol].shells)
     alpha = (frame.electrons + frame.spin) // 2
     if alpha > functions:
         raise InputError(
             f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
             f"basis functions of the minimal basis (charge {frame.charge:+d}); no SCF can hold them"
         )
+    if not (checks and functions > MAX_BASIS_FUNCTIONS):
+        check_scf_size(functions, m, _where(frame))
 
 
 def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
