@@ -586,9 +586,7 @@ def _flag_text(exc: InputError) -> str:
     which names the Python argument) names the option's flag instead."""
     from .options import CLI_FLAGS, OptionError
 
-    if isinstance(exc, OptionError):
-        return exc.named(CLI_FLAGS.get(exc.option, exc.option))
-    return str(exc)
+    return exc.render(CLI_FLAGS) if isinstance(exc, OptionError) else str(exc)
 
 
 def main(argv=None) -> int:

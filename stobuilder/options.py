@@ -22,22 +22,24 @@ MAX_CHECK_FRAMES = 3
 
 
 class OptionError(InputError):
-    """A bad value of one build option. Its text names the option as the door that took it calls
-    it: the Python argument (``charge``) by default, and the command line's flag (``--charge``)
-    where ``cli.main`` prints it (``named(CLI_FLAGS[option])``).
+    """A bad value of one build option (or of two that exclude each other). Its text names each
+    option as the door that took it calls it: the Python argument (``charge``) by default, and
+    the command line's flag (``--charge``) where ``cli.main`` prints it (``render(CLI_FLAGS)``).
 
     option   the BuildOptions field (or the Python argument) the value was given for
     rest     the message after the name, e.g. " must be a whole number, got 0.5"
     prefix   text before the name, e.g. a structure file's path and ": "
+    other    a second option named after ``rest`` (then ``tail`` follows it)
     """
 
-    def __init__(self, option: str, rest: str, prefix: str = ""):
-        self.option, self.rest, self.prefix = option, rest, prefix
-        super().__init__(self.named(option))
+    def __init__(self, option: str, rest: str, prefix: str = "", other: str | None = None, tail: str = ""):
+        self.option, self.rest, self.prefix, self.other, self.tail = option, rest, prefix, other, tail
+        super().__init__(self.render({}))
 
-    def named(self, name: str) -> str:
-        """The message with the option called ``name``."""
-        return f"{self.prefix}{name}{self.rest}"
+    def render(self, names: Mapping[str, str]) -> str:
+        """The message with every option called by its name in ``names`` (its own name when absent)."""
+        second = "" if self.other is None else names.get(self.other, self.other) + self.tail
+        return f"{self.prefix}{names.get(self.option, self.option)}{self.rest}{second}"
 
     @classmethod
     def of(cls, option: str, exc: InputError) -> "OptionError":
@@ -47,12 +49,12 @@ class OptionError(InputError):
         return cls(option, message[len(option):] if message.startswith(option) else f": {message}")
 
 
-# The flag of each option on the command line (``add_arguments``), for ``OptionError.named``.
+# The flag of each option on the command line (``add_arguments``, build's own), for ``OptionError.render``.
 CLI_FLAGS = {
     "rule": "--rule", "gaussians": "--gaussians", "norm": "--fit", "exponents": "--shared-exponents/--separate-fits",
     "radial": "--radial", "zeta": "--zeta", "zeta_library": "--zeta-file", "zeta_file": "--zeta-file",
     "sp_shells": "--sp-shells", "codes": "--code", "check": "--check", "method": "--method", "charge": "--charge",
-    "spin": "--spin",
+    "spin": "--spin", "merge_into": "--merge-into", "split_elements": "--split-elements", "out_dir": "--out",
 }
 
 

@@ -30,7 +30,7 @@ from .limits import one_line
 from .formats import format_for_path, get_format, merge_basis, render_checked
 from .methods import pick_method
 from .naming import output_file, structure_name
-from .options import BuildOptions
+from .options import BuildOptions, OptionError
 from .structures import Structure, check_geometry, elements_of, read_structures
 
 __all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
@@ -265,13 +265,13 @@ def check_zeta_elements(options: BuildOptions, frames) -> None:
     (the CLI names ``--zeta`` / ``--zeta-file``)."""
     from .elements import atomic_number
 
-    from .options import OptionError
-
     present = {s for f in frames for s in f.symbols}
     missing = {s for s, _ in options.zeta} - present
     if missing:
         raise OptionError("zeta", f" names elements in no structure: {', '.join(sorted(missing, key=atomic_number))}")
     library = [s for s, _ in options.zeta_library]
+    if options.zeta_file is not None and not library:
+        raise OptionError("zeta_file", f" {one_line(options.zeta_file)}: it gives no ζ (no table with an entry)")
     if library and not present & set(library):
         where = ("zeta_file", f" {one_line(options.zeta_file)}:") if options.zeta_file else ("zeta_library", ":")
         raise OptionError(where[0], f"{where[1]} it names {', '.join(sorted(library, key=atomic_number))}, none of "
@@ -421,11 +421,11 @@ def build_structures(
         raise InputError("no structure files given")
     if merge_into is not None:
         if split_elements:
-            raise InputError("--merge-into and --split-elements exclude each other")
+            raise OptionError("merge_into", " and ", other="split_elements", tail=" exclude each other")
         if len(options.codes) != 1:
-            raise InputError(f"--merge-into {merge_into}: give exactly one format, not {', '.join(options.codes)}")
+            raise OptionError("merge_into", f" {merge_into}: give exactly one format, not {', '.join(options.codes)}")
         if not os.path.isfile(merge_into):
-            raise InputError(f"--merge-into {merge_into}: no such file")
+            raise OptionError("merge_into", f" {merge_into}: no such file")
     prepared: list[Prepared] = []
     sources: dict[str, str] = {}
     contents: dict[str, str] = {}

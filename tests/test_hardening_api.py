@@ -211,3 +211,13 @@ def test_the_options_remember_which_zeta_came_from_a_file(tmp_path):
     assert options.zeta_for(["H"]) == {"H": {"1s": 1.3}} and options.zeta_for(["C", "O"]) == {"C": {"2p": 1.7}}
     back = stobuilder.BuildOptions.from_json(options.to_json())
     assert back == options and "zeta_file" not in options.to_json()  # the numbers, not the file's name
+
+
+def test_merge_errors_name_the_python_arguments(water, tmp_path):
+    target = tmp_path / "b.nw"
+    target.write_text('BASIS "ao basis" SPHERICAL\nEND\n')
+    with pytest.raises(InputError) as info:
+        stobuilder.build_structures([water], merge_into=str(target), split_elements=True, write=False)
+    assert str(info.value) == "merge_into and split_elements exclude each other"
+    with pytest.raises(InputError, match="^merge_into .*: no such file$"):
+        stobuilder.build_structures([water], merge_into=str(tmp_path / "none.nw"), write=False)

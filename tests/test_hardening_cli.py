@@ -215,12 +215,13 @@ def test_build_applies_a_zeta_library_file_where_its_elements_occur(hydrogen, tm
     assert "1s 1.240000" in (tmp_path / "out" / "h.nw").read_text()
 
 
-def test_build_refuses_a_zeta_file_naming_none_of_the_elements(hydrogen, tmp_path, capsys):
+@pytest.mark.parametrize("text, words", [("[C]\n2p = 1.7\n[O]\n2p = 2.3\n", "C, O"), ("", "no ζ"), ("[H]\n", "no ζ")])
+def test_build_refuses_a_zeta_file_naming_none_of_the_elements(hydrogen, tmp_path, capsys, text, words):
     library = tmp_path / "lib.toml"
-    library.write_text("[C]\n2p = 1.7\n[O]\n2p = 2.3\n")
+    library.write_text(text)
     code, _, err = _run(["build", hydrogen, "--zeta-file", str(library), "--out", str(tmp_path / "out")], capsys)
     _one_line_error(code, err)
-    assert f"--zeta-file {library}:" in err and "C, O" in err
+    assert f"--zeta-file {library}:" in err and words in err
     assert not (tmp_path / "out").exists()
 
 
@@ -245,3 +246,11 @@ def test_relax_applies_a_zeta_library_file(tmp_path, capsys):
                           capsys)
     assert code == 0, err
     assert "1s 1.240000" in (tmp_path / "out" / "h2.nw").read_text()
+
+
+def test_merge_errors_name_the_flags(hydrogen, tmp_path, capsys):
+    target = tmp_path / "b.nw"
+    target.write_text('BASIS "ao basis" SPHERICAL\nEND\n')
+    code, _, err = _run(["build", hydrogen, "--merge-into", str(target), "--split-elements"], capsys)
+    _one_line_error(code, err)
+    assert "--merge-into and --split-elements exclude each other" in err
