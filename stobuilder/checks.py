@@ -8,6 +8,9 @@ A calculation that does not converge is reported as not converged, with its last
 
 from __future__ import annotations
 
+import logging
+import math
+import os
 import time
 from dataclasses import dataclass, field, replace
 
@@ -18,6 +21,108 @@ from .structures import Structure
 
 MAX_BASIS_FUNCTIONS = 400  # beyond this a structure is checked on its free atoms
 STORED_SETS = {3: "sto-3g", 6: "sto-6g"}
+
+log = logging.getLogger(__name__)
+
+# ---------------------------------------------------------------------------- size guard and progress
+#
+# The memory of one PySCF SCF of nao basis functions (PySCF 2.14, pyscf/scf/hf.py): the in-core
+# two-electron integrals, nao⁴/8 doubles with 8-fold symmetry (``mol.intor("int2e", aosym="s8")``),
+# which PySCF keeps only where nao⁴/1e6 MB (its own measure) fits in 0.95 of ``max_memory``
+# (``SCF._is_mem_enough``), else it recomputes them every cycle (direct SCF); beside them some
+# tens of nao × nao matrices (core Hamiltonian, overlap, density, Fock, orbitals, the DIIS
+# history of 8 Fock and 8 error matrices, eigensolver work space), twice as many for the two spin
+# densities of ROHF and UHF. MATRICES_PER_SPIN is that count with room for the gradient of a
+# relax step: an estimate (common practice, no source) that the 6.7 GB seen for a 5000-function
+# RHF after 30 s (issue 21) lies below. Direct SCF adds the work buffers of PySCF's J/K driver,
+# DIRECT_BUFFER_MB (measured here: 235 MB above the start for 300 H atoms in STO-3G, 3 cycles,
+# one thread). The limit is STOBUILDER_MAX_MEMORY (MB), else PySCF's own
+# default ``max_memory`` (pyscf.__config__.MAX_MEMORY: 4000 MB, or PYSCF_MAX_MEMORY); every Mole
+# we make is told the same limit, so PySCF's in-core choice and ours agree.
+
+MEMORY_VARIABLE = "STOBUILDER_MAX_MEMORY"
+MATRICES_PER_SPIN = 40
+DIRECT_BUFFER_MB = 250.0
+PROGRESS_SECONDS = 5.0  # an SCF running longer than this logs a line per cycle
+
+
+def memory_limit_mb() -> float:
+    """The memory (MB) one SCF may take: ``STOBUILDER_MAX_MEMORY`` when set, else PySCF's default
+    ``max_memory``. InputError for a value that is not a positive number."""
+    from .errors import InputError
+
+    text = os.environ.get(MEMORY_VARIABLE)
+    if text is None or not text.strip():
+        from pyscf import __config__
+
+        return float(getattr(__config__, "MAX_MEMORY", 4000))
+    try:
+        value = float(text)
+    except ValueError:
+        value = math.nan
+    if not (math.isfinite(value) and value > 0):
+        raise InputError(f"{MEMORY_VARIABLE}={text.strip()!r}: expected the memory in MB, a positive number")
+    return value
+
+
+@dataclass(frozen=True)
+class ScfSize:
+    """The estimated memory of one SCF (``scf_size``), in MB."""
+
+    functions: int
+    method: str
+    incore: bool  # PySCF keeps the two-electron integrals in memory
+    memory_mb: float
+    limit_mb: float
+
+    @property
+    def fits(self) -> bool:
+        return self.memory_mb <= self.limit_mb
+
+    def describe(self) -> str:
+        kind = "integrals in memory" if self.incore else "direct SCF"
+        return (f"its {self.method} SCF would need about {self.memory_mb:,.0f} MB ({self.functions} basis functions, "
+                f"{kind}), more than the limit of {self.limit_mb:,.0f} MB; set {MEMORY_VARIABLE} to the MB this "
+                "machine can give one SCF to raise it")
+
+
+def scf_size(functions: int, method: str, limit_mb: float | None = None) -> ScfSize:
+    """The memory estimate of one SCF of ``functions`` basis functions with ``method`` ("RHF",
+    "ROHF", "UHF") against ``limit_mb`` (default ``memory_limit_mb()``); see the comment above."""
+    limit = memory_limit_mb() if limit_mb is None else float(limit_mb)
+    eri_mb = float(functions) ** 4 / 1e6
+    incore = eri_mb < 0.95 * limit
+    spins = 1 if method.upper() == "RHF" else 2
+    matrices_mb = MATRICES_PER_SPIN * spins * 8.0 * float(functions) ** 2 / 1e6
+    return ScfSize(int(functions), method.upper(), incore, (eri_mb if incore else DIRECT_BUFFER_MB) + matrices_mb, limit)
+
+
+def check_scf_size(functions: int, method: str, where: str) -> None:
+    """InputError naming ``where`` when one SCF of ``functions`` basis functions would need more
+    memory than the limit (``scf_size``): before the first SCF, not when memory runs out."""
+    from .errors import InputError
+
+    size = scf_size(functions, method)
+    if not size.fits:
+        raise InputError(f"{where}: {size.describe()}")
+
+
+def _progress(mol, method: str):
+    """A PySCF SCF callback that logs cycle, energy and elapsed time once the SCF has run longer
+    than PROGRESS_SECONDS (the cycle is PySCF's ``cycle``, or ``imacro`` of its second-order solver)."""
+    start = time.perf_counter()
+
+    def callback(envs):
+        elapsed = time.perf_counter() - start
+        if elapsed < PROGRESS_SECONDS:
+            return
+        cycle = envs.get("cycle", envs.get("imacro"))
+        energy = envs.get("e_tot")
+        shown = f"{float(energy):.10f}" if energy is not None else "n/a"
+        log.info("SCF (%s, %d basis functions): cycle %s, E = %s hartree, %.1f s elapsed",
+                 method, mol.nao, "?" if cycle is None else int(cycle) + 1, shown, elapsed)
+
+    return callback
 
 
 @dataclass(frozen=True)
@@ -127,6 +232,7 @@ def make_mole(atoms, basis, charge: int, spin: int, unit: str = "Angstrom", symm
     mol.cart = False
     mol.symmetry = symmetry
     mol.verbose = 0
+    mol.max_memory = memory_limit_mb()  # PySCF's in-core choice against our limit (``scf_size``)
     mol.build()
     return mol
 
@@ -143,7 +249,9 @@ def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv
     basis, e.g. the previous geometry step's) or PySCF's default guess. A first run that does not
     converge is retried with PySCF's second-order solver from where it stopped. Returns
     (PySCF SCF object, iterations); the object's ``converged``, ``e_tot`` and orbitals are
-    PySCF's own. The one SCF driver of the checks, the calculator, bench and tune."""
+    PySCF's own. The one SCF driver of the checks, the calculator, bench and tune. An SCF that
+    runs longer than PROGRESS_SECONDS logs a line per cycle (logger ``stobuilder.checks``; the
+    command line prints it on stderr)."""
     from pyscf import scf
 
     from .diis import use_robust_diis
@@ -159,6 +267,8 @@ def solve(mol, method: str, max_cycle: int = 100, dm0=None, configure=None, conv
             mf.conv_tol = conv_tol
         mf.max_cycle = max_cycle
         mf.verbose = 0
+        if mf.callback is None:
+            mf.callback = _progress(mol, method)
         return mf
 
     mf = make()

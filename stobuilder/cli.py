@@ -417,7 +417,7 @@ def _cmd_atom(args) -> int:
     if args.json:
         _print_json(doc)
         return 0
-    print(f"{doc['element']} {doc['configuration']}: {doc['state']}")
+    print(doc["state"])  # names the element, its configuration and the determinant computed
     source = "optimised" if args.optimize else f"rule {args.rule}" + (", your own ζ" if args.zeta else "")
     print(f"  STOs ({source}): " + "  ".join(f"{k} {v:.6f}" for k, v in doc["zeta"].items()))
     print(f"  exact-STO {doc['method']}: E = {doc['energy_exact_hartree']:.10f} hartree, -V/T = {doc['virial_ratio']:.10f}"
@@ -657,6 +657,14 @@ def _quiet_broken_pipe() -> int:
     return EXIT_BROKEN_PIPE
 
 
+def _flag_text(exc: InputError) -> str:
+    """The message of ``exc`` in the command line's words: an option's error (``OptionError``,
+    which names the Python argument) names the option's flag instead."""
+    from .options import CLI_FLAGS, OptionError
+
+    return exc.render(CLI_FLAGS) if isinstance(exc, OptionError) else str(exc)
+
+
 def main(argv=None) -> int:
     try:
         _StderrHandler.install()
@@ -667,7 +675,7 @@ def main(argv=None) -> int:
     except BrokenPipeError:
         return _quiet_broken_pipe()
     except InputError as exc:
-        print(f"stobuilder: error: {exc}", file=sys.stderr)
+        print(f"stobuilder: error: {_flag_text(exc)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""

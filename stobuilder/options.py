@@ -13,12 +13,49 @@ from __future__ import annotations
 
 import json
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, fields
+from dataclasses import asdict, dataclass, field, fields
 
 from .errors import InputError
 from .limits import MAX_CHARGE, whole_number, zeta_value
 
 MAX_CHECK_FRAMES = 3
+
+
+class OptionError(InputError):
+    """A bad value of one build option (or of two that exclude each other). Its text names each
+    option as the door that took it calls it: the Python argument (``charge``) by default, and
+    the command line's flag (``--charge``) where ``cli.main`` prints it (``render(CLI_FLAGS)``).
+
+    option   the BuildOptions field (or the Python argument) the value was given for
+    rest     the message after the name, e.g. " must be a whole number, got 0.5"
+    prefix   text before the name, e.g. a structure file's path and ": "
+    other    a second option named after ``rest`` (then ``tail`` follows it)
+    """
+
+    def __init__(self, option: str, rest: str, prefix: str = "", other: str | None = None, tail: str = ""):
+        self.option, self.rest, self.prefix, self.other, self.tail = option, rest, prefix, other, tail
+        super().__init__(self.render({}))
+
+    def render(self, names: Mapping[str, str]) -> str:
+        """The message with every option called by its name in ``names`` (its own name when absent)."""
+        second = "" if self.other is None else names.get(self.other, self.other) + self.tail
+        return f"{self.prefix}{names.get(self.option, self.option)}{self.rest}{second}"
+
+    @classmethod
+    def of(cls, option: str, exc: InputError) -> "OptionError":
+        """``exc`` (a message that begins with ``option``, as ``limits`` writes them) as an
+        OptionError of ``option``."""
+        message = str(exc)
+        return cls(option, message[len(option):] if message.startswith(option) else f": {message}")
+
+
+# The flag of each option on the command line (``add_arguments``, build's own), for ``OptionError.render``.
+CLI_FLAGS = {
+    "rule": "--rule", "gaussians": "--gaussians", "norm": "--fit", "exponents": "--shared-exponents/--separate-fits",
+    "radial": "--radial", "zeta": "--zeta", "zeta_library": "--zeta-file", "zeta_file": "--zeta-file",
+    "sp_shells": "--sp-shells", "codes": "--code", "check": "--check", "method": "--method", "charge": "--charge",
+    "spin": "--spin", "merge_into": "--merge-into", "split_elements": "--split-elements", "out_dir": "--out",
+}
 
 
 # ---------------------------------------------------------------------------- ζ overrides
@@ -27,7 +64,8 @@ MAX_CHECK_FRAMES = 3
 def parse_zeta_overrides(items, per_element: bool = False) -> dict:
     """Parse ``--zeta`` items: "1s=1.6875" → {"1s": 1.6875}; per element "Fe:3d=2.1" → {"Fe": {"3d": 2.1}}.
 
-    Labels are checked to be subshell labels (whether the basis has them is checked where the
+    Errors are OptionErrors of ``zeta`` (``--zeta`` on the command line). Labels are checked to
+    be subshell labels (whether the basis has them is checked where the
     overrides are applied); values must be numbers in the range of ``limits.zeta_value`` (bohr⁻¹).
     """
     from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
@@ -40,31 +78,34 @@ def parse_zeta_overrides(items, per_element: bool = False) -> dict:
             raise TypeError(f"zeta overrides: {item!r} is not a text such as '1s=1.6875'")
         text = item
         if "=" not in text:
-            raise InputError(f"--zeta {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
+            raise OptionError("zeta", f" {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
         key, value = text.split("=", 1)
         if per_element:
             if ":" not in key:
-                raise InputError(f"--zeta {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
+                raise OptionError("zeta", f" {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
             sym, label = key.split(":", 1)
             try:
                 sym = normalise_symbol(sym)
             except InputError as err:
-                raise InputError(f"--zeta {text!r}: {err}") from None
+                raise OptionError("zeta", f" {text!r}: {err}") from None
         else:
             sym, label = None, key
         try:
             n, l = parse_subshell_label(label)
         except InputError as err:
-            raise InputError(f"--zeta {text!r}: {err}") from None
+            raise OptionError("zeta", f" {text!r}: {err}") from None
         label = f"{n}{L_LETTERS[l]}"
         try:
             number = float(value)
         except ValueError:
-            raise InputError(f"--zeta {text!r}: {value.strip()!r} is not a number") from None
-        v = zeta_value(number, f"--zeta {text!r}")
+            raise OptionError("zeta", f" {text!r}: {value.strip()!r} is not a number") from None
+        try:
+            v = zeta_value(number, f"zeta {text!r}")
+        except InputError as err:
+            raise OptionError.of("zeta", err) from None
         target = out.setdefault(sym, {}) if per_element else out
         if label in target:
-            raise InputError(f"--zeta {text!r}: {label} is given twice")
+            raise OptionError("zeta", f" {text!r}: {label} is given twice")
         target[label] = v
     return out
 
@@ -93,7 +134,10 @@ def read_toml(path, what: str) -> tuple[dict, str]:
     where = f"{what} {str(path)!r}"
     try:
         with open(path, "rb") as fh:
-            return tomllib.load(fh), where
+            data = fh.read()
+        if data.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark, as some editors write
+            data = data[3:]
+        return tomllib.loads(data.decode("utf-8")), where
     except OSError as err:
         raise InputError(f"{where}: cannot read it ({err.strerror})") from None
     except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
@@ -138,8 +182,9 @@ def merge_zeta(*tables: Mapping | None) -> dict[str, dict[str, float]]:
     return out
 
 
-def _frozen_zeta(zeta) -> tuple[tuple[str, tuple[tuple[str, float], ...]], ...]:
-    """{symbol: {label: ζ}} (validated, symbols normalised) as a sorted tuple of tuples."""
+def _frozen_zeta(zeta, option: str = "zeta") -> tuple[tuple[str, tuple[tuple[str, float], ...]], ...]:
+    """{symbol: {label: ζ}} (validated, symbols normalised) as a sorted tuple of tuples; errors are
+    OptionErrors of ``option``."""
     from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
 
     if not zeta:
@@ -147,20 +192,40 @@ def _frozen_zeta(zeta) -> tuple[tuple[str, tuple[tuple[str, float], ...]], ...]:
     if isinstance(zeta, tuple):
         zeta = {s: dict(t) for s, t in zeta}
     if not isinstance(zeta, Mapping):
-        raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
+        raise OptionError(option, f" must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
     out: dict[str, dict[str, float]] = {}
     for symbol, table in zeta.items():
-        sym = normalise_symbol(str(symbol))
+        try:
+            sym = normalise_symbol(str(symbol))
+        except InputError as err:
+            raise OptionError(option, f": {err}") from None
         if not isinstance(table, Mapping):
-            raise InputError(f"zeta for {sym} must be a mapping label → value, got {type(table).__name__}")
+            raise OptionError(option, f" for {sym} must be a mapping label → value, got {type(table).__name__}")
         entry = out.setdefault(sym, {})
         for label, value in table.items():
-            n, l = parse_subshell_label(str(label).strip())
-            entry[f"{n}{L_LETTERS[l]}"] = zeta_value(value, f"zeta override {sym}:{label}")
+            try:
+                n, l = parse_subshell_label(str(label).strip())
+                entry[f"{n}{L_LETTERS[l]}"] = zeta_value(value, f"{option} {sym}:{label}")
+            except InputError as err:
+                raise OptionError.of(option, err) from None
     return tuple((s, tuple(sorted(t.items()))) for s, t in sorted(out.items()) if t)
 
 
+def _merged(*tables) -> dict[str, dict[str, float]] | None:
+    """Frozen ζ tables (``_frozen_zeta``), later on top of earlier, as {symbol: {label: ζ}}."""
+    return merge_zeta(*({s: dict(t) for s, t in table} for table in tables)) or None
+
+
 # ---------------------------------------------------------------------------- the options
+
+
+def _whole(value, option: str, minimum: int | None = None, maximum: int | None = None) -> int:
+    """``limits.whole_number`` with its error as an OptionError of ``option``."""
+    try:
+        return whole_number(value, option, minimum, maximum)
+    except InputError as err:
+        raise OptionError.of(option, err) from None
+
 
 
 @dataclass(frozen=True)
@@ -172,7 +237,14 @@ class BuildOptions:
     norm              fitting norm of the expansions: "l2" or "h1"
     exponents         "family", "shared" or "separate" (see ``stobuilder.build``)
     radial            "integer" or "effective-n"
-    zeta              your own ζ (bohr⁻¹): {symbol: {label: ζ}}; held as a sorted tuple, see ``zeta_map``
+    zeta              your own ζ (bohr⁻¹): {symbol: {label: ζ}}; held as a sorted tuple, see ``zeta_map``.
+                      Every element it names must occur in the structures (``pipeline.check_zeta_elements``)
+    zeta_library      ζ from a zeta file (a library, e.g. ``tune``'s for a whole training set):
+                      {symbol: {label: ζ}}, applied to the elements a structure has; ``zeta`` goes on top.
+                      It must name at least one element of the structures
+    zeta_file         the TOML zeta file to read ``zeta_library`` from (read once, when the options
+                      are made, unless ``zeta_library`` is given too); only named in messages: it is
+                      no part of the options' equality or JSON
     sp_shells         write s and p shells that share exponents as sp shells
     codes             output formats ("all" expands to every one); default nwchem
     check             run the SCF checks (the first ``max_check_frames`` frames of a file)
@@ -186,6 +258,8 @@ class BuildOptions:
     exponents: str = "family"
     radial: str = "integer"
     zeta: tuple = ()
+    zeta_library: tuple = ()
+    zeta_file: str | None = field(default=None, compare=False)
     sp_shells: bool = False
     codes: tuple[str, ...] = ("nwchem",)
     check: bool = False
@@ -203,44 +277,51 @@ class BuildOptions:
 
         set_ = object.__setattr__
         if not isinstance(self.rule, str):
-            raise InputError(f"--rule must be a rule name, got {self.rule!r}")
+            raise OptionError("rule", f" must be a rule name, got {self.rule!r}")
         get_rule(self.rule)
-        set_(self, "gaussians", whole_number(self.gaussians, "--gaussians", 1, MAX_GAUSSIANS))
+        set_(self, "gaussians", _whole(self.gaussians, "gaussians", 1, MAX_GAUSSIANS))
         if self.norm not in NORMS:
-            raise InputError(f"--fit {self.norm!r}: unknown fitting norm; choose one of {', '.join(NORMS)}")
+            raise OptionError("norm", f" {self.norm!r}: unknown fitting norm; choose one of {', '.join(NORMS)}")
         if self.exponents not in EXPONENT_MODES:
-            raise InputError(f"exponents {self.exponents!r}: choose one of {', '.join(EXPONENT_MODES)}")
+            raise OptionError("exponents", f" {self.exponents!r}: choose one of {', '.join(EXPONENT_MODES)}")
         if self.radial not in RADIAL_FORMS:
-            raise InputError(f"--radial {self.radial!r}: choose one of {', '.join(RADIAL_FORMS)}")
+            raise OptionError("radial", f" {self.radial!r}: choose one of {', '.join(RADIAL_FORMS)}")
         set_(self, "zeta", _frozen_zeta(self.zeta))
+        if self.zeta_file is not None:
+            from . import arguments
+
+            set_(self, "zeta_file", arguments.path(self.zeta_file, "zeta_file"))
+            if not self.zeta_library:
+                set_(self, "zeta_library", load_zeta_file(self.zeta_file))
+        set_(self, "zeta_library", _frozen_zeta(self.zeta_library, "zeta_library"))
         codes = (self.codes,) if isinstance(self.codes, str) else tuple(self.codes or ("nwchem",))
         expanded: list[str] = []
         for code in codes:
             if not isinstance(code, str):
-                raise InputError(f"--code must be a format name, got {code!r}")
+                raise OptionError("codes", f" must be format names, got {code!r}")
             expanded.extend(formats() if code == "all" else [get_format(code).name])
         set_(self, "codes", tuple(dict.fromkeys(expanded)))
         for name in ("sp_shells", "check"):
             if not isinstance(getattr(self, name), bool):
-                raise InputError(f"{name} must be True or False, got {getattr(self, name)!r}")
+                raise OptionError(name, f" must be True or False, got {getattr(self, name)!r}")
         set_(self, "method", check_method(self.method))
         if self.charge is not None:
-            set_(self, "charge", whole_number(self.charge, "--charge", -MAX_CHARGE, MAX_CHARGE))
+            set_(self, "charge", _whole(self.charge, "charge", -MAX_CHARGE, MAX_CHARGE))
         if self.spin is not None:
-            set_(self, "spin", whole_number(self.spin, "--spin", 0, MAX_CHARGE))
-        set_(self, "max_check_frames", whole_number(self.max_check_frames, "max_check_frames", 1))
+            set_(self, "spin", _whole(self.spin, "spin", 0, MAX_CHARGE))
+        set_(self, "max_check_frames", _whole(self.max_check_frames, "max_check_frames", 1))
 
     # -- views
 
     @property
     def zeta_map(self) -> dict[str, dict[str, float]] | None:
-        """The ζ overrides as {symbol: {label: ζ}}, or None."""
+        """The ζ overrides given as ``zeta`` (not the library) as {symbol: {label: ζ}}, or None."""
         return {s: dict(t) for s, t in self.zeta} or None
 
     def zeta_for(self, symbols) -> dict[str, dict[str, float]] | None:
-        """The ζ overrides of the elements in ``symbols`` only."""
+        """The ζ overrides of the elements in ``symbols`` only: the library's, ``zeta`` on top."""
         present = set(symbols)
-        return {s: dict(t) for s, t in self.zeta if s in present} or None
+        return _merged(*(tuple(e for e in table if e[0] in present) for table in (self.zeta_library, self.zeta)))
 
     def replace(self, **changes) -> "BuildOptions":
         """A copy with ``changes`` (validated again)."""
@@ -254,8 +335,10 @@ class BuildOptions:
         from .version import __version__
 
         doc = asdict(self)
+        doc.pop("zeta_file")  # a name, not a value: the library's numbers are in zeta_library
         doc["codes"] = list(self.codes)
         doc["zeta"] = self.zeta_map or {}
+        doc["zeta_library"] = _merged(self.zeta_library) or {}
         doc["stobuilder"] = __version__
         return doc
 
@@ -322,18 +405,16 @@ def add_arguments(parser, whole_number_type) -> None:
 
 
 def from_args(args) -> BuildOptions:
-    """The BuildOptions of parsed ``add_arguments`` options (the zeta file read now)."""
-    zeta = merge_zeta(
-        load_zeta_file(args.zeta_file) if args.zeta_file else None,
-        parse_zeta_overrides(args.zeta or [], per_element=True),
-    )
+    """The BuildOptions of parsed ``add_arguments`` options (the zeta file read now, as the
+    options' library: ``--zeta`` on top)."""
     return BuildOptions(
         rule=args.rule,
         gaussians=args.gaussians,
         norm=args.fit,
         exponents="shared" if args.shared_exponents else "separate" if args.separate_fits else "family",
         radial=args.radial,
-        zeta=zeta,
+        zeta=parse_zeta_overrides(args.zeta or [], per_element=True),
+        zeta_file=args.zeta_file or None,
         sp_shells=args.sp_shells,
         codes=tuple(args.code or ("nwchem",)),
         check=args.check,
@@ -343,5 +424,5 @@ def from_args(args) -> BuildOptions:
     )
 
 
-__all__ = ["BuildOptions", "MAX_CHECK_FRAMES", "add_arguments", "from_args", "load_zeta_file", "merge_zeta",
+__all__ = ["BuildOptions", "CLI_FLAGS", "MAX_CHECK_FRAMES", "OptionError", "add_arguments", "from_args", "load_zeta_file", "merge_zeta",
            "parse_zeta_overrides"]

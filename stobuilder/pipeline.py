@@ -26,10 +26,11 @@ from .build import build_basis
 from .checks import Check
 from .errors import InputError
 from .files import check_targets, create_bytes, replace_bytes, write_all
+from .limits import one_line
 from .formats import format_for_path, get_format, merge_basis, render_checked
 from .methods import pick_method
 from .naming import output_file, structure_name
-from .options import BuildOptions
+from .options import BuildOptions, OptionError
 from .structures import Structure, check_geometry, elements_of, read_structures
 
 __all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
@@ -120,8 +121,9 @@ def basis_key(frames: Sequence[Structure], options: BuildOptions) -> tuple:
     """The content key of a basis: everything ``basis_for`` looks at (the element set, a single
     atom's charge, the options that shape it)."""
     elements = elements_of(tuple(frames))
+    zeta = options.zeta_for(elements) or {}
     return (elements, _single_atom_charge(frames), options.rule, options.gaussians, options.norm,
-            options.exponents, options.radial, tuple((s, t) for s, t in options.zeta if s in elements))
+            options.exponents, options.radial, tuple((s, tuple(sorted(t.items()))) for s, t in sorted(zeta.items())))
 
 
 def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
@@ -164,7 +166,7 @@ def prepare(
             cache[("basis", key)] = basis
     if options.check:
         for frame in frames[: options.max_check_frames]:
-            check_electrons(frame, basis, options.method)
+            check_electrons(frame, basis, options.method, checks=True)
     name = name or structure_name(os.path.basename(path))
     texts = []
     for code in options.codes:
@@ -186,22 +188,35 @@ def _where(frame: Structure) -> str:
     return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
 
 
-def check_electrons(frame: Structure, basis: Basis, method: str) -> None:
-    """Before any SCF: the method suits the structure, and the basis has room for its electrons
-    (α ≤ functions, β ≤ functions). Periodic structures are checked on free atoms instead."""
-    if frame.periodic:
-        return
+def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = False) -> None:
+    """Before any SCF: the method suits the structure, the basis has room for its electrons
+    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``checks.check_scf_size``).
+    Periodic structures are checked on free atoms instead; so, with ``checks`` (the path of
+    ``run_checks``), is a structure of more than ``checks.MAX_BASIS_FUNCTIONS`` functions."""
+    from .checks import MAX_BASIS_FUNCTIONS, check_scf_size
+    from .methods import free_atom_method
+
+    def functions_of(symbols) -> int:
+        return sum(2 * s.l + 1 for symbol in symbols for s in basis[symbol].shells)
+
+    functions = functions_of(frame.symbols)
+    if frame.periodic or (checks and functions > MAX_BASIS_FUNCTIONS):
+        for symbol in frame.elements:  # the free atoms the checks compute instead (high spin: ROHF or UHF)
+            check_scf_size(functions_of([symbol]), free_atom_method(method, 1)[0], f"{_where(frame)}: free atom {symbol}")
+        if frame.periodic:
+            return
     try:
-        pick_method(method, frame.spin)
+        m = pick_method(method, frame.spin)
     except InputError as exc:
         raise InputError(f"{_where(frame)}: {exc}") from None
-    functions = sum(2 * s.l + 1 for symbol in frame.symbols for s in basis[symbol].shells)
     alpha = (frame.electrons + frame.spin) // 2
     if alpha > functions:
         raise InputError(
             f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
             f"basis functions of the minimal basis (charge {frame.charge:+d}); no SCF can hold them"
         )
+    if not (checks and functions > MAX_BASIS_FUNCTIONS):
+        check_scf_size(functions, m, _where(frame))
 
 
 def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
@@ -244,12 +259,23 @@ def claim_target(sources: dict[str, str], target: str, path: str) -> None:
 
 
 def check_zeta_elements(options: BuildOptions, frames) -> None:
-    """InputError when the options' ζ overrides name an element in none of ``frames``."""
-    named = {s for s, _ in options.zeta}
-    if named:
-        missing = named - {s for f in frames for s in f.symbols}
-        if missing:
-            raise InputError(f"--zeta names elements in no structure: {', '.join(sorted(missing))}")
+    """Before any SCF: every element the options' ``zeta`` names is in one of ``frames`` (a typo
+    guard), and the zeta file's library (``zeta_library``), which is applied where its elements
+    occur, names at least one element of them. OptionError of ``zeta`` / ``zeta_file`` otherwise
+    (the CLI names ``--zeta`` / ``--zeta-file``)."""
+    from .elements import atomic_number
+
+    present = {s for f in frames for s in f.symbols}
+    missing = {s for s, _ in options.zeta} - present
+    if missing:
+        raise OptionError("zeta", f" names elements in no structure: {', '.join(sorted(missing, key=atomic_number))}")
+    library = [s for s, _ in options.zeta_library]
+    if options.zeta_file is not None and not library:
+        raise OptionError("zeta_file", f" {one_line(options.zeta_file)}: it gives no ζ (no table with an entry)")
+    if library and not present & set(library):
+        where = ("zeta_file", f" {one_line(options.zeta_file)}:") if options.zeta_file else ("zeta_library", ":")
+        raise OptionError(where[0], f"{where[1]} it names {', '.join(sorted(library, key=atomic_number))}, none of "
+                                    f"the elements of the structures ({', '.join(sorted(present, key=atomic_number))})")
 
 
 def union_basis(bases: Sequence[Basis]) -> Basis:
@@ -395,11 +421,11 @@ def build_structures(
         raise InputError("no structure files given")
     if merge_into is not None:
         if split_elements:
-            raise InputError("--merge-into and --split-elements exclude each other")
+            raise OptionError("merge_into", " and ", other="split_elements", tail=" exclude each other")
         if len(options.codes) != 1:
-            raise InputError(f"--merge-into {merge_into}: give exactly one format, not {', '.join(options.codes)}")
+            raise OptionError("merge_into", f" {merge_into}: give exactly one format, not {', '.join(options.codes)}")
         if not os.path.isfile(merge_into):
-            raise InputError(f"--merge-into {merge_into}: no such file")
+            raise OptionError("merge_into", f" {merge_into}: no such file")
     prepared: list[Prepared] = []
     sources: dict[str, str] = {}
     contents: dict[str, str] = {}

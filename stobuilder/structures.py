@@ -264,11 +264,16 @@ def structure_from_atoms(
     s, origin = spin, ""
     if s is None:
         s = _info_int(info, "spin", label, 0, max(nuclear - q, 0))
-        origin = "" if s is None else f" (the file's spin={s})"
-    if s is None:
         mult = _info_int(info, "multiplicity", label, 1, max(nuclear - q, 0) + 1)
-        s = None if mult is None else mult - 1
-        origin = "" if s is None else f" (the file's multiplicity={mult})"
+        if s is not None and mult is not None and mult != s + 1:
+            raise InputError(
+                f"{label}: spin={s} and multiplicity={mult} contradict each other (multiplicity is 2S + 1 = "
+                f"spin + 1); give one of them"
+            )
+        if s is not None:
+            origin = f" (the file's spin={s})"
+        elif mult is not None:
+            s, origin = mult - 1, f" (the file's multiplicity={mult})"
     electrons = nuclear - q
     s = (atom_spin(symbols[0], q, electrons) if len(symbols) == 1 else default_spin(electrons)) if s is None else int(s)
     try:

@@ -39,6 +39,15 @@ def test_atom_optimize_carbon_clementi_raimondi(capsys):
     assert doc["energy_exact_hartree"] == pytest.approx(-37.6224, abs=5e-4)
 
 
+def test_atom_text_names_the_element_and_configuration_once(capsys):
+    code, out, err = run(["atom", "C"], capsys)
+    assert code == 0, err
+    first = out.splitlines()[0]
+    # C ground configuration [He] 2s2 2p2 and its Hund's-rule ground term 3P (common practice, no source)
+    assert first == "C [He] 2s2 2p2 (3P, high-spin ROHF determinant)"
+    assert out.count("[He] 2s2 2p2") == 1
+
+
 @pytest.mark.parametrize(
     "argv,named",
     [

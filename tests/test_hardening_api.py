@@ -148,3 +148,76 @@ def test_valid_calls_give_what_they_did_before(h_basis):
     assert stobuilder.write_basis(h_basis, "nwchem") == body(h_basis, "nwchem")
     assert stobuilder.read_basis(stobuilder.write_basis(h_basis, "nwchem"), "nwchem").symbols == ("H",)
     assert stobuilder.parse_zeta_overrides("1s=1.6875") == {"1s": 1.6875}  # one item, not its characters
+
+
+# ---------------------------------------------------------------------------- each door speaks its own language (issue 21)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"charge": 0.5}, "charge must be a whole number, got 0.5"),
+    ({"charge": 5000}, "charge must be <= 1000"),
+    ({"spin": -1}, "spin must be >= 0"),
+    ({"gaussians": 13}, "gaussians must be <= 12"),
+    ({"gaussians": 2.5}, "gaussians must be a whole number"),
+    ({"norm": "l3"}, "norm 'l3'"),
+    ({"radial": "curly"}, "radial 'curly'"),
+    ({"codes": (3,)}, "codes must be format names"),
+    ({"zeta": {"H": {"1s": -1.0}}}, "zeta H:1s"),
+    ({"zeta": {"C": {"2p": 1.0}}}, "zeta names elements in no structure: C"),
+])
+def test_python_errors_name_the_python_argument(water, tmp_path, kwargs, words):
+    with pytest.raises(InputError) as info:
+        stobuilder.build_structures([water], out_dir=str(tmp_path / "out"), write=False, **kwargs)
+    message = str(info.value)
+    assert words in message and "--" not in message, message
+
+
+# ---------------------------------------------------------------------------- a zeta file is a library (issue 21)
+
+
+def _zeta_file(tmp_path, text, name="lib.toml"):
+    path = tmp_path / name
+    path.write_text(text)
+    return str(path)
+
+
+def test_a_zeta_file_applies_its_elements_where_they_occur(water, tmp_path):
+    # tune writes one file for its whole training set: C and N do not occur in water
+    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n[O]\n2p = 2.3\n[H]\n1s = 1.24\n")
+    (report,) = stobuilder.build_structures([water], zeta_file=library, write=False)
+    assert {s.label: s.zeta for s in report.basis["O"].stos}["2p"] == 2.3
+    assert {s.label: s.zeta for s in report.basis["H"].stos}["1s"] == 1.24
+    assert report.basis.symbols == ("H", "O")
+    # zeta= goes on top of the file, and stays a typo guard
+    (report,) = stobuilder.build_structures([water], zeta_file=library, zeta={"O": {"2p": 2.0}}, write=False)
+    assert {s.label: s.zeta for s in report.basis["O"].stos}["2p"] == 2.0
+    with pytest.raises(InputError, match="zeta names elements in no structure: C"):
+        stobuilder.build_structures([water], zeta_file=library, zeta={"C": {"2p": 1.0}}, write=False)
+
+
+def test_a_zeta_file_naming_none_of_the_elements_is_refused(water, tmp_path):
+    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n")
+    with pytest.raises(InputError) as info:
+        stobuilder.build_structures([water], zeta_file=library, write=False)
+    message = str(info.value)
+    assert message.startswith(f"zeta_file {library}:") and "C, N" in message and "H, O" in message, message
+    assert "\n" not in message and "--" not in message
+
+
+def test_the_options_remember_which_zeta_came_from_a_file(tmp_path):
+    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[H]\n1s = 1.24\n")
+    options = stobuilder.BuildOptions(zeta_file=library, zeta={"H": {"1s": 1.3}})
+    assert options.zeta_map == {"H": {"1s": 1.3}}
+    assert options.zeta_for(["H"]) == {"H": {"1s": 1.3}} and options.zeta_for(["C", "O"]) == {"C": {"2p": 1.7}}
+    back = stobuilder.BuildOptions.from_json(options.to_json())
+    assert back == options and "zeta_file" not in options.to_json()  # the numbers, not the file's name
+
+
+def test_merge_errors_name_the_python_arguments(water, tmp_path):
+    target = tmp_path / "b.nw"
+    target.write_text('BASIS "ao basis" SPHERICAL\nEND\n')
+    with pytest.raises(InputError) as info:
+        stobuilder.build_structures([water], merge_into=str(target), split_elements=True, write=False)
+    assert str(info.value) == "merge_into and split_elements exclude each other"
+    with pytest.raises(InputError, match="^merge_into .*: no such file$"):
+        stobuilder.build_structures([water], merge_into=str(tmp_path / "none.nw"), write=False)

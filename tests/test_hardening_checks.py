@@ -237,3 +237,102 @@ def test_exact_sto_scf_on_far_off_zeta_is_an_error_naming_the_atom(capsys):
     code, out, err = run(["atom", "C", "--zeta", "2s=0.001", "--optimize"], capsys)
     assert code == 2 and out == "" and err.count("\n") == 1
     assert err.startswith("stobuilder: error: C [He] 2s2 2p2: the exact-STO ζ optimisation failed numerically")
+
+
+# ---------------------------------------------------------------------------- size guard and progress (issue 21)
+
+
+def _h_lattice(path, count, spacing=1.5):
+    """``count`` H atoms on a simple cubic lattice of ``spacing`` Å (built with numpy)."""
+    side = int(np.ceil(count ** (1 / 3)))
+    grid = np.stack(np.meshgrid(*[np.arange(side)] * 3, indexing="ij"), -1).reshape(-1, 3)[:count] * spacing
+    path.write_text(f"{count}\n\n" + "\n".join(f"H {x:.3f} {y:.3f} {z:.3f}" for x, y, z in grid) + "\n")
+    return path
+
+
+@pytest.fixture()
+def no_scf(monkeypatch):
+    """Every PySCF SCF fails the test if it starts."""
+    from pyscf.scf import hf
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("an SCF ran")
+
+    monkeypatch.setattr(hf.SCF, "kernel", refuse)
+    monkeypatch.setattr(hf.SCF, "scf", refuse)
+
+
+@pytest.fixture()
+def big(tmp_path):
+    return _h_lattice(tmp_path / "h5000.xyz", 5000)
+
+
+@pytest.mark.parametrize("command", [["relax"], ["tune"]])
+def test_a_5000_atom_structure_is_refused_before_any_scf(big, tmp_path, capsys, no_scf, monkeypatch, command):
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    out = tmp_path / "out"
+    target = ["--out", str(out)] if command == ["relax"] else ["--out", str(tmp_path / "z.toml")]
+    code, _, err = run([*command, str(big), *target], capsys)
+    # 5000 basis functions: in-core integrals 5000⁴/1e6 MB would not fit, so direct SCF,
+    # 40·8·5000² bytes = 8000 MB of matrices + 250 MB buffers (stobuilder.checks.scf_size)
+    assert_bad_input(code, err, out, str(big), "5000 basis functions", "8,250 MB", "4,000 MB", "STOBUILDER_MAX_MEMORY")
+    assert not (tmp_path / "z.toml").exists()
+
+
+def test_the_size_guard_sits_in_check_electrons_and_its_limit_can_be_raised(big, monkeypatch):
+    from stobuilder import build_basis, read_structures
+    from stobuilder.pipeline import check_electrons
+
+    (frame,) = read_structures(str(big))
+    basis = build_basis(["H"])
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    with pytest.raises(InputError, match="direct SCF"):
+        check_electrons(frame, basis, "auto")
+    monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "9000")
+    check_electrons(frame, basis, "auto")  # fits under the raised limit (no SCF runs here)
+    check_electrons(frame, basis, "auto", checks=True)  # the checks take its free atoms instead
+    monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "lots")
+    with pytest.raises(InputError, match="STOBUILDER_MAX_MEMORY='lots'"):
+        check_electrons(frame, basis, "auto")
+
+
+def test_the_calculator_refuses_a_5000_atom_molecule_before_its_scf(big, no_scf, monkeypatch):
+    from ase.io import read
+
+    from stobuilder.calculator import STOCalculator
+
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    atoms = read(str(big))
+    atoms.calc = STOCalculator()
+    with pytest.raises(InputError, match="5000 basis functions"):
+        atoms.get_potential_energy()
+
+
+def test_build_check_of_5000_atoms_checks_free_atoms_within_the_limit(big, tmp_path, capsys, monkeypatch):
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    code, out, err = run(["build", str(big), "--check", "--json", "--out", str(tmp_path / "out")], capsys)
+    assert code == 0, err
+    check = strict_json(out)["structures"][0]["check"]
+    assert check["target"] == "free atoms" and "5000 basis functions" in check["reason"]
+
+
+def test_a_small_molecule_passes_the_guard(tmp_path, capsys, monkeypatch):
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    path = tmp_path / "water.xyz"
+    write(path, molecule("H2O"))  # ASE G2 geometry
+    code, out, err = run(["build", str(path), "--check", "--json", "--out", str(tmp_path / "out")], capsys)
+    assert code == 0, err
+    assert strict_json(out)["structures"][0]["check"]["converged"] is True
+
+
+def test_a_long_scf_prints_its_cycles_on_stderr(tmp_path, capsys, monkeypatch):
+    import stobuilder.checks as checks
+
+    monkeypatch.setattr(checks, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
+    path = tmp_path / "water.xyz"
+    write(path, molecule("H2O"))  # ASE G2 geometry
+    code, _, err = run(["build", str(path), "--check", "--out", str(tmp_path / "out")], capsys)
+    assert code == 0, err
+    lines = [line for line in err.splitlines() if "SCF (RHF, 7 basis functions): cycle " in line]
+    assert lines and all(line.startswith("stobuilder: ") and " hartree, " in line and "s elapsed" in line for line in lines)
+    assert [int(line.split("cycle ")[1].split(",")[0]) for line in lines][:2] == [1, 2]

@@ -155,6 +155,18 @@ def test_a_zeta_file_cannot_name_one_element_or_subshell_twice(hydrogen, tmp_pat
     assert not (tmp_path / "out").exists()
 
 
+def test_a_zeta_file_with_a_utf8_byte_order_mark_is_read(hydrogen, tmp_path, capsys):
+    path = tmp_path / "z.toml"
+    path.write_bytes(b"\xef\xbb\xbf[H]\n1s = 1.24\n")  # the BOM some editors put first
+    code, out, err = _run(["build", hydrogen, "--zeta-file", str(path), "--json", "--out", str(tmp_path / "out")],
+                          capsys)
+    assert code == 0, err
+    assert "1s 1.240000" in (tmp_path / "out" / "h.nw").read_text()
+    import stobuilder
+
+    assert stobuilder.load_zeta_file(str(path)) == {"H": {"1s": 1.24}}
+
+
 # ---------------------------------------------------------------------------- atom --json
 
 
@@ -190,3 +202,55 @@ def test_on_demand_optimisation_reports_progress_and_gives_the_same_result(tmp_p
     code, _, err = _run(["zeta", "Mg", "--charge", "1", "--rule", "optimized"], capsys)  # now from the disk cache
     assert code == 0 and "optimising" not in err
     optimized._optimise.cache_clear()
+
+
+# ---------------------------------------------------------------------------- a zeta file is a library; flags named (issue 21)
+
+
+def test_build_applies_a_zeta_library_file_where_its_elements_occur(hydrogen, tmp_path, capsys):
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[O]\n2p = 2.3\n[H]\n1s = 1.24\n")  # tune's file for a training set
+    code, out, err = _run(["build", hydrogen, "--zeta-file", str(library), "--out", str(tmp_path / "out")], capsys)
+    assert code == 0, err
+    assert "1s 1.240000" in (tmp_path / "out" / "h.nw").read_text()
+
+
+@pytest.mark.parametrize("text, words", [("[C]\n2p = 1.7\n[O]\n2p = 2.3\n", "C, O"), ("", "no ζ"), ("[H]\n", "no ζ")])
+def test_build_refuses_a_zeta_file_naming_none_of_the_elements(hydrogen, tmp_path, capsys, text, words):
+    library = tmp_path / "lib.toml"
+    library.write_text(text)
+    code, _, err = _run(["build", hydrogen, "--zeta-file", str(library), "--out", str(tmp_path / "out")], capsys)
+    _one_line_error(code, err)
+    assert f"--zeta-file {library}:" in err and words in err
+    assert not (tmp_path / "out").exists()
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--zeta", "C:2p=1.0"], "--zeta names elements in no structure: C"),
+    (["--charge", "5000"], "--charge must be <= 1000"),
+    (["--gaussians", "13"], "--gaussians must be <= 12"),
+    (["--zeta", "H:1s=abc"], "--zeta 'H:1s=abc'"),
+])
+def test_cli_errors_name_the_flag(hydrogen, tmp_path, capsys, argv, words):
+    code, _, err = _run(["build", hydrogen, *argv, "--out", str(tmp_path / "out")], capsys)
+    _one_line_error(code, err)
+    assert words in err, err
+
+
+def test_relax_applies_a_zeta_library_file(tmp_path, capsys):
+    h2 = tmp_path / "h2.xyz"
+    h2.write_text("2\n\nH 0 0 0\nH 0 0 0.74\n")
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[H]\n1s = 1.24\n")
+    code, out, err = _run(["relax", str(h2), "--zeta-file", str(library), "--out", str(tmp_path / "out"), "--json"],
+                          capsys)
+    assert code == 0, err
+    assert "1s 1.240000" in (tmp_path / "out" / "h2.nw").read_text()
+
+
+def test_merge_errors_name_the_flags(hydrogen, tmp_path, capsys):
+    target = tmp_path / "b.nw"
+    target.write_text('BASIS "ao basis" SPHERICAL\nEND\n')
+    code, _, err = _run(["build", hydrogen, "--merge-into", str(target), "--split-elements"], capsys)
+    _one_line_error(code, err)
+    assert "--merge-into and --split-elements exclude each other" in err

@@ -125,6 +125,35 @@ def test_parity_error_names_the_key_it_came_from(tmp_path):
         stobuilder.read_structures(str(path))
 
 
+@pytest.mark.parametrize("comment", ["spin=2 multiplicity=1", "multiplicity=1 spin=2", "spin=0 multiplicity=3",
+                                     "charge=1 spin=1 multiplicity=4"])
+def test_spin_and_multiplicity_that_contradict_are_an_error_naming_both(tmp_path, comment):
+    # multiplicity = 2S + 1 = spin + 1 (the definition of the spin multiplicity)
+    path = tmp_path / "w.xyz"
+    path.write_text(_water(comment))
+    with pytest.raises(stobuilder.InputError) as info:
+        stobuilder.read_structures(str(path))
+    message = str(info.value)
+    assert message.startswith(str(path)) and "spin=" in message and "multiplicity=" in message, message
+    assert "\n" not in message
+
+
+def test_spin_and_multiplicity_that_agree_are_read(tmp_path):
+    path = tmp_path / "w.xyz"
+    path.write_text(_water("spin=2 multiplicity=3"))
+    (frame,) = stobuilder.read_structures(str(path))
+    assert frame.spin == 2
+
+
+def test_cli_contradicting_spin_and_multiplicity_exits_2_and_writes_nothing(tmp_path, capsys):
+    path = tmp_path / "w.xyz"
+    path.write_text(_water("spin=2 multiplicity=1"))
+    code = main(["build", str(path), "--out", str(tmp_path / "out")])
+    err = capsys.readouterr().err
+    assert code == 2 and err.count("\n") == 1 and "spin=2" in err and "multiplicity=1" in err and str(path) in err
+    assert not (tmp_path / "out").exists()
+
+
 def test_caller_values_override_a_bad_file_value_only_where_given(tmp_path):
     path = tmp_path / "w.xyz"
     path.write_text(_water("charge=nan spin=2"))

@@ -187,3 +187,102 @@ def test_main_never_leaves_temporary_files(tmp_path, capsys, two):
     assert leftovers(out_dir) == []
     assert main(["build", *map(str, two), "--code", "all", "--out", str(out_dir)]) == 2  # exists, no --force
     assert leftovers(out_dir) == []
+
+
+# ---------------------------------------------------------------------------- text from inputs in file headers
+# Issue 21: text from an input that goes into a basis file's header (a rule name, a configuration,
+# a note; a structure's file name) goes through stobuilder.limits.one_line, so that it cannot end
+# the comment and become live content of the file.
+
+HOSTILE = "x\nEND\n****\nH S\n  1.0  1.0\r\nBASIS \"ao basis\"\u2028a 1\x85* Basis set\x1c$ \"q\"\\"
+
+
+def _hostile_basis():
+    from dataclasses import replace
+
+    import stobuilder
+
+    clean = replace(stobuilder.build_basis(["H", "O"]), notes=("a plain note",))
+    elements = tuple(replace(e, configuration=e.configuration + HOSTILE) for e in clean.elements)
+    return clean, replace(clean, elements=elements, rule="slater" + HOSTILE, notes=(HOSTILE,))
+
+
+@pytest.mark.parametrize("code", ["nwchem", "gaussian", "psi4", "cp2k", "pyscf", "dalton", "openmolcas", "qcschema"])
+def test_header_text_from_inputs_cannot_break_out_of_its_comment(code):
+    import stobuilder
+
+    clean, hostile = _hostile_basis()
+    text = stobuilder.write_basis(hostile, code)
+    # every line of the file is either a line of the clean file or a comment line of it, with the
+    # hostile text escaped inside (one line each: the same number of lines as the clean file)
+    assert len(text.splitlines()) == len(stobuilder.write_basis(clean, code).splitlines())
+    back = stobuilder.read_basis(text, code)
+    assert [e.shells for e in back.elements] == [e.shells for e in stobuilder.read_basis(
+        stobuilder.write_basis(clean, code), code).elements]
+
+
+@pytest.mark.parametrize("code", ["nwchem", "gaussian", "psi4", "cp2k", "pyscf", "dalton", "openmolcas", "qcschema"])
+def test_a_hostile_header_file_reads_the_same_in_the_host_and_second_readers(tmp_path, code):
+    # the host code's reader (PySCF's path loaders where it has one) and the independent second
+    # reader of test_formats read the whole file with the hostile header as the clean one
+    from test_formats import _same, host_reader, second_reader, write_file
+
+    clean, hostile = _hostile_basis()
+    good, bad = write_file(tmp_path, clean, code, stem="clean"), write_file(tmp_path, hostile, code, stem="hostile")
+    for reader in (lambda path: host_reader(code, path, ["H", "O"]), lambda path: second_reader(code, path)):
+        want, got = reader(good), reader(bad)
+        assert sorted(got) == sorted(want) == ["H", "O"]
+        for symbol in want:
+            _same(got[symbol], want[symbol], rel=0)
+
+
+def test_a_structure_file_name_with_line_ends_and_terminators_builds_files_that_load(tmp_path, capsys):
+    import shutil
+
+    from pyscf import gto
+
+    name = "w\nEND\n****\r.xyz"
+    path = tmp_path / name
+    write(path, molecule("H2O"), format="xyz")  # ASE G2 water
+    out = tmp_path / "out"
+    code = main(["build", str(path), "--out", str(out)])
+    assert code == 0, capsys.readouterr().err
+    (written,) = os.listdir(out)
+    assert written == "w\nEND\n****\r.nw"
+    plain = tmp_path / "plain.nw"  # PySCF takes a text with line ends for basis text, not a path
+    shutil.copy(out / written, plain)
+    mol = gto.M(atom="O 0 0 0; H 0 0.76 0.59; H 0 -0.76 0.59", basis=str(plain), verbose=0)
+    assert sorted(mol._basis) == ["H", "O"]
+
+
+# ---------------------------------------------------------------------------- limits.one_line itself
+
+LINE_ENDS = ["\n", "\r", "\r\n", "\v", "\f", "\x1c", "\x1d", "\x1e", "\x85", "\u2028", "\u2029"]  # str.splitlines' set (Python docs)
+
+
+def test_one_line_docstring_example():
+    import doctest
+
+    import stobuilder.limits
+
+    finder = doctest.DocTestFinder()
+    (test,) = [t for t in finder.find(stobuilder.limits) if t.name.endswith("one_line")]
+    result = doctest.DocTestRunner().run(test)
+    assert result.attempted >= 1 and result.failed == 0
+
+
+@pytest.mark.parametrize("end", LINE_ENDS + ["\x00", "\x7f", "\t", '"', "\\"])
+def test_one_line_escapes_and_decodes_back(end):
+    import ast
+    import json
+    import tomllib
+
+    from stobuilder.limits import one_line
+
+    text = f"a{end}b [He] = 1"
+    escaped = one_line(text)
+    assert escaped == "a" + "".join(f"\\u{ord(c):04x}" for c in end) + "b [He] = 1"
+    assert len(escaped.splitlines()) == 1
+    assert tomllib.loads(f'k = "{escaped}"')["k"] == text
+    assert json.loads(f'"{escaped}"') == text
+    assert ast.literal_eval(f'"{escaped}"') == text

@@ -72,3 +72,20 @@ def test_output_is_deterministic(basis):
     again = stobuilder.build_basis(["Zn", "S", "O", "H"], rule="slater", gaussians=3)
     for code in stobuilder.formats():
         assert stobuilder.write_basis(basis, code) == stobuilder.write_basis(again, code)
+
+
+def test_dalton_block_comments_state_each_block_in_our_words(basis):
+    # each "$" comment line above a block states its l and the block's own counts; the Dalton
+    # manual's layout makes every "$" line a comment
+    lines = stobuilder.write_basis(basis, "dalton").splitlines()
+    blocks = 0
+    for comment, block in zip(lines, lines[1:]):
+        if comment.startswith("$ l="):
+            blocks += 1
+            nprim, ncontr, _ = (int(x) for x in block.split())
+            letter = "spdf"[int(comment.split("=")[1].split()[0])]
+            expected = f"({letter}): none" if nprim == 0 else (
+                f"({letter}): {nprim} primitive{'' if nprim == 1 else 's'}, {ncontr} contraction{'' if ncontr == 1 else 's'}")
+            assert comment.endswith(expected), comment
+    assert blocks == sum(max(s.l for s in e.shells) + 1 for e in basis.elements)  # a block per l = 0 … lmax
+    assert not any("type functions" in line for line in lines)

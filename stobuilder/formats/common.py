@@ -12,12 +12,29 @@ from ..version import __version__
 from ..basis import L_LETTERS, Basis, ElementBasis, Shell
 from ..elements import element_symbol, normalise_symbol
 from ..errors import InputError
+from ..limits import one_line
 
 NORM_NAMES = {"l2": "least-squares (L2) fit, Hehre, Stewart & Pople 1969", "h1": "Sobolev H1 fit"}
 
 
+# Words that PySCF's file loaders (pyscf/gto/basis/parse_nwchem.py, parse_gaussian.py,
+# parse_cp2k.py, read for PySCF 2.14) take as a delimiter wherever they stand in a line, comments
+# included: "END" before a line end and "# BASIS SET" (NWChem, CP2K), "****" (Gaussian, Psi4).
+_LOADER_WORDS = re.compile(r"END|BASIS SET|\*\*\*\*")
+
+
+def comment_text(text) -> str:
+    """``text`` (which may come from an input) made safe inside a comment line of any of our
+    formats: one line (``limits.one_line``), and the first character of every loader delimiter
+    word (``_LOADER_WORDS``) written as its \\uNNNN escape, so that no reader finds a line end, a
+    terminator or an element separator in it."""
+    return _LOADER_WORDS.sub(lambda m: f"\\u{ord(m.group()[0]):04x}{m.group()[1:]}", one_line(text))
+
+
 def provenance_lines(basis: Basis) -> list[str]:
-    """Plain-text provenance, one fact a line, for a writer to put behind its comment marker."""
+    """Plain-text provenance, one fact a line, for a writer to put behind its comment marker.
+    Text that may come from an input (the rule's name, a configuration, a note) cannot end the
+    comment or read as a delimiter: every line goes through ``comment_text``."""
     lines = [
         f"{basis.name} basis written by stobuilder {__version__}",
         f"screening rule: {basis.rule}; Gaussians per STO: {basis.gaussians}; "
@@ -29,7 +46,7 @@ def provenance_lines(basis: Basis) -> list[str]:
             zetas = ", ".join(f"{s.label} {s.zeta:.6f}" for s in element.stos)
             lines.append(f"{element.symbol} [{element.configuration}]: zeta/bohr^-1 {zetas}")
     lines.extend(basis.notes)
-    return lines
+    return [comment_text(line) for line in lines]
 
 
 # PySCF's NWChem and CP2K file loaders (pyscf/gto/basis/parse_nwchem.py and parse_cp2k.py, read
@@ -46,7 +63,7 @@ def separator_line(element: ElementBasis, rule: str) -> str:
     PySCF's loaders split at, then the element, its configuration and the screening rule."""
     facts = [f"configuration {element.configuration}"] if element.configuration else []
     facts.append("shells as read from a file" if rule == "file" else f"screening rule {rule}")
-    return f"{SEPARATOR_PREFIX} for {element.symbol}: {', '.join(facts)}"
+    return f"{SEPARATOR_PREFIX} for {element.symbol}: {comment_text(', '.join(facts))}"
 
 
 def separator_start(text_lines: list[str], start: int) -> int:

@@ -43,8 +43,11 @@ DESCRIPTION = "CP2K basis-set file (BASIS_SET_FILE_NAME), one entry per element"
 
 
 def basis_name(basis: Basis) -> str:
-    """The entry name: the basis name with anything but letters, digits, '-' and '_' as '-'."""
-    return re.sub(r"[^A-Za-z0-9_-]+", "-", basis.name).strip("-")
+    """The entry name: the basis name with anything but letters, digits, '-' and '_' as '-', and
+    the words END and GTH (whose lines PySCF's CP2K loader drops or ends a block at,
+    pyscf/gto/basis/parse_cp2k.py, PySCF 2.14) as End and Gth: a rule's name may come from an input."""
+    name = re.sub(r"[^A-Za-z0-9_-]+", "-", basis.name).strip("-")
+    return re.sub(r"END|GTH", lambda m: m.group().capitalize(), name)
 
 
 def _n(shell) -> int:

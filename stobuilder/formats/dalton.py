@@ -37,10 +37,20 @@ EXTENSION = ".dalton.basis"
 DESCRIPTION = "Dalton basis-set library file: 'a Z' entries, one general contraction per l"
 
 
+def block_comment(l: int, primitives: int, contractions: int) -> str:
+    """The comment line above a block: its l and what it holds, e.g. "$ l=1 (p): 3 primitives,
+    2 contractions" ("none" for the empty block of an l below the highest)."""
+    letter = L_LETTERS[l].lower()
+    if not primitives:
+        return f"$ l={l} ({letter}): none"
+    return (f"$ l={l} ({letter}): {primitives} primitive{'' if primitives == 1 else 's'}, "
+            f"{contractions} contraction{'' if contractions == 1 else 's'}")
+
+
 def element_lines(element: ElementBasis, sp_shells: bool = False) -> list[str]:
     lines = [f"a {atomic_number(element.symbol)}", f"$ {element.symbol}"]
     for l, exps, rows in general_contractions(element):
-        lines.append(f"$ {L_LETTERS[l]}-type functions")
+        lines.append(block_comment(l, len(exps), len(rows[0]) if rows else 0))
         lines.append(f"{len(exps):5d}{len(rows[0]) if rows else 0:5d}    0")
         for a, row in zip(exps, rows):
             lines.append("  " + "  ".join(number(x) for x in (a, *row)))
