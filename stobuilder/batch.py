@@ -900,6 +900,27 @@ def local_executor(workers: int) -> cf.Executor:
     )
 
 
+def check_zeta(items: Sequence[BatchItem], options: BuildOptions) -> None:
+    """Before any work: the options' ζ against the elements of the batch's items, the rule of
+    every door (``pipeline.check_zeta_elements``: each element ``zeta`` names is in some item,
+    and a zeta file names an element of some item; OptionError otherwise). Only with ζ in the
+    options are the items read here, in this process; an item that cannot be read is left to its
+    worker, which records why (and when none can be read there is nothing to check against)."""
+    from .pipeline import check_zeta_elements
+    from .structures import read_structures
+
+    if not (options.zeta or options.zeta_library or options.zeta_file):
+        return
+    frames = []
+    for item in items:
+        try:
+            frames.extend(read_structures(item.path))
+        except Exception:  # unreadable, empty, an unknown element ...: the item's own failure
+            continue
+    if frames:
+        check_zeta_elements(options, frames)
+
+
 def run_batch(
     items: Sequence[BatchItem],
     options: BuildOptions,
@@ -925,11 +946,13 @@ def run_batch(
     threads : OpenMP threads per item for the SCF checks.
 
     Every finished item gets one record, appended and fsynced after its files are written; an
-    item's problem becomes a failed record and never stops the batch.
+    item's problem becomes a failed record and never stops the batch. ζ options that apply to no
+    item are refused first (``check_zeta``), before the output folder is touched.
     """
     start = time.perf_counter()
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
+    check_zeta(items, options)
     prepare_out_dir(out_dir, force)
     path = manifest_path(out_dir)
     manifest = Manifest(path, fresh=force)

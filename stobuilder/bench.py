@@ -218,8 +218,9 @@ def make_variants(rules: Sequence[str], gaussians: Sequence[int], fits: Sequence
     rules, gaussians, fits = (list(dict.fromkeys(x)) for x in (rules or ["slater"], gaussians or [3], fits or ["l2"]))
     out = [Variant(BuildOptions(rule=r, gaussians=n, norm=f)) for r, n, f in product(rules, gaussians, fits)]
     for path in dict.fromkeys(zeta_files):
-        zeta = load_zeta_file(path)
-        out += [Variant(BuildOptions(rule=r, gaussians=n, norm=f, zeta=zeta), path) for r, n, f in product(rules, gaussians, fits)]
+        library = load_zeta_file(path)  # read once: the library of every variant of this file
+        out += [Variant(BuildOptions(rule=r, gaussians=n, norm=f, zeta_file=path, zeta_library=library), path)
+                for r, n, f in product(rules, gaussians, fits)]
     labels = [v.label for v in out]
     for a in set(labels):
         if labels.count(a) > 1:
@@ -253,8 +254,10 @@ class BenchTask:
         from .version import __version__
 
         options = None
-        if self.options is not None:  # a zeta file's ζ of elements not in this structure do not count
-            options = self.options.to_json() | {"zeta": self.options.zeta_for(self.structure.symbols) or {}}
+        if self.options is not None:  # a zeta file's ζ of elements not in this structure do not count: the
+            # ζ its basis takes (library and own ζ merged) stand for both, so resumed records keep their fingerprint
+            options = self.options.to_json() | {"zeta": self.options.zeta_for(self.structure.symbols) or {},
+                                                "zeta_library": {}}
         doc = {"layout": TASK_LAYOUT, "stobuilder": __version__, "kind": self.kind,
                "symbols": list(self.structure.symbols), "positions": [list(p) for p in self.structure.positions],
                "charge": self.structure.charge, "spin": self.structure.spin,
@@ -417,11 +420,15 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     """The calculations of a bench, every input checked first (InputError, before any SCF): two
     structures with one name, a reference basis PySCF lacks for an element, a variant whose basis
     cannot be built for an element (every basis is built here, which is cheap), a zeta file that
-    names none of the structures' elements (its variant would repeat its rule's numbers). A zeta
-    file is a library: its ζ apply to the elements it names wherever they occur, the rest of it
-    is unused."""
+    names none of the structures' elements (its variant would repeat its rule's numbers; the rule
+    of every door, ``pipeline.check_zeta_elements``), a molecule whose electrons do not fit its
+    basis or whose SCF would not fit in memory, in a variant (``pipeline.check_electrons``) or in
+    the reference basis (``checks.check_mole_size``). A zeta file is a library: its ζ apply to the
+    elements it names wherever they occur, the rest of it is unused."""
+    from .checks import check_mole_size, make_mole
     from .elements import atomic_number
-    from .pipeline import basis_for
+    from .methods import pick_method
+    from .pipeline import basis_for, check_electrons, check_zeta_elements
 
     if not structures:
         raise InputError("no structures: give structure files or --set NAME")
@@ -435,20 +442,20 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     if reference is not None:
         reference = check_reference(reference, elements)
     for v in variants:
-        named = {symbol for symbol, _ in v.options.zeta}
-        if v.zeta_file is not None and not named & set(elements):
-            raise InputError(f"{one_line(v.zeta_file)}: the zeta file names none of the structures' elements (it names "
-                             f"{', '.join(sorted(named, key=atomic_number)) or 'no element'}; the structures have "
-                             f"{', '.join(elements)}): its variant would repeat its rule's numbers")
+        check_zeta_elements(v.options, [b.structure for b in structures])
     tasks: list[BenchTask] = []
     for v in variants:
-        for b in structures:
-            basis_for((b.structure,), v.options)  # a bad variant fails here, before any SCF
+        for b in structures:  # a bad variant or a molecule too big for memory fails here, before any SCF
+            check_electrons(b.structure, basis_for((b.structure,), v.options), "auto")
         for symbol in elements:
             tasks.append(BenchTask(atom_key(v, symbol), "atom", free_atom(symbol), v.options, None, threads))
         for b in structures:
             tasks.append(BenchTask(molecule_key(v, b.name), "molecule", b.structure, v.options, None, threads))
     if reference is not None:
+        for b in structures:
+            s = b.structure
+            mol = make_mole(list(zip(s.symbols, s.positions)), reference, s.charge, s.spin)
+            check_mole_size(mol, pick_method("auto", s.spin, f"({s.formula})"), f"{b.name} in {reference}")
         for symbol in elements:
             tasks.append(BenchTask(atom_key(None, symbol, reference), "atom", free_atom(symbol), None, reference, threads))
         for b in structures:

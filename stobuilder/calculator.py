@@ -49,18 +49,25 @@ def _check_names(given, allowed, what: str) -> None:
         raise InputError(f"{what}: unknown option {', '.join(map(repr, unknown))}; options are {', '.join(allowed)}")
 
 
+#: the calculator's parameters that are not named as their BuildOptions field (in its errors)
+OPTION_NAMES = {"norm": "fit"}
+
+
 def build_options(rule="slater", gaussians=3, fit="l2", exponents="family", radial="integer", zeta=None,
                   zeta_file=None, charge=None, spin=None, method="auto"):
     """The ``BuildOptions`` of the calculator's parameters (``fit`` is BuildOptions' ``norm``;
-    ``zeta`` {symbol: {label: ζ}} goes on top of ``zeta_file``, as on the command line)."""
-    from .options import BuildOptions, load_zeta_file, merge_zeta
+    ``zeta_file`` is a library, applied to the elements the atoms have; ``zeta``
+    {symbol: {label: ζ}} goes on top of it, as on the command line). Errors name the
+    calculator's parameters (``OPTION_NAMES``)."""
+    from .options import BuildOptions, OptionError
 
     if zeta is not None and not isinstance(zeta, dict):
         raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
-    table = merge_zeta(load_zeta_file(zeta_file) if zeta_file is not None else None,
-                       BuildOptions(zeta=zeta or {}).zeta_map)
-    return BuildOptions(rule=rule, gaussians=gaussians, norm=fit, exponents=exponents, radial=radial, zeta=table,
-                        charge=charge, spin=spin, method=method)
+    try:
+        return BuildOptions(rule=rule, gaussians=gaussians, norm=fit, exponents=exponents, radial=radial,
+                            zeta=zeta or {}, zeta_file=zeta_file, charge=charge, spin=spin, method=method)
+    except OptionError as exc:
+        raise exc.renamed(OPTION_NAMES) from None
 
 
 def _structure(atoms, options, where: str | None = None):
@@ -85,13 +92,16 @@ def _structure(atoms, options, where: str | None = None):
 
 def _basis(structure, options, cache: dict | None = None):
     """The basis of ``structure`` under ``options`` (``pipeline.basis_for``), from ``cache`` when
-    it holds one for the same content key; ζ overrides must name elements of the structure."""
+    it holds one for the same content key. The options' ζ are checked against the structure by
+    the rule of every door (``pipeline.check_zeta_elements``): each element ``zeta`` names is in
+    it, and a ``zeta_file`` names one of its elements."""
     from . import pipeline
+    from .options import OptionError
 
-    named = {s for s, _ in options.zeta}
-    missing = named - set(structure.symbols)
-    if missing:
-        raise InputError(f"{structure.path}: zeta names elements not in the structure: {', '.join(sorted(missing))}")
+    try:
+        pipeline.check_zeta_elements(options, (structure,))
+    except OptionError as exc:
+        raise exc.within(f"{structure.path}: ") from None
     key = pipeline.basis_key((structure,), options)
     basis = cache.get(key) if cache is not None else None
     if basis is None:
@@ -109,7 +119,9 @@ def pyscf_mole(atoms_or_path, **options):
     """The built PySCF ``Mole`` (spherical, Å) of an ASE Atoms or a structure file (its first
     frame) with our basis. ``options``: rule, gaussians, fit, exponents, radial, zeta, zeta_file,
     charge, spin, as for ``STOCalculator``; charge and spin default to the atoms' info (``charge``,
-    ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input."""
+    ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input.
+    The options' ζ are checked as the calculator checks them; no size guard (no SCF runs here:
+    what the caller runs on the Mole, and with what memory, is the caller's)."""
     from .checks import structure_mole
     from .structures import check_geometry, read_structures
 

@@ -107,6 +107,12 @@ def check_scf_size(functions: int, method: str, where: str) -> None:
         raise InputError(f"{where}: {size.describe()}")
 
 
+def check_mole_size(mol, method: str, where: str) -> None:
+    """``check_scf_size`` for a built PySCF Mole (its spherical functions ``mol.nao``), e.g. one
+    in a stored basis that no ``Basis`` of ours describes."""
+    check_scf_size(mol.nao, method, where)
+
+
 def _progress(mol, method: str):
     """A PySCF SCF callback that logs cycle, energy and elapsed time once the SCF has run longer
     than PROGRESS_SECONDS (the cycle is PySCF's ``cycle``, or ``imacro`` of its second-order solver)."""

@@ -274,8 +274,9 @@ def check_zeta_elements(options: BuildOptions, frames) -> None:
         raise OptionError("zeta_file", f" {one_line(options.zeta_file)}: it gives no ζ (no table with an entry)")
     if library and not present & set(library):
         where = ("zeta_file", f" {one_line(options.zeta_file)}:") if options.zeta_file else ("zeta_library", ":")
-        raise OptionError(where[0], f"{where[1]} it names {', '.join(sorted(library, key=atomic_number))}, none of "
-                                    f"the elements of the structures ({', '.join(sorted(present, key=atomic_number))})")
+        raise OptionError(where[0], f"{where[1]} it names none of the structures' elements (it names "
+                                    f"{', '.join(sorted(library, key=atomic_number))}; the structures have "
+                                    f"{', '.join(sorted(present, key=atomic_number))})")
 
 
 def union_basis(bases: Sequence[Basis]) -> Basis:

@@ -24,7 +24,8 @@ exponents but keeps the number and order of the basis functions, so that density
 guess. Only the structures holding a variable's element are recomputed for its derivative.
 
 The result (``TuneResult``) writes a zeta file (``toml_text``) that ``build --zeta-file`` reads
-unchanged. An SCF that does not converge at the start point is an InputError; one that stops
+unchanged: the tuned ζ and the ζ the options held fixed (their zeta library and own ζ,
+``fixed_zeta``), so the file alone reproduces the energies it reports. An SCF that does not converge at the start point is an InputError; one that stops
 converging during the search ends the search at the best point so far (``converged`` False).
 """
 
@@ -232,6 +233,25 @@ class TuneResult:
     def start_zeta(self) -> dict[str, dict[str, float]]:
         return self._table(self.variables, self.start)
 
+    @property
+    def fixed_zeta(self) -> dict[str, dict[str, float]]:
+        """The ζ the options held fixed that no variable frees, as {element: {subshell: ζ}}: the
+        zeta file's library (every element of it), the options' own ζ on top. The zeta file
+        writes them beside the tuned ζ, so that it alone gives the bases the energies were
+        computed with."""
+        tuned = {(v.element, label) for v in self.variables for label in v.subshells}
+        out: dict[str, dict[str, float]] = {}
+        for symbol, table in merge_zeta({s: dict(t) for s, t in self.options.zeta_library},
+                                        self.options.zeta_map).items():
+            kept = {label: z for label, z in table.items() if (symbol, label) not in tuned}
+            if kept:
+                out[symbol] = kept
+        return out
+
+    def _origin(self, symbol: str, label: str) -> str:
+        """Where a fixed ζ came from: "your own ζ" (the options' zeta) or "zeta file"."""
+        return "your own ζ" if label in (self.options.zeta_map or {}).get(symbol, {}) else "zeta file"
+
     def objective(self, which: str) -> float | None:
         values = [(r.weight, getattr(r, which)) for r in self.energies]
         if any(e is None for _, e in values):
@@ -242,6 +262,7 @@ class TuneResult:
         doc = {
             "zeta": self.zeta,
             "start_zeta": self.start_zeta,
+            "fixed_zeta": self.fixed_zeta,
             "energies": [r.to_json() for r in self.energies],
             "at_bound": self._table(self.variables, [v.label in self.at_bounds for v in self.variables]),
             "iterations": self.iterations,
@@ -256,9 +277,12 @@ class TuneResult:
 
     def toml_text(self) -> str:
         """The zeta file: a comment block (training set, rule, N, fit, energies, whether the
-        search converged), then one table per element. Deterministic: no times in it. Text from
-        inputs (structure names, the message naming one) goes through ``limits.one_line``, so a
+        search converged), then one table per element: the tuned ζ (DIGITS decimals), then the
+        fixed ζ of ``fixed_zeta`` as given (shortest exact form), each marked ``# fixed`` and
+        where it came from. Deterministic: no times in it. Text from inputs (structure names,
+        the zeta file's name, the message naming one) goes through ``limits.one_line``, so a
         file name cannot end its comment line and become a live entry."""
+        from .elements import atomic_number
         from .limits import one_line
 
         o = self.options
@@ -266,7 +290,7 @@ class TuneResult:
             "ζ (bohr^-1) tuned by stobuilder tune: minimised SCF energy of the training set",
             f"rule {o.rule}, N = {o.gaussians} Gaussians per STO, fit {o.norm}, exponents {o.exponents}, "
             f"radial {o.radial}",
-            f"free ζ: {' '.join(v.label for v in self.variables)}; every other ζ as the rule (or your own ζ) gives",
+            f"free ζ: {' '.join(v.label for v in self.variables)}; every other ζ as the rule, the zeta file or your own ζ gives",
             f"converged: {'yes' if self.converged else 'NO'} ({self.message}), {self.iterations} iterations, "
             f"{self.scf_count} SCF calculations",
         ]
@@ -280,10 +304,18 @@ class TuneResult:
             notes += [f"  {r.structure}  {r.method}  {_energy(r.start_hartree)} -> {_energy(r.final_hartree)}"
                       for r in self.validation]
         notes.append("start ζ: " + ", ".join(f"{v.label} = {z:.{DIGITS}f}" for v, z in zip(self.variables, self.start)))
+        fixed = self.fixed_zeta
+        if fixed:
+            source = f"the zeta file {o.zeta_file}" if o.zeta_file else "the zeta library"
+            notes.append(f"fixed ζ (not tuned, marked # fixed): as given by {source} and your own ζ on top; this "
+                         "file alone gives the bases of the energies above")
         lines = [f"# {one_line(n)}" for n in notes]
-        for symbol, table in self.zeta.items():
+        tuned = self.zeta
+        for symbol in [*tuned, *sorted(set(fixed) - set(tuned), key=atomic_number)]:
             lines += ["", f"[{symbol}]"]
-            lines += [f"{label} = {z:.{DIGITS}f}" for label, z in table.items()]
+            lines += [f"{label} = {z:.{DIGITS}f}" for label, z in tuned.get(symbol, {}).items()]
+            lines += [f"{label} = {float(z)!r}  # fixed: {self._origin(symbol, label)}"
+                      for label, z in fixed.get(symbol, {}).items()]
         return "\n".join(lines) + "\n"
 
 
@@ -477,8 +509,12 @@ class _Objective:
         return f, g
 
 
-def _setup(structures, options, vary, weights):
-    """(items, variables, start ζ) of a tuning job; every input checked."""
+def _setup(structures, options, vary, weights, validate=()):
+    """(options, items, variables, start ζ, held-out items) of a tuning job; every input checked
+    before the first SCF, the ζ of the options too (``pipeline.check_zeta_elements``: every
+    element ``zeta`` names is in a training or held-out structure, and a zeta file names one)."""
+    from .pipeline import check_zeta_elements
+
     options = options or BuildOptions()
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
@@ -487,6 +523,10 @@ def _setup(structures, options, vary, weights):
         raise InputError("tune needs at least one training structure")
     _refuse_twice(paths, "training")
     items = _normalised(_items(paths, options, _weights(weights, paths)))
+    validate = [os.fspath(p) for p in validate]
+    _refuse_twice(validate, "held-out")
+    held = _items(validate, options, role="held-out") if validate else []
+    check_zeta_elements(options, [it.structure for it in items + held])
     if vary is None:
         from .pipeline import basis_for
 
@@ -496,7 +536,7 @@ def _setup(structures, options, vary, weights):
         parse_vary([v.label for v in variables])  # a subshell free twice is an error
     if not variables:
         raise InputError("no free ζ: the basis of the structures has no STOs to vary")
-    return options, items, variables, _start_values(variables, items, options)
+    return options, items, variables, _start_values(variables, items, options), held
 
 
 def _refuse_twice(paths: Sequence[str], role: str) -> None:
@@ -525,7 +565,7 @@ def _normalised(items: list[_Item]) -> list[_Item]:
 def energy_gradient(structures, options: BuildOptions | None = None, vary=None, weights=None):
     """(objective, {variable label: dE/d ln ζ}) at the start ζ, in hartree: what the search
     starts from (central differences, ``STEP``; the weights scaled to mean 1, as in the search)."""
-    options, items, variables, start = _setup(structures, options, vary, weights)
+    options, items, variables, start, _ = _setup(structures, options, vary, weights)
     objective = _Objective(items, variables, options)
     try:
         f, g = objective.evaluate(np.log(start))
@@ -559,10 +599,7 @@ def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneR
 
     t0 = time.perf_counter()
     max_iterations = whole_number(max_iterations, "max_iterations", 0)
-    options, items, variables, start = _setup(structures, options, vary, weights)
-    validate = [os.fspath(p) for p in validate]
-    _refuse_twice(validate, "held-out")
-    held = _items(validate, options, role="held-out") if validate else []
+    options, items, variables, start, held = _setup(structures, options, vary, weights, validate)
     x0 = np.log(start)
     objective = _Objective(items, variables, options)
 

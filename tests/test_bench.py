@@ -297,7 +297,7 @@ def test_variants_product_and_zeta_files(tmp_path):
     assert [v.label for v in variants] == [
         "molecular N=3 l2", "molecular N=6 l2", "slater N=3 l2", "slater N=6 l2",
         "molecular N=3 l2 +h.toml", "molecular N=6 l2 +h.toml", "slater N=3 l2 +h.toml", "slater N=6 l2 +h.toml"]
-    assert variants[-1].options.zeta_map == {"H": {"1s": 1.2}}
+    assert variants[-1].options.zeta_for(["H"]) == {"H": {"1s": 1.2}} and variants[-1].options.zeta_map is None  # a library
 
 
 def _bad_zeta(tmp_path):

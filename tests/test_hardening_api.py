@@ -221,3 +221,52 @@ def test_merge_errors_name_the_python_arguments(water, tmp_path):
     assert str(info.value) == "merge_into and split_elements exclude each other"
     with pytest.raises(InputError, match="^merge_into .*: no such file$"):
         stobuilder.build_structures([water], merge_into=str(tmp_path / "none.nw"), write=False)
+
+
+# ---------------------------------------------------------------------------- the calculator's door (issue 21)
+
+
+def test_the_calculator_takes_a_zeta_file_as_a_library(tmp_path):
+    from stobuilder.calculator import STOCalculator
+
+    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n[H]\n1s = 1.24\n")  # C and N: not in H2O
+    atoms = molecule("H2O")  # ASE G2 geometry
+    atoms.calc = STOCalculator(zeta_file=library, zeta={"O": {"2p": 2.3}})
+    atoms.get_potential_energy()
+    stos = {(e.symbol, s.label): s.zeta for e in atoms.calc.basis.elements for s in e.stos}
+    assert stos[("H", "1s")] == 1.24 and stos[("O", "2p")] == 2.3 and atoms.calc.basis.symbols == ("H", "O")
+    mol = stobuilder.pyscf_mole(molecule("H2"), zeta_file=library)
+    assert mol._basis["H"] == stobuilder.build_basis(["H"], zeta={"H": {"1s": 1.24}})["H"].to_pyscf()
+
+
+def test_the_calculator_refuses_zeta_that_applies_to_nothing(tmp_path):
+    from stobuilder.calculator import STOCalculator
+
+    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n")
+    for calc, words in ((STOCalculator(zeta_file=library), f"H2O: zeta_file {library}: it names none of the "
+                                                           "structures' elements (it names C, N; the structures have H, O)"),
+                        (STOCalculator(zeta={"C": {"2p": 1.7}}), "H2O: zeta names elements in no structure: C")):
+        atoms = molecule("H2O")
+        atoms.calc = calc
+        with pytest.raises(InputError) as info:
+            atoms.get_potential_energy()
+        assert str(info.value) == words
+    with pytest.raises(InputError) as info:
+        stobuilder.pyscf_mole(molecule("H2O"), zeta_file=library)
+    assert "it names none of the structures' elements" in str(info.value)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"fit": "l3"}, "fit 'l3': unknown fitting norm"),
+    ({"gaussians": 13}, "gaussians must be <= 12"),
+    ({"zeta": {"H": {"1s": -1.0}}}, "zeta H:1s"),
+])
+def test_calculator_errors_name_the_calculator_parameters(kwargs, words):
+    from stobuilder.calculator import STOCalculator
+
+    with pytest.raises(InputError) as info:
+        STOCalculator(**kwargs)
+    assert str(info.value).startswith(words) and "--" not in str(info.value)
+    with pytest.raises(InputError) as info:
+        stobuilder.pyscf_mole(molecule("H2"), **kwargs)
+    assert str(info.value).startswith(words)

@@ -301,3 +301,48 @@ def test_bad_scheduler_addresses_are_errors_before_anything_starts(library, tmp_
 def test_scheduler_addresses_of_dask_form_pass_the_check(address):
     # forms of distributed's comm addresses (distributed docs, "Communications"; value from memory)
     assert batch.check_scheduler_address(address) == address
+
+
+# ---------------------------------------------------------------------------- ζ of the options (issue 21)
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--zeta-file", "LIB"], "--zeta-file LIB: it names none of the structures' elements (it names Fe, Co; the "
+                             "structures have H, C, N, O)"),
+    (["--zeta-file", "EMPTY"], "--zeta-file EMPTY: it gives no ζ"),
+    (["--zeta", "Fe:3d=2.1"], "--zeta names elements in no structure: Fe"),
+])
+def test_zeta_that_applies_to_no_item_is_refused_before_any_work(library, tmp_path, capsys, monkeypatch, argv, words):
+    """The rule of build, relax, tune and bench (``pipeline.check_zeta_elements``) over all the
+    batch's items: a zeta file naming none of their elements would be a silent no-op. An item
+    that cannot be read (here an empty file) does not hide the others' elements."""
+    (library / "empty.xyz").write_text("")
+    lib = tmp_path / "lib.toml"
+    lib.write_text("[Fe]\n3d = 2.1\n[Co]\n3d = 2.2\n")
+    empty = tmp_path / "empty.toml"
+    empty.write_text("[Fe]\n")
+    names = {"LIB": str(lib), "EMPTY": str(empty)}
+    argv = [names.get(a, a) for a in argv]
+    monkeypatch.setattr(batch, "run_tasks", lambda *a, **k: pytest.fail("the batch started"))
+    code = main(["batch", str(library), "--out", str(tmp_path / "out"), *argv, "--progress", "off"])
+    err = capsys.readouterr().err
+    _one_line_error(subprocess.CompletedProcess([], code, "", err))
+    for key, value in names.items():
+        words = words.replace(key, value)
+    assert words in err, err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_zeta_file_applies_where_its_elements_occur_in_a_batch(library, tmp_path):
+    lib = tmp_path / "lib.toml"
+    lib.write_text("[C]\n2p = 1.7\n[Fe]\n3d = 2.1\n")  # C occurs in CH4 only, Fe nowhere
+    with _threads() as pool:
+        summary = run_batch(discover([str(library)]), BuildOptions(zeta_file=str(lib)), str(tmp_path / "out"),
+                            executor=pool)
+    assert summary.done == 3 and summary.failed == 0
+    plain = BuildOptions()
+    with _threads() as pool:
+        run_batch(discover([str(library)]), plain, str(tmp_path / "plain"), executor=pool)
+    same = {n: (tmp_path / "out" / n).read_bytes() == (tmp_path / "plain" / n).read_bytes()
+            for n in ("CH4.nw", "H2O.nw", "NH3.nw")}
+    assert same == {"CH4.nw": False, "H2O.nw": True, "NH3.nw": True}

@@ -217,6 +217,26 @@ def test_a_zeta_file_naming_no_element_of_the_structures_is_refused(tmp_path, ca
     assert not (tmp_path / "out").exists()
 
 
+def test_a_bench_zeta_file_takes_the_rule_and_words_of_every_door(tmp_path, capsys):
+    # the rule of build, relax, tune and batch (pipeline.check_zeta_elements): the command line
+    # names the flag, the Python door its argument; a file with no ζ in it is refused as well
+    from stobuilder.options import OptionError
+
+    zeta = tmp_path / "helium.toml"
+    zeta.write_text("[He]\n1s = 1.6875\n")  # 27/16, He's variational ζ (Zener 1930; value from memory)
+    code, _, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "--zeta-file", str(zeta))
+    assert_one_line_error(code, err)
+    assert err.startswith(f"stobuilder: error: --zeta-file {zeta}: it names none of the structures' elements"), err
+    structures = bench.set_structures("g2-1", ["LiH"])
+    with pytest.raises(OptionError, match=f"^zeta_file {re.escape(str(zeta))}: it names none"):
+        bench.plan(structures, bench.make_variants(["slater"], [3], ["l2"], [str(zeta)]))
+    zeta.write_text("[H]\n")
+    code, _, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "--zeta-file", str(zeta))
+    assert_one_line_error(code, err)
+    assert f"--zeta-file {zeta}: it gives no ζ" in err
+    assert not (tmp_path / "out").exists()
+
+
 def test_a_zeta_file_is_a_library(tmp_path, capsys, threads):
     # [H] applies to LiH's H; [He] is unused, and editing it changes nothing: nothing recomputed
     zeta = tmp_path / "lib.toml"

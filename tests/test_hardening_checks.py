@@ -336,3 +336,41 @@ def test_a_long_scf_prints_its_cycles_on_stderr(tmp_path, capsys, monkeypatch):
     lines = [line for line in err.splitlines() if "SCF (RHF, 7 basis functions): cycle " in line]
     assert lines and all(line.startswith("stobuilder: ") and " hartree, " in line and "s elapsed" in line for line in lines)
     assert [int(line.split("cycle ")[1].split(",")[0]) for line in lines][:2] == [1, 2]
+
+
+@pytest.fixture()
+def bench_threads(monkeypatch):
+    """The bench's calculations in a thread of this process, where ``no_scf`` reaches them."""
+    import concurrent.futures as cf
+
+    from stobuilder import batch
+
+    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+
+
+def test_bench_refuses_a_molecule_too_big_for_memory_before_any_scf(big, tmp_path, capsys, no_scf, bench_threads,
+                                                                     monkeypatch):
+    # issue 21: "bench tried to allocate 60 GiB"; the same estimate as relax and tune (above)
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    out = tmp_path / "out"
+    code, _, err = run(["bench", str(big), "--out", str(out), "--progress", "off"], capsys)
+    assert_bad_input(code, err, out, str(big), "5000 basis functions", "8,250 MB", "4,000 MB", "STOBUILDER_MAX_MEMORY")
+
+
+def test_bench_refuses_a_reference_basis_too_big_for_memory_before_any_scf(tmp_path, capsys, no_scf, bench_threads,
+                                                                           monkeypatch):
+    # CH4 in cc-pVTZ: C 4s3p2d1f = 30 and H 3s2p1d = 14 spherical functions (Dunning, J. Chem. Phys. 90,
+    # 1007 (1989); value from memory), 86 in all: its integrals, 86⁴/1e6 = 54.7 MB, do not fit in
+    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.scf_size);
+    # the minimal basis, 9 functions, fits (about 0.03 MB)
+    from stobuilder.checks import scf_size
+
+    monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "20")
+    expected = scf_size(86, "RHF", 20.0)
+    assert not expected.incore
+    out = tmp_path / "out"
+    code, _, err = run(["bench", "--set", "g2-1", "CH4", "--reference", "cc-pvtz", "--out", str(out), "--progress", "off"],
+                       capsys)
+    assert_bad_input(code, err, out, "CH4 in cc-pvtz", "86 basis functions", f"about {expected.memory_mb:,.0f} MB",
+                     "limit of 20 MB", "STOBUILDER_MAX_MEMORY")
+    assert scf_size(9, "RHF", 20.0).fits

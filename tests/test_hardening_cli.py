@@ -254,3 +254,47 @@ def test_merge_errors_name_the_flags(hydrogen, tmp_path, capsys):
     code, _, err = _run(["build", hydrogen, "--merge-into", str(target), "--split-elements"], capsys)
     _one_line_error(code, err)
     assert "--merge-into and --split-elements exclude each other" in err
+
+
+# ---------------------------------------------------------------------------- a tampered fit cache (issue 21)
+
+
+def _scaled_exponents(doc):
+    """The issue's case: every exponent ×1.5 and the checksum made to match the edited entry."""
+    from stobuilder.expansion import library
+
+    doc["fit"]["exponents"] = [1.5 * a for a in doc["fit"]["exponents"]]
+    doc["sha256"] = library._entry_digest(doc["key"], doc["fit"])
+    return json.dumps(doc)
+
+
+def _edited_coefficient(doc):
+    """One coefficient changed, the checksum left as it was."""
+    doc["fit"]["coefficients"]["4s"][0] *= 1.01
+    return json.dumps(doc)
+
+
+@pytest.mark.parametrize("tamper", [_scaled_exponents, _edited_coefficient, lambda doc: "{ not json"])
+def test_a_tampered_fit_cache_gives_the_same_bytes_as_a_clean_one(tmp_path, tamper):
+    """K with --radial effective-n needs the 4s,4p fit at n* = 3.7 (Slater, Phys. Rev. 36, 57
+    (1930): n* = 3.7 for n = 4; value from memory), which no shipped library holds: it is fitted
+    on demand and cached in $STOBUILDER_CACHE_DIR/fits. Each build runs in a fresh process (no
+    fit memoised). A cache file edited after it was written is not used: the build gives the
+    bytes of a clean cache, and the file is rewritten as it was."""
+    structure = tmp_path / "k.xyz"
+    structure.write_text("1\n\nK 0 0 0\n")
+    env = child_env(STOBUILDER_CACHE_DIR=str(tmp_path / "cache"))
+
+    def build(out):
+        run = subprocess.run([sys.executable, "-m", "stobuilder.cli", "build", str(structure), "--radial", "effective-n",
+                              "--out", str(tmp_path / out)], capture_output=True, text=True, env=env, timeout=120)
+        assert run.returncode == 0, run.stderr
+        return (tmp_path / out / "k.nw").read_bytes()
+
+    clean = build("clean")
+    (entry,) = (tmp_path / "cache" / "fits").iterdir()
+    written = entry.read_bytes()
+    assert json.loads(written)["fit"]["n_eff"] == {"4s": 3.7, "4p": 3.7}
+    entry.write_text(tamper(json.loads(written)))
+    assert build("again") == clean
+    assert entry.read_bytes() == written

@@ -249,6 +249,50 @@ def test_a_structure_given_twice_is_refused(tmp_path, capsys, monkeypatch):
     assert not (tmp_path / "z.toml").exists()
 
 
+# ---------------------------------------------------------------------------- 5b. ζ of the options (issue 21)
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--zeta", "C:2p=1.0"], "--zeta names elements in no structure: C"),
+    (["--zeta-file", "LIB"], "--zeta-file LIB: it names none of the structures' elements (it names C, O;"),
+])
+def test_zeta_naming_no_training_element_is_refused_before_any_scf(tmp_path, capsys, monkeypatch, argv, words):
+    """The typo guard of build and relax (``pipeline.check_zeta_elements``): tune ignored them."""
+    h2 = _h2(tmp_path)
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[O]\n2p = 2.3\n")
+    argv = [a.replace("LIB", str(library)) for a in argv]
+    _no_scf(monkeypatch)
+    code, _, err = run_cli(["tune", h2, *argv, "--out", str(tmp_path / "z.toml"), *N], capsys)
+    assert_one_line_error(code, err)
+    assert words.replace("LIB", str(library)) in err, err
+    assert not (tmp_path / "z.toml").exists()
+
+
+def test_the_zeta_file_keeps_the_fixed_zeta_and_gives_the_energies_it_reports(tmp_path, capsys):
+    """Li (1s² 2s, ROHF) with its 1s fixed by --zeta and a library from --zeta-file: the file tune
+    writes holds the tuned 2s,2p, the fixed 1s and the library's unused [C], and build --check
+    with that file alone gives the tuned energy tune reports (the same basis, the same SCF)."""
+    li = tmp_path / "li.xyz"
+    li.write_text("1\n\nLi 0 0 0\n")
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[Li]\n2s = 0.9\n")
+    out = tmp_path / "z.toml"
+    doc, _ = _tune(capsys, str(li), "--zeta", "Li:1s=2.6", "--zeta-file", str(library), "--vary", "Li:2s,2p",
+                   "--out", str(out))
+    tuned = doc["zeta"]["Li"]
+    assert doc["fixed_zeta"] == {"Li": {"1s": 2.6}, "C": {"2p": 1.7}}
+    assert load_zeta_file(str(out)) == {"Li": {**tuned, "1s": 2.6}, "C": {"2p": 1.7}}
+    text = out.read_text(encoding="utf-8")
+    assert "1s = 2.6  # fixed: your own ζ" in text and "2p = 1.7  # fixed: zeta file" in text and str(library) in text
+    code, report, err = run_cli(["build", str(li), "--gaussians", "2", "--zeta-file", str(out), "--check", "--json",
+                                 "--out", str(tmp_path / "basis")], capsys)
+    assert code == 0, err
+    check = json.loads(report)["structures"][0]["check"]
+    # both SCFs converged to 1e-9 hartree or better (PySCF's default conv_tol; tune's 1e-11)
+    assert check["energy_hartree"] == pytest.approx(doc["energies"][0]["final_hartree"], abs=1e-8)
+
+
 # ---------------------------------------------------------------------------- 6. SIGINT
 
 
