@@ -129,13 +129,34 @@ def test_one_target_that_cannot_be_written_stops_the_whole_build(tmp_path, capsy
     assert sorted(os.listdir(out_dir)) == ["b.nw"]
 
 
-def test_an_unwritable_output_folder_is_named(tmp_path, capsys, two, monkeypatch):
+def test_an_unwritable_output_folder_is_named_before_any_work(tmp_path, capsys, two, monkeypatch):
+    """No file can be created where the output folder is to be made (EACCES from the probe,
+    files.check_targets): refused before the SCF of --check, naming the folder."""
     import tempfile
+
+    from stobuilder import checks
 
     def mkstemp(*args, **kwargs):
         raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
 
+    def solve(*args, **kwargs):
+        pytest.fail("an SCF ran before the output folder was checked")
+
     monkeypatch.setattr(tempfile, "mkstemp", mkstemp)
+    monkeypatch.setattr(checks, "solve", solve)
+    out_dir = tmp_path / "o"
+    code, _, err = run(["build", str(two[0]), "--check", "--out", str(out_dir)], capsys)
+    assert_bad_input(code, err, out_dir, f"{out_dir}: cannot be made in {tmp_path} (Permission denied)")
+
+
+def test_a_file_that_cannot_be_written_when_the_time_comes_is_named(tmp_path, capsys, two, monkeypatch):
+    """The folder takes files when checked but the write itself fails (the disk filled up in
+    between): the error names the target, never the temporary file."""
+
+    def write_temp(*args, **kwargs):
+        raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
+
+    monkeypatch.setattr(files, "_write_temp", write_temp)
     out_dir = tmp_path / "o"
     code, _, err = run(["build", str(two[0]), "--out", str(out_dir)], capsys)
     assert_bad_input(code, err, out_dir, f"{out_dir / 'a.nw'}: cannot write it (Permission denied)")
