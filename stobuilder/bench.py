@@ -749,7 +749,7 @@ def run_bench(
 
     start = time.perf_counter()
     batch.prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
-    check_targets({os.path.join(out_dir, base): out_dir for base in OUTPUT_NAMES.values()}, force=True)  # before any SCF
+    check_targets({os.path.join(out_dir, base): "" for base in OUTPUT_NAMES.values()}, force=True)  # before any SCF
     path = os.path.join(out_dir, MANIFEST_NAME)
     manifest = batch.Manifest(path, fresh=force, what="bench")
     notes = list(manifest.notes)

@@ -456,7 +456,7 @@ def _cmd_fit(args) -> int:
     if args.plot:  # before any fit: the plot may be written (atomic_write makes no folder)
         from .files import check_targets
 
-        check_targets({args.plot: "--plot"}, args.force, make_folders=False, name="--plot")
+        check_targets({args.plot: ""}, args.force, make_folders=False, name="--plot")
     fit = lookup(labels, args.gaussians, args.fit)
     doc = fit_document(fit, args.zeta)  # validates --zeta
     if args.plot:
@@ -535,7 +535,7 @@ def _check_tune_out(out: str, force: bool, inputs) -> None:
     exists — tune makes none — and takes a new file)."""
     from .files import check_targets
 
-    check_targets({out: "--out"}, force, inputs, make_folders=False, name="--out")
+    check_targets({out: ""}, force, inputs, make_folders=False, name="--out")
 
 
 def _tune_table(result, out: str) -> str:

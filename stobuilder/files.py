@@ -206,8 +206,8 @@ def check_folder(folder: str, make: bool = True) -> None:
 
 def check_targets(targets: Mapping[str, str], force: bool, inputs=(), make_folders: bool = True,
                   name: str = "") -> None:
-    """Before any work, raise InputError unless every file of ``targets`` (path → the input that
-    writes it) can be written: no two targets on one path; a target is not a folder, not one of
+    """Before any work, raise InputError unless every file of ``targets`` (path → the input file
+    that writes it, or "" for none) can be written: no two targets on one path; a target is not a folder, not one of
     the inputs (the values of ``targets`` and ``inputs``; even with ``force``), and not an
     existing file or dangling symbolic link unless ``force`` (OverwriteError); its folder exists
     or (``make_folders``) can be made, and a file can be created there (see ``check_folder``).
