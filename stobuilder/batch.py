@@ -797,8 +797,9 @@ def make_progress(total: int, mode: str = "auto", stream=None, interval: float =
 def prepare_out_dir(out_dir: str, force: bool, manifest_name: str = MANIFEST_NAME, what: str = "batch") -> None:
     """Create the output folder. A folder that holds files but no manifest ``manifest_name`` is
     refused unless ``force`` (the run would overwrite files it does not own)."""
-    if os.path.exists(out_dir) and not os.path.isdir(out_dir):
-        raise InputError(f"{out_dir}: exists and is not a folder")
+    from .files import check_folder
+
+    check_folder(out_dir)  # a folder, or one that can be made, that takes new files
     if os.path.isdir(out_dir) and not force and not os.path.exists(os.path.join(out_dir, manifest_name)):
         if any(not e.startswith(".") for e in os.listdir(out_dir)):
             raise InputError(f"{out_dir}: the folder holds files but no {what} manifest; use --force to write into it")

@@ -752,10 +752,11 @@ def run_bench(
     ``force`` recomputes everything and starts a fresh manifest (the old one kept as a backup)."""
     from . import batch
     from .bench_report import render_outputs
-    from .files import write_all
+    from .files import check_targets, write_all
 
     start = time.perf_counter()
     batch.prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
+    check_targets({os.path.join(out_dir, base): "" for base in OUTPUT_NAMES.values()}, force=True)  # before any SCF
     path = os.path.join(out_dir, MANIFEST_NAME)
     manifest = batch.Manifest(path, fresh=force, what="bench")
     notes = list(manifest.notes)

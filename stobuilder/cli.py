@@ -22,12 +22,36 @@ class _Parser(argparse.ArgumentParser):
         raise InputError(f"{self.prog}: {message}")
 
 
-def _whole_number(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    return value
+WHOLE_NUMBER_LIMIT = 10**100  # far beyond any flag's own range (which the options check); refused before int()
+
+
+def _whole_in(low: int | None = None, high: int | None = None, what: str = ""):
+    """The argparse type of every whole-number flag: digits with an optional sign and exponent
+    (``200``, ``+3``, ``2e2``), no decimal point (``2.0`` is refused, as the Python door refuses
+    the float 2.0), else "is not a whole number"; one outside
+    [``low``, ``high``] (default: within ±WHOLE_NUMBER_LIMIT; the options check their own range
+    after) is "out of range", saying the range (``what`` names the values: "steps")."""
+    from decimal import Decimal, InvalidOperation
+
+    lo = -WHOLE_NUMBER_LIMIT if low is None else low
+    hi = WHOLE_NUMBER_LIMIT if high is None else high
+
+    def parse(text: str) -> int:
+        try:
+            value = Decimal(text.strip())
+        except InvalidOperation:
+            value = None
+        if value is None or not value.is_finite() or value != value.to_integral_value() or "." in text:
+            raise argparse.ArgumentTypeError(f"{text!r} is not a whole number")
+        if not lo <= value <= hi:
+            span = f"{what} go from {lo} to {hi}" if what else f"no flag takes a whole number beyond ±1e{len(str(hi)) - 1}"
+            raise argparse.ArgumentTypeError(f"{text} is out of range: {span}")
+        return int(value)
+
+    return parse
+
+
+_whole_number = _whole_in()
 
 
 def _add_rule(p, default="slater"):
@@ -74,7 +98,7 @@ def _parser() -> argparse.ArgumentParser:
     add_arguments(r, _whole_number)
     r.add_argument("--fmax", type=_relax_fmax, default=relax.DEFAULT_FMAX, metavar="EV_PER_A",
                    help=f"largest force on an atom at convergence (default {relax.DEFAULT_FMAX} eV/Å)")
-    r.add_argument("--steps", type=_relax_steps, default=relax.DEFAULT_STEPS, metavar="N",
+    r.add_argument("--steps", type=_whole_in(0, relax.MAX_STEPS, "steps"), default=relax.DEFAULT_STEPS, metavar="N",
                    help=f"optimizer steps at most, 0 to {relax.MAX_STEPS} (default {relax.DEFAULT_STEPS})")
     r.add_argument("--optimizer", choices=relax.OPTIMIZERS, default=relax.OPTIMIZERS[0],
                    help=f"ASE optimizer (default {relax.OPTIMIZERS[0]})")
@@ -251,23 +275,6 @@ def _relax_fmax(text: str) -> float:
     return value
 
 
-def _relax_steps(text: str) -> int:
-    """``--steps``: a whole number (``200``, also ``2e2``) from 0 to relax.MAX_STEPS."""
-    from decimal import Decimal, InvalidOperation
-
-    from .relax import MAX_STEPS
-
-    try:
-        value = Decimal(text.strip())
-    except InvalidOperation:
-        value = None
-    if value is None or not value.is_finite() or value != value.to_integral_value():
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number")
-    if not 0 <= value <= MAX_STEPS:
-        raise argparse.ArgumentTypeError(f"{text} is out of range: steps go from 0 to {MAX_STEPS}")
-    return int(value)
-
-
 def _cmd_relax(args) -> int:
     from .limits import one_line
     from .options import from_args
@@ -438,18 +445,6 @@ def _cmd_atom(args) -> int:
 # ---------------------------------------------------------------------------- fit
 
 
-def _check_new_file(path: str, force: bool, option: str) -> None:
-    """Before any work: ``path`` may be written (it does not exist, not even as a dangling
-    symbolic link, unless ``force``; it is not a folder)."""
-    import os
-
-    if os.path.isdir(path):
-        raise InputError(f"{option} {path}: is a folder")
-    if os.path.lexists(path) and not force:
-        what = "is a dangling symbolic link" if not os.path.exists(path) else "exists"
-        raise InputError(f"{option} {path}: {what}; use --force to replace it")
-
-
 def _cmd_fit(args) -> int:
     from .expansion import lookup
     from .expansion.report import fit_document, fit_table
@@ -458,8 +453,10 @@ def _cmd_fit(args) -> int:
 
     labels = [x for item in args.subshells for x in item.split(",") if x]
     zeta_value(args.zeta, "--zeta")
-    if args.plot:
-        _check_new_file(args.plot, args.force, "--plot")
+    if args.plot:  # before any fit: the plot may be written (atomic_write makes no folder)
+        from .files import check_targets
+
+        check_targets({args.plot: ""}, args.force, make_folders=False, name="--plot")
     fit = lookup(labels, args.gaussians, args.fit)
     doc = fit_document(fit, args.zeta)  # validates --zeta
     if args.plot:
@@ -533,30 +530,12 @@ def _cmd_tune(args) -> int:
 
 
 def _check_tune_out(out: str, force: bool, inputs) -> None:
-    """Before the first SCF: ``--out`` may be written. It is not a folder, not an existing file
-    (or dangling link) without --force, not one of the ``inputs`` even with --force, its folder
-    exists, and a file can be created there (a temporary file, removed at once: this is what
-    catches a read-only file system)."""
-    import os
-    import tempfile
+    """Before the first SCF: ``--out`` may be written (``files.check_targets``: not a folder, not
+    one of the ``inputs`` even with --force, not an existing file without --force, its folder
+    exists — tune makes none — and takes a new file)."""
+    from .files import check_targets
 
-    from .files import TEMP_PREFIX, TEMP_SUFFIX
-    from .limits import one_line
-
-    _check_new_file(out, force, "--out")
-    for path in inputs:
-        if os.path.exists(out) and os.path.exists(path) and os.path.samefile(out, path):
-            raise InputError(f"--out {one_line(out)}: is the input {one_line(path)}; the zeta file needs a name of its own")
-    folder = os.path.dirname(os.path.abspath(out))
-    if not os.path.isdir(folder):
-        what = "is not a folder" if os.path.exists(folder) else "does not exist"
-        raise InputError(f"--out {one_line(out)}: its folder {one_line(folder)} {what}")
-    try:
-        fd, probe = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
-    except OSError as exc:
-        raise InputError(f"--out {one_line(out)}: cannot write there ({exc.strerror or exc})") from None
-    os.close(fd)
-    os.unlink(probe)
+    check_targets({out: ""}, force, inputs, make_folders=False, name="--out")
 
 
 def _tune_table(result, out: str) -> str:
@@ -658,11 +637,15 @@ def _quiet_broken_pipe() -> int:
 
 
 def _flag_text(exc: InputError) -> str:
-    """The message of ``exc`` in the command line's words: an option's error (``OptionError``,
-    which names the Python argument) names the option's flag instead."""
-    from .options import CLI_FLAGS, OptionError
+    """The message of ``exc`` in the command line's words, on one line: an error that names
+    Python arguments (``options.OptionError``, ``files.OverwriteError``: anything with
+    ``render``) names their flags instead; a message that a path with a line end would break
+    gets the line end escaped (``limits.one_line``)."""
+    from .limits import one_line
+    from .options import CLI_FLAGS
 
-    return exc.render(CLI_FLAGS) if isinstance(exc, OptionError) else str(exc)
+    text = exc.render({**CLI_FLAGS, "force": "--force"}) if hasattr(exc, "render") else str(exc)
+    return one_line(text) if len(text.splitlines()) > 1 else text
 
 
 def main(argv=None) -> int:

@@ -144,20 +144,94 @@ def write_all(contents: Mapping[str, str | bytes], out_dir: str | None = None, k
             _unlink(backup)
 
 
-def check_targets(targets: Mapping[str, str], force: bool) -> None:
-    """Raise InputError before anything is written if a target exists (without ``force``) or two
-    outputs would land on the same path."""
+class OverwriteError(InputError):
+    """A target exists and ``force`` was not given. The message says how to allow it in the
+    words of the door: ``force=True`` from Python, ``render({"force": "--force"})`` on the
+    command line (``cli`` prints every InputError that has ``render`` that way)."""
+
+    def __init__(self, text: str):
+        self.text = text
+        super().__init__(self.render({}))
+
+    def render(self, names: Mapping[str, str]) -> str:
+        return f"{self.text}; use {names.get('force', 'force=True')} to overwrite it"
+
+
+def _probe(folder: str) -> OSError | None:
+    """Create a temporary file in ``folder`` and remove it at once: None when that worked, else
+    the OSError. Permission bits alone do not answer this (root ignores them; a read-only file
+    system or /sys refuses root too)."""
+    try:
+        fd, name = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=folder)
+    except OSError as exc:
+        return exc
+    os.close(fd)
+    _unlink(name)
+    return None
+
+
+def _folder_problem(folder: str, make: bool, subject: str | None, probed: dict[str, OSError | None]) -> str | None:
+    """What stops files being written in ``folder``, as a message, or None. ``make``: a missing
+    folder may be made (its nearest existing ancestor must then be a folder we can write into).
+    The message begins with ``subject`` (None: the folder itself). ``probed`` keeps the probe of
+    each existing folder already tried."""
+    head = f"{folder}:" if subject is None else f"{subject}: its folder {folder}"
+    nearest = os.path.abspath(folder)
+    while not os.path.lexists(nearest):
+        nearest = os.path.dirname(nearest)
+    missing = nearest != os.path.abspath(folder)
+    if missing and not make:
+        return f"{head} does not exist"
+    if not os.path.isdir(nearest):
+        return f"{head} cannot be made, {nearest} is not a folder" if missing else f"{head} exists and is not a folder"
+    if nearest not in probed:
+        probed[nearest] = _probe(nearest)
+    exc = probed[nearest]
+    if exc is None:
+        return None
+    reason = exc.strerror or str(exc)
+    return f"{head} cannot be made in {nearest} ({reason})" if missing else f"{subject or folder}: cannot write there ({reason})"
+
+
+def check_folder(folder: str, make: bool = True) -> None:
+    """Before any work: files can be written in ``folder``. It exists as a folder, or (``make``)
+    can be made, its nearest existing ancestor being a folder; and a temporary file can be
+    created (and is removed at once) in the nearest existing one, which is what catches
+    read-only file systems whoever we are. InputError naming ``folder`` (and what is in the way)
+    otherwise. Nothing stays on disk."""
+    problem = _folder_problem(os.fspath(folder), make, None, {})
+    if problem:
+        raise InputError(problem)
+
+
+def check_targets(targets: Mapping[str, str], force: bool, inputs=(), make_folders: bool = True,
+                  name: str = "") -> None:
+    """Before any work, raise InputError unless every file of ``targets`` (path → the input file
+    that writes it, or "" for none) can be written: no two targets on one path; a target is not a folder, not one of
+    the inputs (the values of ``targets`` and ``inputs``; even with ``force``), and not an
+    existing file or dangling symbolic link unless ``force`` (OverwriteError); its folder exists
+    or (``make_folders``) can be made, and a file can be created there (see ``check_folder``).
+    ``name`` (e.g. a flag, "--out") is put before each target in the messages."""
     seen: dict[str, str] = {}
+    given = [p for p in dict.fromkeys((*targets.values(), *inputs)) if os.path.exists(p)]
+    probed: dict[str, OSError | None] = {}
     for path, source in targets.items():
+        label = f"{name} {path}" if name else path
         real = os.path.abspath(path)
         if real in seen:
             raise InputError(f"{source} and {seen[real]} would both write {path}")
         seen[real] = source
         if os.path.isdir(path):
-            raise InputError(f"{path} is a folder")
+            raise InputError(f"{label} is a folder")
+        if os.path.exists(path):
+            for other in given:
+                if os.path.samefile(path, other):
+                    raise InputError(f"{label} is the input {other}; the output needs a name of its own")
         if os.path.lexists(path) and not force:  # a dangling symbolic link is not replaced either
-            what = "exists" if os.path.exists(path) else "is a dangling symbolic link"
-            raise InputError(f"{path} {what}; use --force to overwrite it")
+            raise OverwriteError(f"{label} {'exists' if os.path.exists(path) else 'is a dangling symbolic link'}")
+        problem = _folder_problem(os.path.dirname(path) or os.curdir, make_folders, label if name else None, probed)
+        if problem:
+            raise InputError(problem)
 
 
 def sha256_text(text: str) -> str:

@@ -116,33 +116,6 @@ def _check_settings(fmax, steps, optimizer) -> tuple[float, int, str]:
     return float(fmax), steps, name
 
 
-def check_out_dir(out_dir: str, targets) -> None:
-    """InputError unless every folder of ``targets`` (paths under ``out_dir``) exists as a folder
-    we can write into, or can be made: its nearest existing ancestor is a folder we can write into
-    (tried with a temporary file, removed at once: permission bits, read-only file systems and
-    root's rights all answer as they will for the real files). Writes nothing that stays."""
-    import tempfile
-
-    from .files import TEMP_PREFIX, TEMP_SUFFIX
-    from .limits import one_line
-
-    for folder in sorted({os.path.dirname(os.path.abspath(t)) for t in targets} or {os.path.abspath(out_dir)}):
-        probe = folder
-        while not os.path.lexists(probe):
-            probe = os.path.dirname(probe)
-        if not os.path.isdir(probe):
-            if probe == os.path.abspath(out_dir):
-                raise InputError(f"{one_line(out_dir)}: exists and is not a folder (the output folder)")
-            raise InputError(f"{one_line(probe)}: is not a folder, so the output folder {one_line(out_dir)} cannot be made")
-        try:
-            fd, name = tempfile.mkstemp(prefix=TEMP_PREFIX, suffix=TEMP_SUFFIX, dir=probe)
-        except OSError as exc:
-            what = "write into it" if probe == folder else f"make {one_line(out_dir)} in it"
-            raise InputError(f"{one_line(probe)}: cannot {what} ({exc.strerror or exc})") from None
-        os.close(fd)
-        os.unlink(name)
-
-
 def _calculator(frame, basis, options: BuildOptions, conv_tol, max_cycle):
     from .calculator import DEFAULT_CONV_TOL, DEFAULT_MAX_CYCLE, STOCalculator
 
@@ -221,9 +194,8 @@ def relax_structures(
             claim_target(sources, target, path)
         jobs.append((item, frame, relaxed, targets))
     check_zeta_elements(options, (frame for _, frame, _, _ in jobs))
-    if write:
+    if write:  # every file and folder can be written (files.check_targets), before the first SCF
         check_targets(sources, force)
-        check_out_dir(out_dir, sources)
     run = _Run()
     return _in_worker(lambda: _relax_jobs(run, jobs, options, fmax, steps, optimizer, out_dir, write,
                                           conv_tol, max_cycle), run)
@@ -331,4 +303,4 @@ def _relax_jobs(run: _Run, jobs, options, fmax, steps, optimizer, out_dir, write
 
 
 __all__ = ["DEFAULT_FMAX", "DEFAULT_STEPS", "MAX_STEPS", "OPTIMIZERS", "RELAXED_SUFFIX", "RelaxInterrupted",
-           "RelaxResult", "check_out_dir", "fmax_ok", "max_force", "relax_structures", "relaxed_text"]
+           "RelaxResult", "fmax_ok", "max_force", "relax_structures", "relaxed_text"]

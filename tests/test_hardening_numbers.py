@@ -160,3 +160,36 @@ def test_every_json_we_print_is_strict(tmp_path, capsys, water):
         assert code == 0, err
         strict_json(out)
     assert os.path.exists(tmp_path / "b" / "water.nw")
+
+
+# Issue 21 §4: "--steps 1e9 says 'not a whole number' (it is one, just out of range)" held for every
+# whole-number flag; they now share relax's parser (cli._whole_in): a whole number in exponent
+# notation is one, out of range or not; a decimal point or a fraction is not.
+WHOLE_FLAGS = [(["build", "W"], "--charge"), (["build", "W"], "--spin"), (["build", "W"], "--gaussians"),
+               (["batch", "W", "--out", "O"], "--workers"), (["bench", "W", "--out", "O"], "--workers"),
+               (["tune", "W", "--out", "O/z.toml"], "--threads"), (["relax", "W"], "--steps"),
+               (["atom", "H"], "--charge"), (["zeta", "H"], "--charge"), (["fit", "1s"], "--gaussians")]
+
+
+def _argv(words, tmp_path, water):
+    return [str(water) if w == "W" else w.replace("O", str(tmp_path / "o")) if w.startswith("O") else w for w in words]
+
+
+@pytest.mark.parametrize("words, flag", WHOLE_FLAGS)
+def test_every_whole_number_flag_says_out_of_range_not_not_a_whole_number(tmp_path, capsys, water, words, flag):
+    argv = _argv(words, tmp_path, water) + ["--out", str(tmp_path / "o")] * (words[0] in ("build", "relax"))
+    code, _, err = run([*argv, flag, "1e999999999"], capsys)
+    assert code == 2 and err.count("\n") == 1 and flag in err and "is out of range" in err, err
+    for value in ("1.5", "2.0", "ten", "nan"):
+        code, _, err = run([*argv, flag, value], capsys)
+        assert code == 2 and flag in err and f"'{value}' is not a whole number" in err, err
+    assert not (tmp_path / "o").exists()
+
+
+def test_a_flag_in_exponent_notation_reaches_the_options_range_check(tmp_path, capsys, water):
+    # --gaussians 1e9 is the whole number 10**9: the options' own range says what is wrong
+    out_dir = tmp_path / "o"
+    code, _, err = run(["build", str(water), "--gaussians", "1e9", "--out", str(out_dir)], capsys)
+    assert_bad_input(code, err, out_dir, "--gaussians must be <= 12, got 1000000000")
+    code, stdout, err = run(["build", str(water), "--gaussians", "2e0", "--code", "nwchem", "--out", str(out_dir)], capsys)
+    assert code == 0 and (out_dir / "water.nw").exists(), err

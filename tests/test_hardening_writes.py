@@ -129,13 +129,34 @@ def test_one_target_that_cannot_be_written_stops_the_whole_build(tmp_path, capsy
     assert sorted(os.listdir(out_dir)) == ["b.nw"]
 
 
-def test_an_unwritable_output_folder_is_named(tmp_path, capsys, two, monkeypatch):
+def test_an_unwritable_output_folder_is_named_before_any_work(tmp_path, capsys, two, monkeypatch):
+    """No file can be created where the output folder is to be made (EACCES from the probe,
+    files.check_targets): refused before the SCF of --check, naming the folder."""
     import tempfile
+
+    from stobuilder import checks
 
     def mkstemp(*args, **kwargs):
         raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
 
+    def solve(*args, **kwargs):
+        pytest.fail("an SCF ran before the output folder was checked")
+
     monkeypatch.setattr(tempfile, "mkstemp", mkstemp)
+    monkeypatch.setattr(checks, "solve", solve)
+    out_dir = tmp_path / "o"
+    code, _, err = run(["build", str(two[0]), "--check", "--out", str(out_dir)], capsys)
+    assert_bad_input(code, err, out_dir, f"{out_dir}: cannot be made in {tmp_path} (Permission denied)")
+
+
+def test_a_file_that_cannot_be_written_when_the_time_comes_is_named(tmp_path, capsys, two, monkeypatch):
+    """The folder takes files when checked but the write itself fails (the disk filled up in
+    between): the error names the target, never the temporary file."""
+
+    def write_temp(*args, **kwargs):
+        raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
+
+    monkeypatch.setattr(files, "_write_temp", write_temp)
     out_dir = tmp_path / "o"
     code, _, err = run(["build", str(two[0]), "--out", str(out_dir)], capsys)
     assert_bad_input(code, err, out_dir, f"{out_dir / 'a.nw'}: cannot write it (Permission denied)")
@@ -286,3 +307,110 @@ def test_one_line_escapes_and_decodes_back(end):
     assert tomllib.loads(f'k = "{escaped}"')["k"] == text
     assert json.loads(f'"{escaped}"') == text
     assert ast.literal_eval(f'"{escaped}"') == text
+
+
+# ---------------------------------------------------------------------------- output locations
+# Issue 21 §2: every door checks every output location before the first SCF, with one mechanism
+# (files.check_targets / files.check_folder): the folder chain exists or can be made, a new file
+# can be created there (a probe file, which is what catches root on a read-only location), an
+# existing target needs force, an input is never a target. POSIX open(2)/mkdir(2) semantics
+# (common practice, no source).
+
+
+def _read_only_folder(tmp_path):
+    """A folder where nothing can be made: a 0o555 folder, or for root (who ignores permission
+    bits) /sys, where the kernel refuses new files; None when neither is at hand."""
+    if os.geteuid() != 0:
+        folder = tmp_path / "locked"
+        folder.mkdir()
+        folder.chmod(0o555)
+        return folder
+    try:
+        open("/sys/stobuilder-probe", "w").close()
+    except OSError:
+        return "/sys"
+    os.unlink("/sys/stobuilder-probe")
+    return None
+
+
+@pytest.fixture()
+def no_scf(monkeypatch):
+    from stobuilder import checks
+
+    def solve(*args, **kwargs):
+        pytest.fail("an SCF ran before the output location was checked")
+
+    monkeypatch.setattr(checks, "solve", solve)
+
+
+@pytest.mark.parametrize("where", ["read-only", "under a file"])
+def test_build_check_refuses_a_bad_out_before_its_scf(tmp_path, capsys, two, no_scf, where):
+    # the bug: build checked only the targets themselves; --check ran its SCF, then the write failed
+    if where == "read-only":
+        locked = _read_only_folder(tmp_path)
+        if locked is None:
+            pytest.skip("no folder here refuses new files")
+        out, needle = os.path.join(str(locked), "stobuilder-out"), "cannot be made in"
+    else:
+        (tmp_path / "afile").write_text("mine\n")
+        out, needle = str(tmp_path / "afile" / "sub"), f"{tmp_path / 'afile'} is not a folder"
+    before = sorted(os.listdir(tmp_path))
+    code, _, err = run(["build", str(two[0]), "--check", "--out", out], capsys)
+    assert_bad_input(code, err, out, out, needle)
+    assert sorted(os.listdir(tmp_path)) == before and (where == "read-only" or (tmp_path / "afile").read_text() == "mine\n")
+
+
+def test_the_python_door_says_force_true_and_the_cli_says_force(tmp_path, capsys, two):
+    from stobuilder import InputError, build_structures
+
+    out_dir = tmp_path / "o"
+    build_structures([str(two[0])], out_dir=str(out_dir), codes=("nwchem",))
+    with pytest.raises(InputError) as e:
+        build_structures([str(two[0])], out_dir=str(out_dir), codes=("nwchem",))
+    assert str(e.value) == f"{out_dir / 'a.nw'} exists; use force=True to overwrite it"
+    code, _, err = run(["build", str(two[0]), "--code", "nwchem", "--out", str(out_dir)], capsys)
+    assert code == 2 and err == f"stobuilder: error: {out_dir / 'a.nw'} exists; use --force to overwrite it\n"
+
+
+def test_bench_refuses_a_folder_where_an_output_file_goes_before_any_calculation(tmp_path, capsys, two):
+    # the bug: bench ran (and recorded) every calculation, then failed writing report.html
+    out = tmp_path / "b"
+    (out / "report.html").mkdir(parents=True)
+    (out / "stobuilder-bench.jsonl").write_text("")  # the folder is a bench's
+    code, _, err = run(["bench", str(two[0]), "--out", str(out), "--workers", "1", "--progress", "off"], capsys)
+    assert code == 2 and err == f"stobuilder: error: {out / 'report.html'} is a folder\n"
+    manifest = out / "stobuilder-bench.jsonl"
+    assert not manifest.exists() or manifest.read_text() == ""  # no calculation ran
+
+
+@pytest.mark.parametrize("command", ["batch", "bench"])
+@pytest.mark.parametrize("where", ["read-only, new", "read-only, existing", "under a file"])
+def test_batch_and_bench_refuse_a_bad_out_before_any_scf(tmp_path, capsys, two, command, where):
+    """These doors refused already (they open their manifest before the first SCF); kept here so
+    that the class stays closed with the one check they now share."""
+    if where.startswith("read-only"):
+        locked = _read_only_folder(tmp_path)
+        if locked is None:
+            pytest.skip("no folder here refuses new files")
+        out = str(locked) if where.endswith("existing") else os.path.join(str(locked), "stobuilder-out")
+        needle = "cannot write there" if where.endswith("existing") else "cannot be made in"
+    else:
+        (tmp_path / "afile").write_text("mine\n")
+        out, needle = str(tmp_path / "afile" / "sub"), "is not a folder"
+    before = sorted(os.listdir(tmp_path))
+    code, _, err = run([command, str(two[0]), "--out", out, "--force", "--workers", "1", "--progress", "off"], capsys)
+    assert code == 2 and err.startswith(f"stobuilder: error: {out}: ") and needle in err and err.count("\n") == 1, err
+    assert sorted(os.listdir(tmp_path)) == before and not os.path.exists(os.path.join(out, "stobuilder-bench.jsonl"))
+
+
+def test_a_path_with_a_line_end_keeps_the_error_on_one_line(tmp_path, capsys, two):
+    (tmp_path / "afile").write_text("mine\n")
+    out = tmp_path / "afile" / "x\ny"
+    code, _, err = run(["build", str(two[0]), "--out", str(out)], capsys)
+    assert code == 2 and err.count("\n") == 1 and "x\\u000ay" in err, err
+
+
+def test_fit_plot_is_checked_before_the_fit(tmp_path, capsys):
+    # the bug: a missing folder for --plot was found only when the plot was written, after the fit
+    code, _, err = run(["fit", "1s", "--gaussians", "2", "--plot", str(tmp_path / "nodir" / "f.png")], capsys)
+    assert code == 2 and err == f"stobuilder: error: --plot {tmp_path / 'nodir' / 'f.png'}: its folder {tmp_path / 'nodir'} does not exist\n"
