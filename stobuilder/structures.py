@@ -207,7 +207,8 @@ def read_structures(
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
-            frames = ase.io.read(where, index=":", format=format, **_reader_options(where, format))
+            frames = ase.io.read(where, index=":", format=format, do_not_split_by_at_sign=True,  # a name with "@" is a name
+                                   **_reader_options(where, format))
     except Exception as exc:  # ASE raises many types for unreadable input
         reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__
         raise InputError(f"{where}: not a structure file ASE can read ({reason})") from None

@@ -80,3 +80,15 @@ def test_impossible_charge_spin(tmp_path):
         read_structures(path, spin=0)
     with pytest.raises(InputError, match="leaves"):
         read_structures(path, charge=9)
+
+
+def test_a_file_name_with_an_at_sign_is_read_as_that_file(tmp_path):
+    """ASE reads "name@index" as a frame selection unless told not to; a file named "h2@0.xyz" or
+    "@.xyz" is that file, every frame (found by the tune fuzz test; common practice, no source)."""
+    from stobuilder.structures import read_structures
+
+    for name in ("@.xyz", "h2@0.xyz", "two@1:.xyz"):
+        path = tmp_path / name
+        path.write_text("2\n\nH 0 0 0\nH 0 0 0.74\n2\n\nH 0 0 0\nH 0 0 0.75\n")
+        frames = read_structures(str(path))
+        assert [f.positions[1][2] for f in frames] == [0.74, 0.75], name
