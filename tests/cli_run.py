@@ -1,5 +1,5 @@
-"""Running the command line in-process for the tests, the bad-input contract they assert, and
-a command killed mid-run."""
+"""Running the command line in-process for the tests, the bad-input contract they assert, a
+folder nothing can be written in, and a command killed mid-run."""
 
 from stobuilder.cli import main
 
@@ -16,6 +16,26 @@ def assert_one_line_error(code, err):
     assert code == 2, err
     assert err.startswith("stobuilder: error: ") and err.count("\n") == 1, err
     assert "Traceback" not in err
+
+
+def read_only_folder(tmp_path):
+    """A folder where nothing can be made (a Path): a 0o555 folder, or for root (who ignores
+    permission bits) /sys, where the kernel refuses new files; None when neither is at hand."""
+    import os
+    from pathlib import Path
+
+    if os.geteuid() != 0:
+        folder = tmp_path / "locked"
+        folder.mkdir()
+        folder.chmod(0o555)
+        return folder
+    if os.path.isdir("/sys"):
+        try:
+            open("/sys/stobuilder-probe", "w").close()
+        except OSError:
+            return Path("/sys")
+        os.unlink("/sys/stobuilder-probe")
+    return None
 
 
 def kill_when_done(command, cwd, env, manifest, done: int, timeout: float = 120) -> None:

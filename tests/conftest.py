@@ -21,3 +21,19 @@ def _fit_cache_in_tmp(tmp_path_factory):
         os.environ.pop("STOBUILDER_CACHE_DIR", None)
     else:
         os.environ["STOBUILDER_CACHE_DIR"] = old
+
+
+@pytest.fixture()
+def no_scf(monkeypatch):
+    """Any SCF fails the test if it starts (stobuilder's driver and PySCF's own kernel): for the
+    checks that must refuse a bad input or output location before the first SCF."""
+    from pyscf.scf import hf
+
+    from stobuilder import checks
+
+    def refuse(*args, **kwargs):
+        pytest.fail("an SCF ran before the input and output checks refused")
+
+    monkeypatch.setattr(checks, "solve", refuse)
+    monkeypatch.setattr(hf.SCF, "kernel", refuse)
+    monkeypatch.setattr(hf.SCF, "scf", refuse)

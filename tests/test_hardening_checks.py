@@ -251,18 +251,6 @@ def _h_lattice(path, count, spacing=1.5):
 
 
 @pytest.fixture()
-def no_scf(monkeypatch):
-    """Every PySCF SCF fails the test if it starts."""
-    from pyscf.scf import hf
-
-    def refuse(*args, **kwargs):
-        raise AssertionError("an SCF ran")
-
-    monkeypatch.setattr(hf.SCF, "kernel", refuse)
-    monkeypatch.setattr(hf.SCF, "scf", refuse)
-
-
-@pytest.fixture()
 def big(tmp_path):
     return _h_lattice(tmp_path / "h5000.xyz", 5000)
 

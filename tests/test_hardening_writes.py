@@ -18,6 +18,7 @@ from ase.io import write
 import stobuilder.files as files
 from stobuilder.cli import main
 
+from cli_run import read_only_folder
 from test_hardening_checks import assert_bad_input, run
 
 
@@ -129,21 +130,15 @@ def test_one_target_that_cannot_be_written_stops_the_whole_build(tmp_path, capsy
     assert sorted(os.listdir(out_dir)) == ["b.nw"]
 
 
-def test_an_unwritable_output_folder_is_named_before_any_work(tmp_path, capsys, two, monkeypatch):
+def test_an_unwritable_output_folder_is_named_before_any_work(tmp_path, capsys, two, monkeypatch, no_scf):
     """No file can be created where the output folder is to be made (EACCES from the probe,
     files.check_targets): refused before the SCF of --check, naming the folder."""
     import tempfile
 
-    from stobuilder import checks
-
     def mkstemp(*args, **kwargs):
         raise PermissionError(errno.EACCES, os.strerror(errno.EACCES))
 
-    def solve(*args, **kwargs):
-        pytest.fail("an SCF ran before the output folder was checked")
-
     monkeypatch.setattr(tempfile, "mkstemp", mkstemp)
-    monkeypatch.setattr(checks, "solve", solve)
     out_dir = tmp_path / "o"
     code, _, err = run(["build", str(two[0]), "--check", "--out", str(out_dir)], capsys)
     assert_bad_input(code, err, out_dir, f"{out_dir}: cannot be made in {tmp_path} (Permission denied)")
@@ -317,37 +312,11 @@ def test_one_line_escapes_and_decodes_back(end):
 # (common practice, no source).
 
 
-def _read_only_folder(tmp_path):
-    """A folder where nothing can be made: a 0o555 folder, or for root (who ignores permission
-    bits) /sys, where the kernel refuses new files; None when neither is at hand."""
-    if os.geteuid() != 0:
-        folder = tmp_path / "locked"
-        folder.mkdir()
-        folder.chmod(0o555)
-        return folder
-    try:
-        open("/sys/stobuilder-probe", "w").close()
-    except OSError:
-        return "/sys"
-    os.unlink("/sys/stobuilder-probe")
-    return None
-
-
-@pytest.fixture()
-def no_scf(monkeypatch):
-    from stobuilder import checks
-
-    def solve(*args, **kwargs):
-        pytest.fail("an SCF ran before the output location was checked")
-
-    monkeypatch.setattr(checks, "solve", solve)
-
-
 @pytest.mark.parametrize("where", ["read-only", "under a file"])
 def test_build_check_refuses_a_bad_out_before_its_scf(tmp_path, capsys, two, no_scf, where):
     # the bug: build checked only the targets themselves; --check ran its SCF, then the write failed
     if where == "read-only":
-        locked = _read_only_folder(tmp_path)
+        locked = read_only_folder(tmp_path)
         if locked is None:
             pytest.skip("no folder here refuses new files")
         out, needle = os.path.join(str(locked), "stobuilder-out"), "cannot be made in"
@@ -389,7 +358,7 @@ def test_batch_and_bench_refuse_a_bad_out_before_any_scf(tmp_path, capsys, two, 
     """These doors refused already (they open their manifest before the first SCF); kept here so
     that the class stays closed with the one check they now share."""
     if where.startswith("read-only"):
-        locked = _read_only_folder(tmp_path)
+        locked = read_only_folder(tmp_path)
         if locked is None:
             pytest.skip("no folder here refuses new files")
         out = str(locked) if where.endswith("existing") else os.path.join(str(locked), "stobuilder-out")

@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from ase.units import Hartree
 
-from cli_run import assert_one_line_error, run_cli
+from cli_run import assert_one_line_error, read_only_folder, run_cli
 
 EXAMPLES = os.path.join(os.path.dirname(__file__), "..", "examples", "structures")
 AMMONIA = os.path.join(EXAMPLES, "ammonia.xyz")
@@ -171,36 +171,8 @@ def test_an_scf_that_fails_during_a_relaxation_writes_nothing(tmp_path):
 H2_TEXT = "2\n\nH 0 0 0\nH 0 0 0.80\n"  # near the H2 bond length (value from memory: 0.74 Å)
 
 
-@pytest.fixture
-def no_scf(monkeypatch):
-    """Any SCF is a failure: the output locations must be refused before the first one."""
-    from stobuilder import checks
-
-    def fail(*args, **kwargs):
-        pytest.fail("an SCF ran before the output location was checked")
-
-    monkeypatch.setattr(checks, "solve", fail)
-
-
 def _listing(folder):
     return sorted(str(p.relative_to(folder)) for p in folder.rglob("*"))
-
-
-def _read_only_folder(tmp_path):
-    """A folder where nothing can be made: a 0o555 folder, or for root (who ignores permission
-    bits) /sys, where the kernel refuses new files; None when neither is at hand."""
-    if os.geteuid() != 0:
-        folder = tmp_path / "locked"
-        folder.mkdir()
-        folder.chmod(0o555)
-        return folder
-    if os.path.isdir("/sys"):
-        try:
-            open("/sys/stobuilder-probe", "w").close()
-        except OSError:
-            return Path("/sys")
-        os.unlink("/sys/stobuilder-probe")
-    return None
 
 
 @pytest.mark.parametrize("case", ["input file", "input file, --force", "under a file", "read-only"])
@@ -210,7 +182,7 @@ def test_relax_refuses_a_bad_output_location_before_the_first_scf(tmp_path, caps
     h2.write_text(H2_TEXT)
     out = {"input file": h2, "input file, --force": h2, "under a file": h2 / "sub"}.get(case)
     if case == "read-only":
-        locked = _read_only_folder(tmp_path)
+        locked = read_only_folder(tmp_path)
         if locked is None:
             pytest.skip("no folder here refuses new files")
         out = locked / "stobuilder-relax-out"

@@ -14,7 +14,6 @@ import pytest
 from pyscf.data.nist import BOHR
 
 from cli_run import assert_one_line_error, run_cli
-from stobuilder import checks
 from stobuilder.errors import InputError
 from stobuilder.options import load_zeta_file
 from stobuilder.tune import tune
@@ -46,13 +45,6 @@ def _tune(capsys, *argv, status=0):
     code, out, err = run_cli(["tune", *argv, *N, "--json"], capsys)
     assert code == status, err
     return json.loads(out, parse_constant=lambda c: pytest.fail(f"non-finite JSON number {c}")), err
-
-
-def _no_scf(monkeypatch):
-    def solve(*args, **kwargs):
-        pytest.fail("an SCF ran before the output location was checked")
-
-    monkeypatch.setattr(checks, "solve", solve)
 
 
 # ---------------------------------------------------------------------------- 1. weights
@@ -184,26 +176,24 @@ def _sys_target():
         ("SYS", "cannot write there"),
     ],
 )
-def test_the_output_location_is_checked_before_any_scf(tmp_path, capsys, monkeypatch, where, needle):
+def test_the_output_location_is_checked_before_any_scf(tmp_path, capsys, where, needle, no_scf):
     h2 = _h2(tmp_path)
     (tmp_path / "existing.toml").write_text("# mine\n")
     (tmp_path / "afile").write_text("x\n")
     (tmp_path / "folder").mkdir()
     target = _sys_target() if where == "SYS" else str(tmp_path / where)
     before = sorted(os.listdir(tmp_path))
-    _no_scf(monkeypatch)
     code, _, err = run_cli(["tune", h2, "--out", target, *N], capsys)
     assert_one_line_error(code, err)
     assert "--out" in err and needle in err
     assert sorted(os.listdir(tmp_path)) == before and (tmp_path / "existing.toml").read_text() == "# mine\n"
 
 
-def test_an_input_is_never_the_output_even_with_force(tmp_path, capsys, monkeypatch):
+def test_an_input_is_never_the_output_even_with_force(tmp_path, capsys, no_scf):
     h2 = _h2(tmp_path)
     weights = tmp_path / "w.toml"
     weights.write_text("h2 = 1\n")
     before = {p: open(p, "rb").read() for p in (h2, str(weights))}
-    _no_scf(monkeypatch)
     for target in before:
         code, _, err = run_cli(["tune", h2, "--weights", str(weights), "--out", target, "--force", *N], capsys)
         assert_one_line_error(code, err)
@@ -212,12 +202,11 @@ def test_an_input_is_never_the_output_even_with_force(tmp_path, capsys, monkeypa
 
 
 @pytest.mark.skipif(os.geteuid() == 0, reason="root may write into a read-only folder")
-def test_a_read_only_folder_is_refused_before_any_scf(tmp_path, capsys, monkeypatch):
+def test_a_read_only_folder_is_refused_before_any_scf(tmp_path, capsys, no_scf):
     h2 = _h2(tmp_path)
     locked = tmp_path / "locked"
     locked.mkdir()
     locked.chmod(0o555)
-    _no_scf(monkeypatch)
     try:
         code, _, err = run_cli(["tune", h2, "--out", str(locked / "z.toml"), *N], capsys)
     finally:
@@ -229,13 +218,12 @@ def test_a_read_only_folder_is_refused_before_any_scf(tmp_path, capsys, monkeypa
 # ---------------------------------------------------------------------------- 5. twice
 
 
-def test_a_structure_given_twice_is_refused(tmp_path, capsys, monkeypatch):
+def test_a_structure_given_twice_is_refused(tmp_path, capsys, no_scf):
     """As bench ("given twice") and relax (two structures writing one file) refuse it; a weight
     of 2 is the way to count a structure twice."""
     h2 = _h2(tmp_path)
     link = tmp_path / "link.xyz"
     link.symlink_to(h2)
-    _no_scf(monkeypatch)
     for second in (h2, os.path.join(str(tmp_path), ".", "h2.xyz"), str(link)):
         code, _, err = run_cli(["tune", h2, second, "--out", str(tmp_path / "z.toml"), *N], capsys)
         assert_one_line_error(code, err)
@@ -256,13 +244,12 @@ def test_a_structure_given_twice_is_refused(tmp_path, capsys, monkeypatch):
     (["--zeta", "C:2p=1.0"], "--zeta names elements in no structure: C"),
     (["--zeta-file", "LIB"], "--zeta-file LIB: it names none of the structures' elements (it names C, O;"),
 ])
-def test_zeta_naming_no_training_element_is_refused_before_any_scf(tmp_path, capsys, monkeypatch, argv, words):
+def test_zeta_naming_no_training_element_is_refused_before_any_scf(tmp_path, capsys, argv, words, no_scf):
     """The typo guard of build and relax (``pipeline.check_zeta_elements``): tune ignored them."""
     h2 = _h2(tmp_path)
     library = tmp_path / "lib.toml"
     library.write_text("[C]\n2p = 1.7\n[O]\n2p = 2.3\n")
     argv = [a.replace("LIB", str(library)) for a in argv]
-    _no_scf(monkeypatch)
     code, _, err = run_cli(["tune", h2, *argv, "--out", str(tmp_path / "z.toml"), *N], capsys)
     assert_one_line_error(code, err)
     assert words.replace("LIB", str(library)) in err, err
