@@ -3,22 +3,22 @@
 The public API; every name here is a plain function or a frozen dataclass.
 """
 
-from .version import __version__  # noqa: E402,F401
+from stobuilder.core.version import __version__  # noqa: E402,F401
 
-from .atom import atom_report  # noqa: E402
-from .atomic import AtomResult, atom_energy, optimize_zeta  # noqa: E402
-from .basis import Basis, ElementBasis, Shell  # noqa: E402
-from .calculator import pyscf_mole  # noqa: E402  (STOCalculator: stobuilder.calculator)
-from .build import build_basis, element_basis, exponents, zeff  # noqa: E402
-from .elements import Configuration, ground_state, parse_configuration  # noqa: E402
-from .errors import InputError  # noqa: E402
-from .expansion import Fit  # noqa: E402
-from .formats import formats  # noqa: E402
-from .options import BuildOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
-from .pipeline import Prepared, prepare  # noqa: E402
-from .public import build_structures, fit_sto, merge_basis, read_basis, write_basis  # noqa: E402  (argument checks)
-from .screening import ShellExponent, rules  # noqa: E402
-from .structures import Structure, read_structures  # noqa: E402
+from stobuilder.checks.atom import atom_report  # noqa: E402
+from stobuilder.exact.atoms import AtomResult, atom_energy, optimize_zeta  # noqa: E402
+from stobuilder.model.basis import Basis, ElementBasis, Shell  # noqa: E402
+from stobuilder.calculator import pyscf_mole  # noqa: E402  (STOCalculator: stobuilder.calculator)
+from stobuilder.builder.construct import build_basis, element_basis, exponents, zeff  # noqa: E402
+from stobuilder.model.elements import Configuration, ground_state, parse_configuration  # noqa: E402
+from stobuilder.core.errors import InputError  # noqa: E402
+from stobuilder.expansion import Fit  # noqa: E402
+from stobuilder.formats import formats  # noqa: E402
+from stobuilder.pipeline.options import BuildOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
+from stobuilder.pipeline.path import Prepared, prepare  # noqa: E402
+from stobuilder.public import build_structures, fit_sto, merge_basis, read_basis, write_basis  # noqa: E402  (argument checks)
+from stobuilder.rules import ShellExponent, rules  # noqa: E402
+from stobuilder.model.structures import Structure, read_structures  # noqa: E402
 
 __all__ = [
     "AtomResult",

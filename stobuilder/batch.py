@@ -38,10 +38,10 @@ from dataclasses import dataclass, field, replace
 from datetime import datetime, timezone
 from functools import lru_cache
 
-from .errors import InputError
-from .files import TEMP_PREFIX
-from .naming import COMPRESSIONS as _COMPRESSIONS, structure_name
-from .options import BuildOptions
+from stobuilder.core.errors import InputError
+from stobuilder.core.files import TEMP_PREFIX
+from stobuilder.pipeline.naming import COMPRESSIONS as _COMPRESSIONS, structure_name
+from stobuilder.pipeline.options import BuildOptions
 
 MANIFEST_NAME = "stobuilder-batch.jsonl"
 STATUSES = ("done", "failed", "skipped")
@@ -69,7 +69,7 @@ class BatchItem:
 
     def output_files(self, codes: Iterable[str]) -> dict[str, str]:
         """code → output path relative to the output folder (``naming.output_file``)."""
-        from .naming import output_file
+        from stobuilder.pipeline.naming import output_file
 
         return {code: output_file(self.name, code) for code in codes}
 
@@ -171,7 +171,7 @@ def own_output_name(filename: str) -> bool:
     """True for a name stobuilder itself writes: a file with the extension of a registered basis
     format (``water.qcschema.json``, which ASE would read as JSON), a merge backup of one
     (``lib.nw.bak2``), or a batch manifest and its backups."""
-    from .formats import formats
+    from stobuilder.formats import formats
 
     base = os.path.basename(filename)
     if base == MANIFEST_NAME or base.startswith(MANIFEST_NAME + "."):
@@ -345,8 +345,8 @@ def run_item(task: Task) -> ItemOutcome:
     (``pipeline.prepare`` and ``pipeline.run_checks``); an item with an error carries no texts,
     so nothing is written for it.
     """
-    from .pipeline import prepare, run_checks
-    from .structures import elements_of
+    from stobuilder.pipeline.path import prepare, run_checks
+    from stobuilder.model.structures import elements_of
 
     item, options = task.item, task.options
     start = time.perf_counter()
@@ -648,7 +648,7 @@ class Manifest:
         self._drop_torn_line()
 
     def _start_fresh(self) -> None:
-        from .files import create_bytes
+        from stobuilder.core.files import create_bytes
 
         with open(self.path, "rb") as old:
             data = old.read()
@@ -797,7 +797,7 @@ def make_progress(total: int, mode: str = "auto", stream=None, interval: float =
 def prepare_out_dir(out_dir: str, force: bool, manifest_name: str = MANIFEST_NAME, what: str = "batch") -> None:
     """Create the output folder. A folder that holds files but no manifest ``manifest_name`` is
     refused unless ``force`` (the run would overwrite files it does not own)."""
-    from .files import check_folder
+    from stobuilder.core.files import check_folder
 
     check_folder(out_dir)  # a folder, or one that can be made, that takes new files
     if os.path.isdir(out_dir) and not force and not os.path.exists(os.path.join(out_dir, manifest_name)):
@@ -820,7 +820,7 @@ def _remove_stale_temporaries(out_dir: str) -> None:
 def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str]]:
     """Write an item's texts, all or none (``files.write_all``); return code → {"path", "sha256"}
     (paths relative). InputError (naming the target) when a file cannot be written."""
-    from .files import sha256_text, write_all
+    from stobuilder.core.files import sha256_text, write_all
 
     files, contents = {}, {}
     for code, rel, text in outcome.texts:
@@ -907,8 +907,8 @@ def check_zeta(items: Sequence[BatchItem], options: BuildOptions) -> None:
     and a zeta file names an element of some item; OptionError otherwise). Only with ζ in the
     options are the items read here, in this process; an item that cannot be read is left to its
     worker, which records why (and when none can be read there is nothing to check against)."""
-    from .pipeline import check_zeta_elements
-    from .structures import read_structures
+    from stobuilder.pipeline.path import check_zeta_elements
+    from stobuilder.model.structures import read_structures
 
     if not (options.zeta or options.zeta_library or options.zeta_file):
         return

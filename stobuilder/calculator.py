@@ -31,7 +31,7 @@ import threading
 import numpy as np
 from ase.calculators.calculator import Calculator, SCFError, all_changes
 
-from .errors import InputError
+from stobuilder.core.errors import InputError
 
 #: basis options (BuildOptions fields under the names the calculator takes), then the SCF's
 BASIS_PARAMETERS = ("rule", "gaussians", "fit", "exponents", "radial", "zeta", "zeta_file", "charge", "spin")
@@ -59,7 +59,7 @@ def build_options(rule="slater", gaussians=3, fit="l2", exponents="family", radi
     ``zeta_file`` is a library, applied to the elements the atoms have; ``zeta``
     {symbol: {label: ζ}} goes on top of it, as on the command line). Errors name the
     calculator's parameters (``OPTION_NAMES``)."""
-    from .options import BuildOptions, OptionError
+    from stobuilder.pipeline.options import BuildOptions, OptionError
 
     if zeta is not None and not isinstance(zeta, dict):
         raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
@@ -73,7 +73,7 @@ def build_options(rule="slater", gaussians=3, fit="l2", exponents="family", radi
 def _structure(atoms, options, where: str | None = None):
     """The Structure of an ASE Atoms (charge and spin from the options, else the atoms' info),
     its geometry checked. Molecules only: periodic or empty atoms are an InputError."""
-    from .structures import check_geometry, structure_from_atoms
+    from stobuilder.model.structures import check_geometry, structure_from_atoms
 
     if len(atoms) == 0:
         raise InputError("the Atoms object holds no atoms")
@@ -95,8 +95,8 @@ def _basis(structure, options, cache: dict | None = None):
     it holds one for the same content key. The options' ζ are checked against the structure by
     the rule of every door (``pipeline.check_zeta_elements``): each element ``zeta`` names is in
     it, and a ``zeta_file`` names one of its elements."""
-    from . import pipeline
-    from .options import OptionError
+    from stobuilder.pipeline import path as pipeline
+    from stobuilder.pipeline.options import OptionError
 
     try:
         pipeline.check_zeta_elements(options, (structure,))
@@ -122,8 +122,8 @@ def pyscf_mole(atoms_or_path, **options):
     ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input.
     The options' ζ are checked as the calculator checks them; no size guard (no SCF runs here:
     what the caller runs on the Mole, and with what memory, is the caller's)."""
-    from .checks import structure_mole
-    from .structures import check_geometry, read_structures
+    from stobuilder.checks.structure import structure_mole
+    from stobuilder.model.structures import check_geometry, read_structures
 
     _check_names(options, BASIS_PARAMETERS, "pyscf_mole")
     opts = build_options(**options)
@@ -219,7 +219,7 @@ class STOCalculator(Calculator):
         """(charge, 2S) the calculator would use for ``atoms``: its parameters, else the atoms'
         info keys; for info it cannot read, the error text (so bad info is a change, and the
         calculation that follows raises the error)."""
-        from .structures import INFO_KEYS, structure_from_atoms
+        from stobuilder.model.structures import INFO_KEYS, structure_from_atoms
 
         options = self._options or build_options()
         if options.charge is not None and options.spin is not None:
@@ -239,7 +239,7 @@ class STOCalculator(Calculator):
         _check_names(own, BASIS_PARAMETERS + SCF_PARAMETERS, "STOCalculator")
         merged = {**dict(self.parameters or self.get_default_parameters()), **own}
         options = build_options(**{k: merged[k] for k in BASIS_PARAMETERS}, method=merged["method"])
-        from .limits import whole_number
+        from stobuilder.core.limits import whole_number
 
         if not isinstance(merged["conv_tol"], (int, float)) or isinstance(merged["conv_tol"], bool) \
                 or not 0 < float(merged["conv_tol"]) < 1:
@@ -258,9 +258,9 @@ class STOCalculator(Calculator):
     def _calculate(self, atoms, properties, system_changes):
         from ase.units import Bohr, Hartree
 
-        from .checks import solve, structure_mole
-        from .methods import pick_method
-        from .pipeline import check_electrons
+        from stobuilder.checks.structure import solve, structure_mole
+        from stobuilder.model.methods import pick_method
+        from stobuilder.pipeline.path import check_electrons
 
         if not system_changes and self.scf is not None and "energy" in self.results:
             # same atoms and parameters (ASE keeps the results): only the forces are missing
@@ -318,7 +318,7 @@ class STOCalculator(Calculator):
 
 
 def _basis_key(structure, options):
-    from . import pipeline
+    from stobuilder.pipeline import path as pipeline
 
     return pipeline.basis_key((structure,), options)
 

@@ -9,8 +9,8 @@ import argparse
 import contextlib
 import sys
 
-from .version import __version__
-from .errors import InputError
+from stobuilder.core.version import __version__
+from stobuilder.core.errors import InputError
 
 EXIT_BAD_INPUT = 2
 
@@ -55,24 +55,24 @@ _whole_number = _whole_in()
 
 
 def _add_rule(p, default="slater"):
-    from .screening import rules
+    from stobuilder.rules import rules
 
     p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
 
 
 def _print_json(doc) -> None:
     """Print strict JSON (no NaN or Infinity)."""
-    from .limits import strict_json
+    from stobuilder.core.limits import strict_json
 
     print(strict_json(doc, "the result holds a number that is not finite; nothing printed"))
 
 
 def _parser() -> argparse.ArgumentParser:
-    from . import relax
-    from .batch import PROGRESS_MODES
-    from .expansion.fit import NORMS
-    from .methods import METHODS
-    from .options import add_arguments
+    from stobuilder import relax
+    from stobuilder.batch import PROGRESS_MODES
+    from stobuilder.expansion.fit import NORMS
+    from stobuilder.model.methods import METHODS
+    from stobuilder.pipeline.options import add_arguments
 
     parser = _Parser(prog="stobuilder", description="Slater-type-orbital minimal bases expanded in Gaussians.")
     parser.add_argument("--version", action="version", version=f"stobuilder {__version__}")
@@ -195,9 +195,9 @@ def _parser() -> argparse.ArgumentParser:
 
 
 def _cmd_build(args) -> int:
-    from .formats import format_for_path
-    from .options import from_args
-    from .pipeline import build_structures
+    from stobuilder.formats import format_for_path
+    from stobuilder.pipeline.options import from_args
+    from stobuilder.pipeline.path import build_structures
 
     options = from_args(args)
     if args.merge_into and not args.code:
@@ -264,7 +264,7 @@ def _build_table(report) -> str:
 
 def _relax_fmax(text: str) -> float:
     """``--fmax``: a finite positive number (eV/Å)."""
-    from .relax import fmax_ok
+    from stobuilder.relax import fmax_ok
 
     try:
         value = float(text)
@@ -276,9 +276,9 @@ def _relax_fmax(text: str) -> float:
 
 
 def _cmd_relax(args) -> int:
-    from .limits import one_line
-    from .options import from_args
-    from .relax import RelaxInterrupted, relax_structures
+    from stobuilder.core.limits import one_line
+    from stobuilder.pipeline.options import from_args
+    from stobuilder.relax import RelaxInterrupted, relax_structures
 
     if args.check:
         raise InputError("--check is build's; relax runs an SCF at every step already")
@@ -312,7 +312,7 @@ def _cmd_relax(args) -> int:
 def _workers(args) -> tuple[int | None, str | None]:
     """``--workers`` / ``--scheduler`` checked (batch and bench): (local worker count, or None on
     a Dask cluster; a note when the count was capped)."""
-    from . import batch
+    from stobuilder import batch
 
     if args.scheduler is not None and args.workers is not None:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
@@ -328,7 +328,7 @@ def _workers(args) -> tuple[int | None, str | None]:
 def _executor(args):
     """The Dask cluster's executor for ``--scheduler`` (its client closed afterwards), else None:
     the engine's own process pool."""
-    from . import batch
+    from stobuilder import batch
 
     if args.scheduler is None:
         yield None
@@ -341,12 +341,12 @@ def _executor(args):
 
 
 def _cmd_batch(args) -> int:
-    from . import batch
-    from .limits import one_line  # a path with a line end in a note stays one line
+    from stobuilder import batch
+    from stobuilder.core.limits import one_line  # a path with a line end in a note stays one line
 
     workers, note = _workers(args)
     notes: list[str] = [note] if note else []
-    from .options import from_args
+    from stobuilder.pipeline.options import from_args
 
     options = from_args(args)
     items = batch.discover(args.inputs, exclude=args.out, notes=notes)
@@ -375,8 +375,9 @@ def _cmd_batch(args) -> int:
 
 
 def _cmd_bench(args) -> int:
-    from . import batch, bench
-    from .limits import one_line
+    from stobuilder import batch
+    from stobuilder.bench import run as bench
+    from stobuilder.core.limits import one_line
 
     if args.list_sets:
         for info in bench.list_sets():
@@ -407,8 +408,8 @@ def _cmd_bench(args) -> int:
 
 
 def _cmd_atom(args) -> int:
-    from .atom import atom_report
-    from .options import parse_zeta_overrides
+    from stobuilder.checks.atom import atom_report
+    from stobuilder.pipeline.options import parse_zeta_overrides
 
     doc = atom_report(
         args.element,
@@ -446,21 +447,21 @@ def _cmd_atom(args) -> int:
 
 
 def _cmd_fit(args) -> int:
-    from .expansion import lookup
-    from .expansion.report import fit_document, fit_table
+    from stobuilder.expansion import lookup
+    from stobuilder.expansion.report import fit_document, fit_table
 
-    from .limits import zeta_value
+    from stobuilder.core.limits import zeta_value
 
     labels = [x for item in args.subshells for x in item.split(",") if x]
     zeta_value(args.zeta, "--zeta")
     if args.plot:  # before any fit: the plot may be written (atomic_write makes no folder)
-        from .files import check_targets
+        from stobuilder.core.files import check_targets
 
         check_targets({args.plot: ""}, args.force, make_folders=False, name="--plot")
     fit = lookup(labels, args.gaussians, args.fit)
     doc = fit_document(fit, args.zeta)  # validates --zeta
     if args.plot:
-        from .expansion.plot import plot_fit
+        from stobuilder.expansion.plot import plot_fit
 
         doc["plot"] = plot_fit(fit, args.plot, args.zeta)
     if args.json:
@@ -476,7 +477,7 @@ def _cmd_fit(args) -> int:
 
 
 def _cmd_zeta(args) -> int:
-    from .build import sto_exponents
+    from stobuilder.builder.construct import sto_exponents
 
     entries = []
     for item in args.elements:
@@ -510,9 +511,9 @@ def _cmd_zeta(args) -> int:
 
 
 def _cmd_tune(args) -> int:
-    from .files import atomic_write
-    from .options import from_args
-    from .tune import parse_vary, tune
+    from stobuilder.core.files import atomic_write
+    from stobuilder.pipeline.options import from_args
+    from stobuilder.tune import parse_vary, tune
 
     for given, name in ((args.code, "--code"), (args.check, "--check"), (args.sp_shells, "--sp-shells")):
         if given:
@@ -533,13 +534,13 @@ def _check_tune_out(out: str, force: bool, inputs) -> None:
     """Before the first SCF: ``--out`` may be written (``files.check_targets``: not a folder, not
     one of the ``inputs`` even with --force, not an existing file without --force, its folder
     exists — tune makes none — and takes a new file)."""
-    from .files import check_targets
+    from stobuilder.core.files import check_targets
 
     check_targets({out: ""}, force, inputs, make_folders=False, name="--out")
 
 
 def _tune_table(result, out: str) -> str:
-    from .limits import one_line
+    from stobuilder.core.limits import one_line
 
     state = "converged" if result.converged else "NOT CONVERGED"
     lines = [f"tune: {state} ({one_line(result.message)}), {result.iterations} iterations, "
@@ -567,7 +568,7 @@ def _tune_table(result, out: str) -> str:
 
 
 def _cmd_formats(args) -> int:
-    from .formats import formats
+    from stobuilder.formats import formats
 
     table = formats().values()
     if args.json:
@@ -641,8 +642,8 @@ def _flag_text(exc: InputError) -> str:
     Python arguments (``options.OptionError``, ``files.OverwriteError``: anything with
     ``render``) names their flags instead; a message that a path with a line end would break
     gets the line end escaped (``limits.one_line``)."""
-    from .limits import one_line
-    from .options import CLI_FLAGS
+    from stobuilder.core.limits import one_line
+    from stobuilder.pipeline.options import CLI_FLAGS
 
     text = exc.render({**CLI_FLAGS, "force": "--force"}) if hasattr(exc, "render") else str(exc)
     return one_line(text) if len(text.splitlines()) > 1 else text

@@ -1,5 +1,5 @@
 """The public doors whose bodies live in modules other parts of the package own (formats,
-expansion, pipeline): each checks its arguments (``stobuilder.arguments``) and calls the body.
+expansion, pipeline): each checks its arguments (``stobuilder.core.arguments``) and calls the body.
 The names and signatures are the bodies' own; ``stobuilder/__init__.py`` exports these.
 """
 
@@ -9,13 +9,13 @@ import functools
 import inspect
 from collections.abc import Iterable
 
-from . import arguments
-from .basis import Basis
-from .expansion import fit_sto as _fit_sto
-from .formats import merge_basis as _merge_basis
-from .formats import read_basis as _read_basis
-from .formats import write_basis as _write_basis
-from .pipeline import build_structures as _build_structures
+from stobuilder.core import arguments
+from stobuilder.model.basis import Basis
+from stobuilder.expansion import fit_sto as _fit_sto
+from stobuilder.formats import merge_basis as _merge_basis
+from stobuilder.formats import read_basis as _read_basis
+from stobuilder.formats import write_basis as _write_basis
+from stobuilder.pipeline.path import build_structures as _build_structures
 
 
 def _check_basis(value, name: str = "basis"):

@@ -41,8 +41,8 @@ import threading
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
-from .errors import InputError
-from .options import BuildOptions
+from stobuilder.core.errors import InputError
+from stobuilder.pipeline.options import BuildOptions
 
 OPTIMIZERS = ("bfgs", "fire")
 DEFAULT_FMAX = 0.05  # eV/Å, ASE's own default for its optimizers
@@ -105,7 +105,7 @@ def fmax_ok(fmax) -> bool:
 def _check_settings(fmax, steps, optimizer) -> tuple[float, int, str]:
     """The Python arguments checked; messages name them as Python names them (the command line
     checks its flags itself, in its own words)."""
-    from .limits import whole_number
+    from stobuilder.core.limits import whole_number
 
     if not fmax_ok(fmax):
         raise InputError(f"fmax={fmax!r}: must be a positive number (eV/Å)")
@@ -117,7 +117,7 @@ def _check_settings(fmax, steps, optimizer) -> tuple[float, int, str]:
 
 
 def _calculator(frame, basis, options: BuildOptions, conv_tol, max_cycle):
-    from .calculator import DEFAULT_CONV_TOL, DEFAULT_MAX_CYCLE, STOCalculator
+    from stobuilder.calculator import DEFAULT_CONV_TOL, DEFAULT_MAX_CYCLE, STOCalculator
 
     calc = STOCalculator(
         rule=options.rule, gaussians=options.gaussians, fit=options.norm, exponents=options.exponents,
@@ -163,10 +163,10 @@ def relax_structures(
     module docstring). Existing files are kept unless ``force``; bad input (settings, structures,
     output locations) is an InputError before anything is computed or written. Each structure's
     files are written when it is relaxed; an interrupt raises ``RelaxInterrupted``."""
-    from .files import check_targets
-    from .limits import one_line
-    from .naming import structure_name
-    from .pipeline import check_electrons, check_zeta_elements, claim_target, prepare
+    from stobuilder.core.files import check_targets
+    from stobuilder.core.limits import one_line
+    from stobuilder.pipeline.naming import structure_name
+    from stobuilder.pipeline.path import check_electrons, check_zeta_elements, claim_target, prepare
 
     if isinstance(paths, (str, os.PathLike)):
         raise TypeError("paths must be a list of structure files, not one path")
@@ -256,8 +256,8 @@ def _relax_jobs(run: _Run, jobs, options, fmax, steps, optimizer, out_dir, write
     from ase.optimize import BFGS, FIRE
     from ase.units import Hartree
 
-    from .files import write_all
-    from .limits import one_line
+    from stobuilder.core.files import write_all
+    from stobuilder.core.limits import one_line
 
     kinds = {"bfgs": BFGS, "fire": FIRE}
     for item, frame, relaxed, targets in jobs:

@@ -40,9 +40,9 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from .errors import InputError
-from .limits import ZETA_MAX, ZETA_MIN
-from .options import BuildOptions, merge_zeta
+from stobuilder.core.errors import InputError
+from stobuilder.core.limits import ZETA_MAX, ZETA_MIN
+from stobuilder.pipeline.options import BuildOptions, merge_zeta
 
 __all__ = ["EnergyRow", "TuneResult", "Variable", "default_variables", "energy_gradient", "load_weights", "parse_vary",
            "tune"]
@@ -86,7 +86,7 @@ class Variable:
 
 def parse_vary(items: Sequence[str]) -> tuple[Variable, ...]:
     """``--vary`` items ("C:2s,2p", "H:1s") as Variables; a subshell may be free only once."""
-    from .elements import L_LETTERS, normalise_symbol, parse_subshell_label
+    from stobuilder.model.elements import L_LETTERS, normalise_symbol, parse_subshell_label
 
     out: list[Variable] = []
     seen: dict[tuple[str, str], str] = {}
@@ -142,7 +142,7 @@ def load_weights(path, structures: Sequence[str]) -> tuple[float, ...]:
     a structure as given, its file name, or its name without extension (e.g. ``water = 2``);
     structures not named weigh 1. Every key must name a training structure and every weight
     be a positive finite number."""
-    from .options import read_toml
+    from stobuilder.pipeline.options import read_toml
 
     doc, where = read_toml(path, "weights file")
     if not doc:
@@ -153,7 +153,7 @@ def load_weights(path, structures: Sequence[str]) -> tuple[float, ...]:
 def _mapped_weights(doc: Mapping, structures: Sequence[str], where: str) -> tuple[float, ...]:
     """The weights of {structure: weight} (a key: the structure as given, its file name, or that
     name without extension), 1 for structures not named; ``where`` names the source in errors."""
-    from .naming import structure_name
+    from stobuilder.pipeline.naming import structure_name
 
     weights = [None] * len(structures)
     names = [{s, os.path.basename(s), structure_name(os.path.basename(s))} for s in structures]
@@ -282,8 +282,8 @@ class TuneResult:
         where it came from. Deterministic: no times in it. Text from inputs (structure names,
         the zeta file's name, the message naming one) goes through ``limits.one_line``, so a
         file name cannot end its comment line and become a live entry."""
-        from .elements import atomic_number
-        from .limits import one_line
+        from stobuilder.model.elements import atomic_number
+        from stobuilder.core.limits import one_line
 
         o = self.options
         notes = [
@@ -331,17 +331,17 @@ class _Item:
     """One structure of the objective: its SCF set-up."""
 
     label: str
-    structure: object  # stobuilder.structures.Structure
+    structure: object  # stobuilder.model.structures.Structure
     method: str
     weight: float
     atom: bool  # a free atom in its basis' configuration: fixed occupations, as build --check
 
 
 def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str = "training") -> list[_Item]:
-    from .checks import _is_its_configuration
-    from .methods import pick_method
-    from .pipeline import check_electrons, basis_for
-    from .structures import check_geometry, read_structures
+    from stobuilder.checks.structure import _is_its_configuration
+    from stobuilder.model.methods import pick_method
+    from stobuilder.pipeline.path import check_electrons, basis_for
+    from stobuilder.model.structures import check_geometry, read_structures
 
     items = []
     for i, path in enumerate(paths):
@@ -366,8 +366,8 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
 
 def _scf(item: _Item, options: BuildOptions, zeta: dict, dm0):
     """(energy or None, density) of ``item`` with the ζ overrides ``zeta`` on top of the options'."""
-    from .checks import _configuration, free_atom_setup, solve, structure_mole
-    from .pipeline import basis_for
+    from stobuilder.checks.structure import _configuration, free_atom_setup, solve, structure_mole
+    from stobuilder.pipeline.path import basis_for
 
     basis = basis_for([item.structure], options.replace(zeta=merge_zeta(options.zeta_map, zeta)))
     if item.atom:  # the fixed-occupation free atom of build --check (checks.free_atom_setup)
@@ -398,7 +398,7 @@ def _start_values(variables, items, options) -> list[float]:
     """The start ζ of each variable: its subshells' ζ in the start basis (the geometric mean when
     tied subshells start from different ζ). InputError for an element not in the structures or a
     subshell its basis lacks."""
-    from .pipeline import basis_for
+    from stobuilder.pipeline.path import basis_for
 
     bases = {}
     for item in items:
@@ -442,7 +442,7 @@ def tune(
         return _tune(structures, options, vary, weights, validate, max_iterations)
     from pyscf import lib
 
-    from .limits import whole_number
+    from stobuilder.core.limits import whole_number
 
     with lib.with_omp_threads(whole_number(threads, "threads", 1)):
         return _tune(structures, options, vary, weights, validate, max_iterations)
@@ -513,7 +513,7 @@ def _setup(structures, options, vary, weights, validate=()):
     """(options, items, variables, start ζ, held-out items) of a tuning job; every input checked
     before the first SCF, the ζ of the options too (``pipeline.check_zeta_elements``: every
     element ``zeta`` names is in a training or held-out structure, and a zeta file names one)."""
-    from .pipeline import check_zeta_elements
+    from stobuilder.pipeline.path import check_zeta_elements
 
     options = options or BuildOptions()
     if not isinstance(options, BuildOptions):
@@ -528,7 +528,7 @@ def _setup(structures, options, vary, weights, validate=()):
     held = _items(validate, options, role="held-out") if validate else []
     check_zeta_elements(options, [it.structure for it in items + held])
     if vary is None:
-        from .pipeline import basis_for
+        from stobuilder.pipeline.path import basis_for
 
         variables = default_variables(basis_for([i.structure for i in items], options))
     else:
@@ -542,7 +542,7 @@ def _setup(structures, options, vary, weights, validate=()):
 def _refuse_twice(paths: Sequence[str], role: str) -> None:
     """InputError for a structure file given twice (the same file, by its real path), as bench
     and relax refuse one: counting it twice is what a weight of 2 is for."""
-    from .limits import one_line
+    from stobuilder.core.limits import one_line
 
     seen: dict[str, str] = {}
     for path in paths:
@@ -595,7 +595,7 @@ def _held(x, g, lo, hi) -> list[int]:
 def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneResult:
     from scipy.optimize import minimize
 
-    from .limits import whole_number
+    from stobuilder.core.limits import whole_number
 
     t0 = time.perf_counter()
     max_iterations = whole_number(max_iterations, "max_iterations", 0)

@@ -29,7 +29,7 @@ def no_scf(monkeypatch):
     checks that must refuse a bad input or output location before the first SCF."""
     from pyscf.scf import hf
 
-    from stobuilder import checks
+    from stobuilder.checks import structure as checks
 
     def refuse(*args, **kwargs):
         pytest.fail("an SCF ran before the input and output checks refused")

@@ -2,10 +2,10 @@
 
 import pytest
 
-from stobuilder.atom import atom_report
-from stobuilder.atomic import atom_energy, optimize_zeta
-from stobuilder.options import load_zeta_file, parse_zeta_overrides
-from stobuilder.errors import InputError
+from stobuilder.checks.atom import atom_report
+from stobuilder.exact.atoms import atom_energy, optimize_zeta
+from stobuilder.pipeline.options import load_zeta_file, parse_zeta_overrides
+from stobuilder.core.errors import InputError
 from stobuilder.expansion import MAX_GAUSSIANS
 
 

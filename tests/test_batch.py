@@ -29,10 +29,10 @@ from cli_run import kill_when_done
 from stobuilder import batch
 from stobuilder.batch import discover, read_manifest, run_batch
 from stobuilder.cli import main
-from stobuilder.errors import InputError
-from stobuilder.options import BuildOptions
-from stobuilder.files import sha256_text
-from stobuilder.pipeline import build_structures
+from stobuilder.core.errors import InputError
+from stobuilder.pipeline.options import BuildOptions
+from stobuilder.core.files import sha256_text
+from stobuilder.pipeline.path import build_structures
 
 ROOT = Path(__file__).resolve().parents[1]
 EXAMPLES = ROOT / "examples" / "structures"
@@ -179,7 +179,7 @@ def test_batch_files_equal_build_output_byte_for_byte(tmp_path):
 
 def test_one_basis_construction_per_element_set(tmp_path, monkeypatch):
     """Items with the same element set and options share one basis (the worker's cache)."""
-    import stobuilder.pipeline as pipeline
+    import stobuilder.pipeline.path as pipeline
 
     calls = []
     real = pipeline.basis_for
@@ -264,7 +264,7 @@ def test_an_unconverged_scf_fails_the_item_and_writes_nothing(tmp_path, monkeypa
     """SCF not converged is a failed item (recorded with its check), not a stopped batch, and its
     files are not written (checks run before files are written: the contract of build and batch).
     The non-convergence is injected: PySCF converges these small molecules."""
-    import stobuilder.checks as checks
+    import stobuilder.checks.structure as checks
 
     real = checks.check_structure
 

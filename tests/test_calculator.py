@@ -183,7 +183,8 @@ def test_pyscf_mole_gives_the_calculators_basis_and_energy():
 
 
 def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypatch):
-    from stobuilder import checks, pipeline
+    from stobuilder.checks import structure as checks
+    from stobuilder.pipeline import path as pipeline
 
     built, starts = [], []
     real_basis_for, real_solve = pipeline.basis_for, checks.solve
@@ -351,7 +352,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
     import threading
     import time
 
-    from stobuilder import checks
+    from stobuilder.checks import structure as checks
 
     names = ("H2", "H2O", "H2", "H2O")
 

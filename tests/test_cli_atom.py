@@ -115,7 +115,7 @@ def test_exact_atoms_leave_out_effective_n_stos():
     # The exact-STO integrals cover integer n only; with r^(n*−1) STOs (Slater 1930: n* = 3.7 for
     # n = 4) the K atom has no exact counterpart and is left out rather than compared wrongly.
     import stobuilder
-    from stobuilder.checks import exact_sto_atoms
+    from stobuilder.checks.structure import exact_sto_atoms
 
     effective = stobuilder.build_basis(["H", "K"], radial="effective-n")
     assert [a.symbol for a in exact_sto_atoms(effective, ["H", "K"])] == ["H"]

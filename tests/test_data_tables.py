@@ -16,9 +16,9 @@ import numpy as np
 import pytest
 
 from stobuilder.expansion.library import library_path
-from stobuilder.expansion.regenerate import check_texts, compare_library, contraction_distance
-from stobuilder.screening import regenerate_molecular, regenerate_optimized
-from stobuilder.tablecheck import SquaredDistance, Tolerance, compare
+from stobuilder.maintainer.fits import check_texts, compare_library, contraction_distance
+from stobuilder.maintainer import molecular as regenerate_molecular, optimized as regenerate_optimized
+from stobuilder.maintainer.tablecheck import SquaredDistance, Tolerance, compare
 
 
 def _load(path) -> dict:

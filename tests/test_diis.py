@@ -1,4 +1,4 @@
-"""The DIIS extrapolation every SCF of stobuilder uses (stobuilder.diis).
+"""The DIIS extrapolation every SCF of stobuilder uses (stobuilder.core.diis).
 
 DIIS coefficients minimise |Σ c_i e_i|² subject to Σ c_i = 1 (Pulay, Chem. Phys. Lett. 73, 393,
 1980); for independent error vectors the Lagrange solution is c = B⁻¹1 / (1ᵀB⁻¹1) with
@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from pyscf import lib
 
-from stobuilder.diis import RobustDIIS, diis_coefficients
+from stobuilder.core.diis import RobustDIIS, diis_coefficients
 
 
 def _bordered(errors):
@@ -59,7 +59,7 @@ def test_scf_with_it_matches_pyscf_default():
     # the same converged energy as PySCF's own DIIS on a well-behaved molecule
     from pyscf import gto, scf
 
-    from stobuilder.diis import use_robust_diis
+    from stobuilder.core.diis import use_robust_diis
 
     mol = gto.M(atom="O 0 0 0; H 0 0.757 0.587; H 0 -0.757 0.587", basis="sto-3g", verbose=0)
     plain = scf.RHF(mol)

@@ -4,8 +4,8 @@ import pytest
 from hypothesis import given
 from hypothesis import strategies as st
 
-from stobuilder.elements import MAX_Z, element_symbol, ground_state, parse_configuration, resolve
-from stobuilder.errors import InputError
+from stobuilder.model.elements import MAX_Z, element_symbol, ground_state, parse_configuration, resolve
+from stobuilder.core.errors import InputError
 
 # Ground-state configurations of neutral atoms, NIST Atomic Spectra Database ground levels
 # (value from memory).

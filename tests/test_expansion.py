@@ -33,7 +33,7 @@ from scipy.integrate import quad
 from scipy.optimize import brentq
 from scipy.special import gamma, hyperu
 
-from stobuilder.errors import InputError
+from stobuilder.core.errors import InputError
 from scalar_integrals import radial_integrals, sto_gaussian_overlap
 from stobuilder.expansion import Fit, fit_sto, library_families, lookup
 from stobuilder.expansion.analytic import gaussian_overlap

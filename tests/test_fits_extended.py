@@ -26,8 +26,8 @@ from scipy.integrate import quad
 from scipy.optimize import minimize
 
 import stobuilder
-from stobuilder.checks import check_free_atom
-from stobuilder.errors import InputError
+from stobuilder.checks.structure import check_free_atom
+from stobuilder.core.errors import InputError
 from stobuilder.expansion import fit as F
 from stobuilder.expansion import fit_sto, library_families, lookup
 from stobuilder.expansion import library as L
@@ -264,11 +264,11 @@ def test_fits_bit_for_bit_on_one_machine():
 
 def test_library_entries_regenerate_within_tolerance():
     """The shipped entries were made on another machine: a fit recomputed here equals its entry
-    within the library's tolerances (stobuilder.expansion.regenerate.compare_library: contractions
+    within the library's tolerances (stobuilder.maintainer.fits.compare_library: contractions
     within 1e-12 in L2, ε accordingly), not bit for bit, since the last bits of double-precision
     results differ between CPUs and numpy builds."""
     from stobuilder.expansion.library import fit_to_entry
-    from stobuilder.expansion.regenerate import compare_library
+    from stobuilder.maintainer.fits import compare_library
 
     for fam, n, norm in REGENERATED:
         F.clear_caches()

@@ -28,10 +28,10 @@ from pyscf.gto.basis import parse_gaussian
 from qcelemental.models import BasisSet
 
 import stobuilder
-import stobuilder.elements
+import stobuilder.model.elements
 from layout_readers import read_dalton, read_openmolcas
-from stobuilder.errors import InputError
-from stobuilder.pipeline import format_for_path
+from stobuilder.core.errors import InputError
+from stobuilder.pipeline.path import format_for_path
 
 ALL = ("nwchem", "gaussian", "pyscf", "psi4", "cp2k", "qcschema", "dalton", "openmolcas")
 EXTENSIONS = {
@@ -318,10 +318,10 @@ def test_whole_files_by_path_give_the_python_files_aos_and_rhf_energy(name, tmp_
 def test_every_element_h_to_kr_and_gd_loads_by_path_with_its_own_aos(tmp_path):
     # A "molecule" of one atom of every element H-Kr and Gd (s, p, d, f shells) 4 Å apart: the AO
     # count of every file by path equals the Python file's, element by element.
-    symbols = [stobuilder.elements.element_symbol(z) for z in range(1, 37)] + ["Gd"]
+    symbols = [stobuilder.model.elements.element_symbol(z) for z in range(1, 37)] + ["Gd"]
     b = stobuilder.build_basis(symbols, rule="slater", gaussians=3)
     atoms = [[s, (4.0 * k, 0.0, 0.0)] for k, s in enumerate(symbols)]
-    nelec = sum(stobuilder.elements.atomic_number(s) for s in symbols)
+    nelec = sum(stobuilder.model.elements.atomic_number(s) for s in symbols)
 
     def nao(basis_arg):
         return gto.M(atom=atoms, basis=basis_arg, spin=nelec % 2, verbose=0).nao

@@ -134,7 +134,7 @@ def test_the_doors_keep_the_bodies_signatures_and_docs():
     import inspect
 
     from stobuilder import formats as formats_package  # noqa: F401  (the subpackage is imported)
-    from stobuilder.pipeline import build_structures as body
+    from stobuilder.pipeline.path import build_structures as body
 
     assert inspect.signature(stobuilder.build_structures) == inspect.signature(body)
     assert stobuilder.build_structures.__doc__ == body.__doc__

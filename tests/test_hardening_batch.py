@@ -25,10 +25,10 @@ from ase.build import molecule
 from ase.io import write
 
 from stobuilder import batch
-from stobuilder.options import BuildOptions
+from stobuilder.pipeline.options import BuildOptions
 from stobuilder.batch import discover, read_manifest, run_batch
 from stobuilder.cli import main
-from stobuilder.errors import InputError
+from stobuilder.core.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
 

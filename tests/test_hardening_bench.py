@@ -27,8 +27,9 @@ from ase.build import molecule
 from ase.io import write
 
 from cli_run import assert_one_line_error, run_cli
-from stobuilder import batch, bench, bench_report
-from stobuilder.limits import one_line
+from stobuilder import batch
+from stobuilder.bench import run as bench, report as bench_report
+from stobuilder.core.limits import one_line
 
 
 @pytest.fixture()
@@ -220,7 +221,7 @@ def test_a_zeta_file_naming_no_element_of_the_structures_is_refused(tmp_path, ca
 def test_a_bench_zeta_file_takes_the_rule_and_words_of_every_door(tmp_path, capsys):
     # the rule of build, relax, tune and batch (pipeline.check_zeta_elements): the command line
     # names the flag, the Python door its argument; a file with no ζ in it is refused as well
-    from stobuilder.options import OptionError
+    from stobuilder.pipeline.options import OptionError
 
     zeta = tmp_path / "helium.toml"
     zeta.write_text("[He]\n1s = 1.6875\n")  # 27/16, He's variational ζ (Zener 1930; value from memory)
@@ -411,7 +412,7 @@ def test_outlying_points_are_labelled_with_their_molecule():
 
 
 def test_wording_singular_and_cautions(tmp_path):
-    from stobuilder.structures import Structure
+    from stobuilder.model.structures import Structure
 
     (one,) = bench.set_structures("g2-1", ["LiH"])
     ion = bench.BenchStructure("oh-.xyz", Structure("oh-.xyz", 0, ("O", "H"), ((0, 0, 0), (0, 0, 0.97)), -1, 0, False))

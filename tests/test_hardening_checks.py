@@ -15,7 +15,7 @@ from ase.build import molecule
 from ase.io import write
 
 from stobuilder.cli import main
-from stobuilder.errors import InputError
+from stobuilder.core.errors import InputError
 
 
 def strict_json(text):
@@ -130,7 +130,7 @@ def test_a_check_that_raises_writes_nothing_and_names_the_file(tmp_path, capsys,
     """An SCF failing numerically inside PySCF (injected: a LinAlgError) is a one-line error
     naming the structure, and none of the build's files is written, not even those of the
     structures checked before it."""
-    import stobuilder.checks as checks
+    import stobuilder.checks.structure as checks
 
     real = checks.check_structure
 
@@ -149,7 +149,7 @@ def test_a_check_that_raises_writes_nothing_and_names_the_file(tmp_path, capsys,
 
 
 def test_a_failed_check_keeps_the_old_files_under_force(tmp_path, capsys, monkeypatch):
-    import stobuilder.checks as checks
+    import stobuilder.checks.structure as checks
 
     src = tmp_path / "w.xyz"
     write(src, molecule("H2O"))
@@ -170,9 +170,9 @@ def test_a_failed_check_keeps_the_old_files_under_force(tmp_path, capsys, monkey
 def test_batch_item_whose_check_raises_fails_and_writes_nothing(tmp_path, capsys, monkeypatch):
     import concurrent.futures as cf
 
-    import stobuilder.checks as checks
+    import stobuilder.checks.structure as checks
     from stobuilder.batch import discover, run_batch
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline.options import BuildOptions
 
     def failing(*args, **kwargs):
         raise np.linalg.LinAlgError("singular")
@@ -210,7 +210,7 @@ def test_atom_and_build_give_one_energy(tmp_path, capsys):
 def test_a_free_atom_structure_defaults_to_the_ground_state_spin(tmp_path):
     # Hund's rule ground states (NIST Atomic Spectra Database, ground levels): O 3P (2S = 2),
     # Fe 5D (2S = 4), N 4S (2S = 3); a molecule keeps the lowest spin
-    from stobuilder.structures import read_structures
+    from stobuilder.model.structures import read_structures
 
     for symbol, spin in (("O", 2), ("Fe", 4), ("N", 3), ("He", 0)):
         (frame,) = read_structures(xyz(tmp_path / f"{symbol}.xyz", [f"{symbol} 0 0 0"]))
@@ -220,7 +220,7 @@ def test_a_free_atom_structure_defaults_to_the_ground_state_spin(tmp_path):
 
 
 def test_method_choice_lives_in_one_place():
-    from stobuilder.methods import free_atom_method, pick_method
+    from stobuilder.model.methods import free_atom_method, pick_method
 
     assert pick_method("auto", 0) == "RHF" and pick_method("auto", 2) == "ROHF"
     assert free_atom_method("rhf", 1, "H") == ("ROHF", "H: ROHF (RHF needs a closed shell; it has 1 unpaired electron)")
@@ -262,14 +262,14 @@ def test_a_5000_atom_structure_is_refused_before_any_scf(big, tmp_path, capsys, 
     target = ["--out", str(out)] if command == ["relax"] else ["--out", str(tmp_path / "z.toml")]
     code, _, err = run([*command, str(big), *target], capsys)
     # 5000 basis functions: in-core integrals 5000⁴/1e6 MB would not fit, so direct SCF,
-    # 40·8·5000² bytes = 8000 MB of matrices + 250 MB buffers (stobuilder.checks.scf_size)
+    # 40·8·5000² bytes = 8000 MB of matrices + 250 MB buffers (stobuilder.checks.structure.scf_size)
     assert_bad_input(code, err, out, str(big), "5000 basis functions", "8,250 MB", "4,000 MB", "STOBUILDER_MAX_MEMORY")
     assert not (tmp_path / "z.toml").exists()
 
 
 def test_the_size_guard_sits_in_check_electrons_and_its_limit_can_be_raised(big, monkeypatch):
     from stobuilder import build_basis, read_structures
-    from stobuilder.pipeline import check_electrons
+    from stobuilder.pipeline.path import check_electrons
 
     (frame,) = read_structures(str(big))
     basis = build_basis(["H"])
@@ -314,7 +314,7 @@ def test_a_small_molecule_passes_the_guard(tmp_path, capsys, monkeypatch):
 
 
 def test_a_long_scf_prints_its_cycles_on_stderr(tmp_path, capsys, monkeypatch):
-    import stobuilder.checks as checks
+    import stobuilder.checks.structure as checks
 
     monkeypatch.setattr(checks, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
     path = tmp_path / "water.xyz"
@@ -349,9 +349,9 @@ def test_bench_refuses_a_reference_basis_too_big_for_memory_before_any_scf(tmp_p
                                                                            monkeypatch):
     # CH4 in cc-pVTZ: C 4s3p2d1f = 30 and H 3s2p1d = 14 spherical functions (Dunning, J. Chem. Phys. 90,
     # 1007 (1989); value from memory), 86 in all: its integrals, 86⁴/1e6 = 54.7 MB, do not fit in
-    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.scf_size);
+    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.structure.scf_size);
     # the minimal basis, 9 functions, fits (about 0.03 MB)
-    from stobuilder.checks import scf_size
+    from stobuilder.checks.structure import scf_size
 
     monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "20")
     expected = scf_size(86, "RHF", 20.0)

@@ -252,7 +252,7 @@ def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name,
     run and nothing written. (common practice, no source)"""
     import tomllib
 
-    from stobuilder import checks
+    from stobuilder.checks import structure as checks
 
     reference = _tune_reference_zeta()
     with tempfile.TemporaryDirectory() as folder:

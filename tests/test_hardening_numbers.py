@@ -1,6 +1,6 @@
 """Issue 16, class 2: numbers that are not finite or not physical are errors, at one point.
 
-ζ, Gaussian exponents, charge and spin are checked by stobuilder.limits (called by the options
+ζ, Gaussian exponents, charge and spin are checked by stobuilder.core.limits (called by the options
 object and the basis build, which every door goes through); every JSON we print is strict.
 The ranges are stated in README ("Limits").
 """
@@ -14,9 +14,9 @@ from ase.io import write
 
 from stobuilder import build_basis, element_basis
 from stobuilder.cli import main
-from stobuilder.errors import InputError
-from stobuilder.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
-from stobuilder.options import BuildOptions, load_zeta_file
+from stobuilder.core.errors import InputError
+from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
+from stobuilder.pipeline.options import BuildOptions, load_zeta_file
 
 from test_hardening_checks import assert_bad_input, run, strict_json, xyz
 

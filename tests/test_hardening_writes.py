@@ -1,7 +1,7 @@
 """Issue 16, class 3: a build writes all of its files or none, names the target in every error,
 respects the umask, and a merged file keeps its mode.
 
-One write path, stobuilder.files: stage every temporary file (flushed, fsynced, mode set), then
+One write path, stobuilder.core.files: stage every temporary file (flushed, fsynced, mode set), then
 rename them all. Faults are injected where the operating system would raise them (a full disk
 raises ENOSPC from write or fsync; os.replace can fail); the expected behaviour is that of
 POSIX rename(2) and open(2) with the umask (common practice, no source).
@@ -15,7 +15,7 @@ import pytest
 from ase.build import molecule
 from ase.io import write
 
-import stobuilder.files as files
+import stobuilder.core.files as files
 from stobuilder.cli import main
 
 from cli_run import read_only_folder
@@ -161,7 +161,7 @@ def test_batch_item_that_cannot_be_written_writes_none_of_its_files(tmp_path, ca
     import concurrent.futures as cf
 
     from stobuilder.batch import discover, run_batch
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline.options import BuildOptions
 
     real = files.stage
 
@@ -184,8 +184,9 @@ def test_every_writer_goes_through_files(tmp_path, umask):
     and mode policy): written files get the umask's mode."""
     from pathlib import Path
 
-    from stobuilder.expansion import library, regenerate
-    from stobuilder.screening import regenerate_molecular
+    from stobuilder.expansion import library
+    from stobuilder.maintainer import fits as regenerate
+    from stobuilder.maintainer import molecular as regenerate_molecular
 
     umask(0o027)
     for writer, name in ((library._write_atomic, "cache.json"), (regenerate.write_atomic, "lib.json"),
@@ -207,7 +208,7 @@ def test_main_never_leaves_temporary_files(tmp_path, capsys, two):
 
 # ---------------------------------------------------------------------------- text from inputs in file headers
 # Issue 21: text from an input that goes into a basis file's header (a rule name, a configuration,
-# a note; a structure's file name) goes through stobuilder.limits.one_line, so that it cannot end
+# a note; a structure's file name) goes through stobuilder.core.limits.one_line, so that it cannot end
 # the comment and become live content of the file.
 
 HOSTILE = "x\nEND\n****\nH S\n  1.0  1.0\r\nBASIS \"ao basis\"\u2028a 1\x85* Basis set\x1c$ \"q\"\\"
@@ -279,10 +280,10 @@ LINE_ENDS = ["\n", "\r", "\r\n", "\v", "\f", "\x1c", "\x1d", "\x1e", "\x85", "\u
 def test_one_line_docstring_example():
     import doctest
 
-    import stobuilder.limits
+    import stobuilder.core.limits
 
     finder = doctest.DocTestFinder()
-    (test,) = [t for t in finder.find(stobuilder.limits) if t.name.endswith("one_line")]
+    (test,) = [t for t in finder.find(stobuilder.core.limits) if t.name.endswith("one_line")]
     result = doctest.DocTestRunner().run(test)
     assert result.attempted >= 1 and result.failed == 0
 
@@ -293,7 +294,7 @@ def test_one_line_escapes_and_decodes_back(end):
     import json
     import tomllib
 
-    from stobuilder.limits import one_line
+    from stobuilder.core.limits import one_line
 
     text = f"a{end}b [He] = 1"
     escaped = one_line(text)

@@ -23,9 +23,9 @@ def test_no_import_cycles():
     edges = graph.graph(ROOT)
     assert graph.cycles(edges) == []
     # the plumbing has one owner each, below the modules that use it
-    assert "stobuilder.checks" not in edges["stobuilder.atomic"] | edges["stobuilder.sto_scf"]
-    assert "stobuilder.atomic" not in edges["stobuilder.screening.optimized"]
-    assert edges["stobuilder.files"] <= {"stobuilder.errors"}
+    assert "stobuilder.checks.structure" not in edges["stobuilder.exact.atoms"] | edges["stobuilder.exact.solver"]
+    assert "stobuilder.exact.atoms" not in edges["stobuilder.rules.optimized"]
+    assert edges["stobuilder.core.files"] <= {"stobuilder.core.errors"}
 
 
 def test_the_script_finds_a_cycle(tmp_path):

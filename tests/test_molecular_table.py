@@ -1,4 +1,4 @@
-"""The derived molecular STO-3G ζ table (stobuilder/screening/data/molecular_sto3g.json).
+"""The derived molecular STO-3G ζ table (stobuilder/rules/data/molecular_sto3g.json).
 
 Expected values: H–Ne from Hehre, Stewart & Pople, J. Chem. Phys. 51, 2657 (1969), Na–Ar from
 Hehre, Ditchfield, Stewart & Pople, J. Chem. Phys. 52, 2769 (1970) — both value from memory; the
@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import pytest
 
-from stobuilder.screening import regenerate_molecular
-from stobuilder.screening.molecular import table
+from stobuilder.maintainer import molecular as regenerate_molecular
+from stobuilder.rules.molecular import table
 
 # (1s, 2sp) H–Ne: Hehre, Stewart & Pople 1969, value from memory
 HSP69 = {
@@ -61,7 +61,7 @@ def test_rendering_is_byte_identical_on_one_machine(derived):
 
 def test_covers_h_to_i_in_order_of_z_but_y(derived):
     # Y is left out: its transcription in PySCF's sto-3g.dat mixes fits (EXCLUDED in the script).
-    from stobuilder.elements import atomic_number
+    from stobuilder.model.elements import atomic_number
 
     symbols = list(derived)
     assert symbols[0] == "H" and symbols[-1] == "I" and len(symbols) == 52

@@ -99,8 +99,8 @@ def test_relax_out_of_steps_exits_1_and_says_so(tmp_path, capsys):
 
 
 def test_relax_builds_the_basis_once_per_structure(tmp_path, monkeypatch):
-    from stobuilder import pipeline
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline import path as pipeline
+    from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
     calls = []
@@ -157,7 +157,7 @@ def test_relax_bad_structures_exit_2_and_write_nothing(tmp_path, capsys):
 
 def test_an_scf_that_fails_during_a_relaxation_writes_nothing(tmp_path):
     from stobuilder import InputError
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
     out = tmp_path / "out"
@@ -199,8 +199,9 @@ def test_relax_refuses_a_bad_output_location_before_the_first_scf(tmp_path, caps
 def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones_before(tmp_path, monkeypatch):
     from ase.calculators.calculator import SCFError
 
-    from stobuilder import InputError, checks
-    from stobuilder.options import BuildOptions
+    from stobuilder import InputError
+    from stobuilder.checks import structure as checks
+    from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
     first, second = tmp_path / "a.xyz", tmp_path / "b.xyz"
@@ -332,7 +333,7 @@ def test_relax_steps_flag_takes_a_whole_number_written_with_an_exponent(tmp_path
 )
 def test_the_python_door_names_python_arguments(tmp_path, kwargs, needle):
     from stobuilder import InputError
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
     with pytest.raises(InputError) as e:
@@ -348,8 +349,8 @@ def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_pa
     import threading
     import time
 
-    from stobuilder import checks
-    from stobuilder.options import BuildOptions
+    from stobuilder.checks import structure as checks
+    from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import RelaxInterrupted, relax_structures
 
     first, second = tmp_path / "a.xyz", tmp_path / "b.xyz"

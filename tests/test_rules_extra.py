@@ -2,9 +2,9 @@
 
 import pytest
 
-from stobuilder.elements import element_symbol, ground_state, parse_configuration
-from stobuilder.screening import rules, shell_exponents
-from stobuilder.screening.optimized import table
+from stobuilder.model.elements import element_symbol, ground_state, parse_configuration
+from stobuilder.rules import rules, shell_exponents
+from stobuilder.rules.optimized import table
 
 ROWS = [(1, 2), (3, 10), (11, 18), (19, 36)]
 
@@ -44,7 +44,7 @@ def test_heavy_optimised_energies_lie_just_above_the_hartree_fock_limit(symbol):
 def test_heavy_table_entry_is_the_energy_minimum():
     # Rn: the shipped ζ reproduce the shipped energy, and moving the 6p ζ either way by 0.1 %
     # raises it (a minimum; common practice, no source)
-    from stobuilder.atomic import atom_energy
+    from stobuilder.exact.atoms import atom_energy
 
     entry = table()["elements"]["Rn"]
     e0 = atom_energy("Rn", zeta=entry["zeta"]).energy
@@ -107,7 +107,7 @@ def test_optimized_on_demand_is_cached_on_disk(tmp_path, monkeypatch):
     # the user cache folder; the cached value is the same optimum (He-like ion: ζ = Z − 5/16,
     # the textbook variational result, e.g. Levine, Quantum Chemistry).
     import stobuilder
-    from stobuilder.screening import optimized
+    from stobuilder.rules import optimized
 
     monkeypatch.setenv("STOBUILDER_CACHE_DIR", str(tmp_path))
     optimized._optimise.cache_clear()

@@ -17,9 +17,9 @@ import stobuilder
 from importlib import import_module
 from stobuilder import batch
 from stobuilder.batch import discover, read_manifest, run_batch
-from stobuilder.options import BuildOptions
+from stobuilder.pipeline.options import BuildOptions
 from stobuilder.cli import main
-from stobuilder.errors import InputError
+from stobuilder.core.errors import InputError
 
 formats_module = import_module("stobuilder.formats")  # the package (stobuilder.formats is also a function)
 

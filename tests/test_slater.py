@@ -5,7 +5,7 @@ from hypothesis import given
 from hypothesis import strategies as st
 
 import stobuilder
-from stobuilder.elements import MAX_Z, element_symbol
+from stobuilder.model.elements import MAX_Z, element_symbol
 
 
 @pytest.mark.parametrize(

@@ -6,8 +6,8 @@ import numpy as np
 import pytest
 from gauss_fit import pyscf_atom
 
-from stobuilder import sto
-from stobuilder.errors import InputError
+from stobuilder.exact import sto
+from stobuilder.core.errors import InputError
 
 
 @pytest.mark.parametrize("zeta", [0.5, 1.0, 1.6875, 7.3])

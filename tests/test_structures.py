@@ -6,8 +6,8 @@ from ase import Atoms
 from ase.build import bulk, molecule
 from ase.io import write
 
-from stobuilder.errors import InputError
-from stobuilder.structures import elements_of, read_structures
+from stobuilder.core.errors import InputError
+from stobuilder.model.structures import elements_of, read_structures
 
 
 @pytest.mark.parametrize("fmt,name", [("xyz", "w.xyz"), ("extxyz", "w.extxyz"), ("proteindatabank", "w.pdb"), ("vasp", "POSCAR")])
@@ -85,7 +85,7 @@ def test_impossible_charge_spin(tmp_path):
 def test_a_file_name_with_an_at_sign_is_read_as_that_file(tmp_path):
     """ASE reads "name@index" as a frame selection unless told not to; a file named "h2@0.xyz" or
     "@.xyz" is that file, every frame (found by the tune fuzz test; common practice, no source)."""
-    from stobuilder.structures import read_structures
+    from stobuilder.model.structures import read_structures
 
     for name in ("@.xyz", "h2@0.xyz", "two@1:.xyz"):
         path = tmp_path / name

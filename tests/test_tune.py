@@ -13,9 +13,9 @@ from pyscf.data.nist import BOHR
 from scipy.optimize import minimize_scalar
 
 from cli_run import assert_one_line_error, run_cli
-from stobuilder import checks
-from stobuilder.build import build_basis
-from stobuilder.options import BuildOptions, load_zeta_file
+from stobuilder.checks import structure as checks
+from stobuilder.builder.construct import build_basis
+from stobuilder.pipeline.options import BuildOptions, load_zeta_file
 from stobuilder.tune import default_variables, energy_gradient, parse_vary
 
 # Standard molecular valence ζ(2s) = ζ(2p) of the published STO-3G, bohr⁻¹
@@ -171,8 +171,8 @@ def test_central_differences_obey_the_scaling_identity(tmp_path, name, vary):
     J. C. Slater, J. Chem. Phys. 1, 687 (1933); for basis scaling P.-O. Löwdin, J. Mol.
     Spectrosc. 3, 46 (1959)), T the kinetic energy, V = E − T, ∇E PySCF's analytic nuclear
     gradient. The Slater-rule ζ are not optimal, so every term is non-zero."""
-    from stobuilder.pipeline import basis_for
-    from stobuilder.structures import read_structures
+    from stobuilder.pipeline.path import basis_for
+    from stobuilder.model.structures import read_structures
 
     path = _write_molecule(tmp_path, name)
     options = BuildOptions(rule="slater")

@@ -14,8 +14,8 @@ import pytest
 from pyscf.data.nist import BOHR
 
 from cli_run import assert_one_line_error, run_cli
-from stobuilder.errors import InputError
-from stobuilder.options import load_zeta_file
+from stobuilder.core.errors import InputError
+from stobuilder.pipeline.options import load_zeta_file
 from stobuilder.tune import tune
 
 ROOT = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
@@ -124,7 +124,7 @@ def test_a_zeta_held_by_the_global_limit_is_not_converged(tmp_path, capsys, monk
 def test_iterations_running_out_on_a_bound_is_not_converged(tmp_path):
     """One iteration from ζ = 0.4 ends on the first round's bound 0.8, below the optimum (≈ 1.2,
     Coulson 1937): held by a bound, not converged, and the message says why."""
-    from stobuilder.options import BuildOptions
+    from stobuilder.pipeline.options import BuildOptions
 
     result = tune([_h2(tmp_path)], BuildOptions(gaussians=2, zeta={"H": {"1s": 0.4}}), max_iterations=1)
     assert result.final == (0.8,) and result.at_bounds == ("H:1s",) and not result.converged

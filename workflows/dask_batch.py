@@ -14,7 +14,7 @@ import sys
 from distributed import Client, LocalCluster
 
 from stobuilder.batch import discover, make_progress, run_batch
-from stobuilder.options import BuildOptions
+from stobuilder.pipeline.options import BuildOptions
 
 
 def main(argv: list[str]) -> int:

@@ -6,7 +6,7 @@ data/fits_h1.json) and fits on demand what it lacks, caching those fits in the u
 folder (cache_dir). Fit.scaled(zeta) gives the exponents for an STO of exponent zeta.
 """
 
-from .fit import MAX_GAUSSIANS, NORMS, Fit, fit_sto, normalise_subshells
-from .library import cache_dir, library_families, lookup
+from stobuilder.expansion.fit import MAX_GAUSSIANS, NORMS, Fit, fit_sto, normalise_subshells
+from stobuilder.expansion.library import cache_dir, library_families, lookup
 
 __all__ = ["MAX_GAUSSIANS", "NORMS", "Fit", "cache_dir", "fit_sto", "library_families", "lookup", "normalise_subshells"]

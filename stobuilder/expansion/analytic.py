@@ -39,9 +39,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .arithmetic import ARB_LOCK, BALL_BITS, DOUBLE, BallArithmetic, exp_affine
-from .assembly import assemble, assemble_double
-from .radial_tables import ball_table, radial_table
+from stobuilder.expansion.arithmetic import ARB_LOCK, BALL_BITS, DOUBLE, BallArithmetic, exp_affine
+from stobuilder.expansion.assembly import assemble, assemble_double
+from stobuilder.expansion.radial_tables import ball_table, radial_table
 
 # Range of the exponents a fit may use, bohr⁻² at ζ = 1 (scaled by ζ_min², ζ_max² of a fit):
 # no fit of the library comes near either end (they span 4e-3 … 7e3).

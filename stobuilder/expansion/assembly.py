@@ -23,10 +23,10 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from .arithmetic import DOUBLE, DoubleArithmetic, exp_affine
+from stobuilder.expansion.arithmetic import DOUBLE, DoubleArithmetic, exp_affine
 
 if TYPE_CHECKING:
-    from .analytic import Problem, Target
+    from stobuilder.expansion.analytic import Problem, Target
 
 
 @lru_cache(maxsize=None)

@@ -35,10 +35,10 @@ from typing import Iterable, Mapping
 
 import numpy as np
 
-from ..elements import parse_subshell_label, subshell_label
-from ..errors import InputError
-from .analytic import Problem, Target, gaussian_overlap
-from .newton import CONSTRAINED_SEARCH, FINISH, SEARCH, newton
+from stobuilder.model.elements import parse_subshell_label, subshell_label
+from stobuilder.core.errors import InputError
+from stobuilder.expansion.analytic import Problem, Target, gaussian_overlap
+from stobuilder.expansion.newton import CONSTRAINED_SEARCH, FINISH, SEARCH, newton
 
 MAX_GAUSSIANS = 12
 NORMS = ("l2", "h1")

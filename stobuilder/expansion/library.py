@@ -4,7 +4,7 @@ File layout (our own): {"provenance": {...}, "norm": "l2", "fits": {family: {N: 
 family is the comma-joined (n, l)-sorted labels ("3s,3p,3d"), N the number of primitives as a
 string, and entry = {"exponents": [...], "coefficients": {label: [...]}, "error": {label: ε}}.
 Floats are written with repr() precision, keys in a fixed order, so a regeneration on the same
-software stack is byte-identical (``python -m stobuilder.expansion.regenerate --check``).
+software stack is byte-identical (``python -m stobuilder.maintainer.fits --check``).
 
 Fits the library lacks (other subshell combinations, non-integer n*, unequal ζ ratios) are fitted
 on demand and cached, one small JSON file per fit, in the user's cache folder:
@@ -23,12 +23,12 @@ from importlib import resources
 from pathlib import Path
 from typing import Iterable, Mapping
 
-from ..files import CACHE_ENV, cache_folder
-from ..version import __version__
-from .fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
+from stobuilder.core.files import CACHE_ENV, cache_folder
+from stobuilder.core.version import __version__
+from stobuilder.expansion.fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
 
 LIBRARY_MAX_GAUSSIANS = 12
-REGENERATE_COMMAND = "python -m stobuilder.expansion.regenerate"
+REGENERATE_COMMAND = "python -m stobuilder.maintainer.fits"
 
 
 def library_families() -> list[tuple[str, ...]]:
@@ -149,7 +149,7 @@ def _cache_key(labels, gaussians, norm, n_eff, zeta_ratio) -> str:
 
 
 def _write_atomic(path: Path, text: str) -> None:
-    from ..files import atomic_write
+    from stobuilder.core.files import atomic_write
 
     path.parent.mkdir(parents=True, exist_ok=True)
     atomic_write(path, text)
@@ -180,8 +180,8 @@ def _consistent(fit: Fit) -> bool:
 
     import numpy as np
 
-    from .analytic import Problem, gaussian_overlap
-    from .fit import targets_for
+    from stobuilder.expansion.analytic import Problem, gaussian_overlap
+    from stobuilder.expansion.fit import targets_for
 
     alpha = np.array(fit.exponents, dtype=float)
     if alpha.shape != (fit.gaussians,) or not np.all(np.isfinite(alpha)) or not np.all(alpha > 0):
@@ -263,7 +263,7 @@ def lookup(
     """
     _check_inputs(gaussians, norm)
     labels = normalise_subshells(subshells)
-    from ..elements import parse_subshell_label
+    from stobuilder.model.elements import parse_subshell_label
 
     n_map = {k: v for k, v in _positive_map("n_eff", n_eff, labels, 1.0, 8.0).items() if v != parse_subshell_label(k)[0]}
     r_map = {k: v for k, v in _positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0).items() if v != 1.0}

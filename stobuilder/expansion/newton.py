@@ -25,7 +25,7 @@ from typing import TYPE_CHECKING
 import numpy as np
 
 if TYPE_CHECKING:
-    from .analytic import Problem
+    from stobuilder.expansion.analytic import Problem
 
 
 @dataclass(frozen=True)

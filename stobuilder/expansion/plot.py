@@ -12,9 +12,9 @@ from typing import Callable
 
 import numpy as np
 
-from ..errors import InputError
-from .fit import MAX_GAUSSIANS, NORMS, Fit
-from .report import NORM_TITLES, expansion_radial, n_effective, sto_radial, subshell_zetas
+from stobuilder.core.errors import InputError
+from stobuilder.expansion.fit import MAX_GAUSSIANS, NORMS, Fit
+from stobuilder.expansion.report import NORM_TITLES, expansion_radial, n_effective, sto_radial, subshell_zetas
 
 
 def _matplotlib():
@@ -38,7 +38,7 @@ def plot_fit(fit: Fit, path: str, zeta: float = 1.0, family_fits: Callable[[str,
         raise InputError(f"--plot {path}: give a file name ending in .png")
     plt = _matplotlib()
     if family_fits is None:
-        from .library import lookup
+        from stobuilder.expansion.library import lookup
 
         def family_fits(norm, n):
             return lookup(list(fit.subshells), n, norm, n_eff=fit.n_eff or None, zeta_ratio=fit.zeta_ratio or None)
@@ -96,7 +96,7 @@ def plot_fit(fit: Fit, path: str, zeta: float = 1.0, family_fits: Callable[[str,
              + (", effective n* " + ", ".join(f"{k} {v:g}" for k, v in fit.n_eff.items()) if fit.n_eff else ""))
     fig.suptitle(title)
     fig.tight_layout()
-    from ..files import atomic_write
+    from stobuilder.core.files import atomic_write
 
     try:
         atomic_write(path, lambda tmp: fig.savefig(tmp, dpi=110, metadata={"Software": None}, format="png"))

@@ -17,7 +17,7 @@ import math
 
 import numpy as np
 
-from .arithmetic import ARB_LOCK, BALL_BITS
+from stobuilder.expansion.arithmetic import ARB_LOCK, BALL_BITS
 
 _BALL_TOL = 2.0 ** -BALL_BITS
 

@@ -11,9 +11,9 @@ import math
 import numpy as np
 from scipy.special import gammaln
 
-from ..elements import parse_subshell_label
-from .fit import Fit
-from .analytic import sto_norm
+from stobuilder.model.elements import parse_subshell_label
+from stobuilder.expansion.fit import Fit
+from stobuilder.expansion.analytic import sto_norm
 
 NORM_TITLES = {"l2": "least squares (L2)", "h1": "Sobolev H1 (value and gradient)"}
 

@@ -11,8 +11,8 @@ from functools import lru_cache
 from importlib import import_module
 from typing import Callable
 
-from ..basis import Basis
-from ..errors import InputError
+from stobuilder.model.basis import Basis
+from stobuilder.core.errors import InputError
 
 _MODULES = ("nwchem", "gaussian", "pyscf_format", "psi4", "cp2k", "qcschema", "dalton", "openmolcas")
 

@@ -8,11 +8,11 @@ import re
 from collections.abc import Callable
 from dataclasses import dataclass
 
-from ..version import __version__
-from ..basis import L_LETTERS, Basis, ElementBasis, Shell
-from ..elements import element_symbol, normalise_symbol
-from ..errors import InputError
-from ..limits import one_line
+from stobuilder.core.version import __version__
+from stobuilder.model.basis import L_LETTERS, Basis, ElementBasis, Shell
+from stobuilder.model.elements import element_symbol, normalise_symbol
+from stobuilder.core.errors import InputError
+from stobuilder.core.limits import one_line
 
 NORM_NAMES = {"l2": "least-squares (L2) fit, Hehre, Stewart & Pople 1969", "h1": "Sobolev H1 fit"}
 

@@ -18,24 +18,9 @@ from __future__ import annotations
 
 import re
 
-from ..basis import Basis, ElementBasis
-from ..elements import parse_subshell_label
-from .common import (
-    Lines,
-    ParsedElement,
-    file_basis,
-    make_shell,
-    merge_lines,
-    no_repeats,
-    number,
-    provenance_lines,
-    read_float,
-    read_int,
-    read_symbol,
-    separator_line,
-    separator_start,
-    shell_blocks,
-)
+from stobuilder.model.basis import Basis, ElementBasis
+from stobuilder.model.elements import parse_subshell_label
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, make_shell, merge_lines, no_repeats, number, provenance_lines, read_float, read_int, read_symbol, separator_line, separator_start, shell_blocks
 
 NAME = "cp2k"
 EXTENSION = ".cp2k.basis"

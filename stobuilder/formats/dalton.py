@@ -15,22 +15,9 @@ defines no file extension (it finds a library file by its name); ours is ``.dalt
 
 from __future__ import annotations
 
-from ..basis import L_LETTERS, Basis, ElementBasis
-from ..elements import atomic_number
-from .common import (
-    Lines,
-    ParsedElement,
-    file_basis,
-    general_contractions,
-    merge_lines,
-    number,
-    parsed_elements,
-    provenance_lines,
-    read_float,
-    read_int,
-    read_z,
-    split_general,
-)
+from stobuilder.model.basis import L_LETTERS, Basis, ElementBasis
+from stobuilder.model.elements import atomic_number
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, general_contractions, merge_lines, number, parsed_elements, provenance_lines, read_float, read_int, read_z, split_general
 
 NAME = "dalton"
 EXTENSION = ".dalton.basis"

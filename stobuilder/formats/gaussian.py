@@ -15,22 +15,8 @@ point (gbasis' ``parse_gbs`` finds shell lines by ``word word word.word``).
 
 from __future__ import annotations
 
-from ..basis import Basis, ElementBasis
-from .common import (
-    Lines,
-    ParsedElement,
-    file_basis,
-    make_shell,
-    merge_lines,
-    number,
-    parsed_elements,
-    provenance_lines,
-    read_float,
-    read_int,
-    read_letter,
-    read_symbol,
-    shell_blocks,
-)
+from stobuilder.model.basis import Basis, ElementBasis
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, make_shell, merge_lines, number, parsed_elements, provenance_lines, read_float, read_int, read_letter, read_symbol, shell_blocks
 
 NAME = "gaussian"
 EXTENSION = ".gbs"

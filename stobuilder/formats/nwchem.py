@@ -14,23 +14,8 @@ replaces an element together with the separator lines right before it.
 
 from __future__ import annotations
 
-from ..basis import Basis, ElementBasis
-from .common import (
-    Lines,
-    ParsedElement,
-    collect,
-    file_basis,
-    make_shell,
-    merge_lines,
-    number,
-    provenance_lines,
-    separator_line,
-    separator_start,
-    read_float,
-    read_letter,
-    read_symbol,
-    shell_blocks,
-)
+from stobuilder.model.basis import Basis, ElementBasis
+from stobuilder.formats.common import Lines, ParsedElement, collect, file_basis, make_shell, merge_lines, number, provenance_lines, separator_line, separator_start, read_float, read_letter, read_symbol, shell_blocks
 
 NAME = "nwchem"
 EXTENSION = ".nw"

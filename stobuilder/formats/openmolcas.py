@@ -16,22 +16,9 @@ OpenMolcas defines no file extension for such blocks; ours is ``.openmolcas.basi
 
 from __future__ import annotations
 
-from ..basis import Basis, ElementBasis
-from ..elements import atomic_number
-from .common import (
-    Lines,
-    ParsedElement,
-    file_basis,
-    general_contractions,
-    merge_lines,
-    number,
-    parsed_elements,
-    provenance_lines,
-    read_float,
-    read_int,
-    read_symbol,
-    split_general,
-)
+from stobuilder.model.basis import Basis, ElementBasis
+from stobuilder.model.elements import atomic_number
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, general_contractions, merge_lines, number, parsed_elements, provenance_lines, read_float, read_int, read_symbol, split_general
 
 NAME = "openmolcas"
 EXTENSION = ".openmolcas.basis"

@@ -10,9 +10,9 @@ element blocks are ``gaussian.element_lines`` (the spacing that module describes
 
 from __future__ import annotations
 
-from ..basis import Basis
-from . import gaussian
-from .common import file_basis, merge_lines, provenance_lines
+from stobuilder.model.basis import Basis
+from stobuilder.formats import gaussian
+from stobuilder.formats.common import file_basis, merge_lines, provenance_lines
 
 NAME = "psi4"
 EXTENSION = ".psi4.gbs"

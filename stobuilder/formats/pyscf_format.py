@@ -11,8 +11,8 @@ from __future__ import annotations
 
 import ast
 
-from ..basis import Basis
-from .common import Lines, ParsedElement, file_basis, make_shell, merge_lines, provenance_lines, read_symbol
+from stobuilder.model.basis import Basis
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, make_shell, merge_lines, provenance_lines, read_symbol
 
 NAME = "pyscf"
 EXTENSION = ".py"

@@ -13,9 +13,9 @@ from __future__ import annotations
 
 import json
 
-from ..basis import Basis
-from ..errors import InputError
-from .common import Lines, ParsedElement, file_basis, make_shell, provenance_lines, read_symbol, shell_blocks
+from stobuilder.model.basis import Basis
+from stobuilder.core.errors import InputError
+from stobuilder.formats.common import Lines, ParsedElement, file_basis, make_shell, provenance_lines, read_symbol, shell_blocks
 
 NAME = "qcschema"
 EXTENSION = ".qcschema.json"

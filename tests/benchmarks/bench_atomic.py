@@ -10,7 +10,7 @@ import time
 
 from pyscf import gto, scf
 
-from stobuilder.atomic import atom_energy, optimize_zeta
+from stobuilder.exact.atoms import atom_energy, optimize_zeta
 
 
 def timed(fn, repeat=1):
@@ -34,7 +34,7 @@ def main() -> None:
     print(f"Kr exact STO SCF {t_sto:.3f} s (E = {r.energy:.4f}); PySCF RHF/STO-6G {t_g:.3f} s (E = {e:.4f}); "
           f"ratio exact/PySCF = {t_sto / t_g:.2f}")
     if "--table" in sys.argv:
-        from stobuilder.screening.regenerate_optimized import build_text
+        from stobuilder.maintainer.optimized import build_text
 
         t, _ = timed(lambda: build_text("Kr", 2))
         print(f"optimized table H–Kr on 2 processes: {t:.1f} s")

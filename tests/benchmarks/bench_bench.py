@@ -68,11 +68,11 @@ if __name__ == "__main__":
 
 def bare_tasks() -> list:
     """The bench's calculations as plain PySCF inputs (made with stobuilder, not timed)."""
-    from stobuilder import bench
-    from stobuilder.checks import irrep_occupations
-    from stobuilder.elements import ground_state
-    from stobuilder.methods import pick_method
-    from stobuilder.pipeline import basis_for
+    from stobuilder.bench import run as bench
+    from stobuilder.checks.structure import irrep_occupations
+    from stobuilder.model.elements import ground_state
+    from stobuilder.model.methods import pick_method
+    from stobuilder.pipeline.path import basis_for
 
     structures = bench.set_structures("g2-1")
     variants = bench.make_variants(list(RULES), [3], ["l2"])

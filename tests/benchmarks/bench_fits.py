@@ -102,7 +102,7 @@ def main() -> None:
             print(f"cold {','.join(fam):6s} {norm} N=12 (first fit of a process, best of 3): {min(runs) * 1e3:.0f} ms "
                   f"({min(runs) / ref:.0f} references)")
     if "--library" in sys.argv:
-        from stobuilder.expansion.regenerate import build_texts
+        from stobuilder.maintainer.fits import build_texts
 
         t = time.perf_counter()
         build_texts(2)

@@ -21,7 +21,7 @@ import ase.build  # noqa: E402
 import ase.io  # noqa: E402
 from pyscf import gto, lib, scf  # noqa: E402
 
-from stobuilder.options import BuildOptions  # noqa: E402
+from stobuilder.pipeline.options import BuildOptions  # noqa: E402
 from stobuilder.tune import tune  # noqa: E402
 
 MOLECULES = {"C": "CH4", "N": "NH3", "O": "H2O", "F": "HF"}

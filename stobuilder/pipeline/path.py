@@ -1,0 +1,464 @@
+"""One path from a structure file to its basis, texts and checks, and the main job over it.
+
+Every door (``build``, ``batch``'s workers, the Python API) walks the same path:
+
+    structure file ──read_structures──▶ frames (geometry checked: finite, atoms ≥ 0.1 Å apart)
+        ──basis_for(frames, options)──▶ Basis (ζ and every Gaussian exponent checked in range)
+        ──prepare──▶ Prepared: the basis and every file text, named by stobuilder.pipeline.naming
+        ──run_checks──▶ the SCF checks (with ``options.check``)
+        ──files.write_all──▶ every file of the job, or none
+
+``build_structures`` prepares and checks every structure before the first file is written: a
+bad input or a check that fails (an SCF that raises, a method the structure cannot take) writes
+nothing. An SCF that does not converge is reported, not an error (the batch marks such an item
+failed, and writes nothing for it either).
+"""
+
+from __future__ import annotations
+
+import os
+import stat
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass, field, replace
+
+from stobuilder.model.basis import Basis
+from stobuilder.builder.construct import build_basis
+from stobuilder.checks.structure import Check
+from stobuilder.core.errors import InputError
+from stobuilder.core.files import check_targets, create_bytes, replace_bytes, write_all
+from stobuilder.core.limits import one_line
+from stobuilder.formats import format_for_path, get_format, merge_basis, render_checked
+from stobuilder.model.methods import pick_method
+from stobuilder.pipeline.naming import output_file, structure_name
+from stobuilder.pipeline.options import BuildOptions, OptionError
+from stobuilder.model.structures import Structure, check_geometry, elements_of, read_structures
+
+__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
+           "prepare", "run_checks"]
+
+
+@dataclass(frozen=True)
+class StructureReport:
+    """What ``build_structures`` did for one structure file."""
+
+    path: str
+    frames: tuple[Structure, ...]
+    basis: Basis
+    files: Mapping[str, str]  # code → path written
+    checks: tuple[Check, ...]
+    notes: tuple[str, ...]
+
+    @property
+    def elements(self) -> tuple[str, ...]:
+        return self.basis.symbols
+
+    def to_json(self) -> dict:
+        first = self.frames[0]
+        out = {
+            "path": self.path,
+            "elements": list(self.elements),
+            "charge": first.charge,
+            "spin": first.spin,
+            "frames": len(self.frames),
+            "files": dict(self.files),
+            "check": self.checks[0].to_json() if self.checks else None,
+            "notes": list(self.notes),
+            "fit": {
+                "norm": self.basis.norm,
+                "gaussians": self.basis.gaussians,
+                "error": {
+                    e.symbol: {s.label: s.fit_error for s in e.shells if s.fit_error is not None}
+                    for e in self.basis.elements
+                },
+            },
+        }
+        if len(self.checks) > 1:
+            out["frame_checks"] = [c.to_json() for c in self.checks]
+        return out
+
+
+@dataclass(frozen=True)
+class Prepared:
+    """A structure file on the path: its frames, basis and file texts (and, after ``run_checks``,
+    its checks).
+
+    texts   (key, file name relative to the output folder, text); key is the code, or
+            "code:Symbol" for one file per element
+    notes   the frames' notes, then what the checks add
+    """
+
+    path: str
+    name: str
+    frames: tuple[Structure, ...]
+    basis: Basis
+    texts: tuple[tuple[str, str, str], ...]
+    notes: tuple[str, ...] = ()
+    checks: tuple[Check, ...] = field(default=())
+
+    @property
+    def checked(self) -> tuple[Structure, ...]:
+        return self.frames[: len(self.checks)] if self.checks else ()
+
+
+def _single_atom_charge(frames: Sequence[Structure]) -> int | None:
+    """A structure of one atom is an atomic ion: its charge, when every frame agrees; else None."""
+    if all(len(f.symbols) == 1 for f in frames) and len({f.charge for f in frames}) == 1 and len(elements_of(tuple(frames))) == 1:
+        return frames[0].charge
+    return None
+
+
+def basis_for(frames: Sequence[Structure], options: BuildOptions) -> Basis:
+    """The basis for the union of the frames' elements. A structure of one atom is an atomic ion:
+    its basis follows the ion's configuration; atoms in molecules and solids use neutral atoms."""
+    elements = elements_of(tuple(frames))
+    return build_basis(
+        elements, rule=options.rule, gaussians=options.gaussians, charge=_single_atom_charge(frames),
+        zeta=options.zeta_for(elements), norm=options.norm, exponents=options.exponents, radial=options.radial,
+    )
+
+
+def basis_key(frames: Sequence[Structure], options: BuildOptions) -> tuple:
+    """The content key of a basis: everything ``basis_for`` looks at (the element set, a single
+    atom's charge, the options that shape it)."""
+    elements = elements_of(tuple(frames))
+    zeta = options.zeta_for(elements) or {}
+    return (elements, _single_atom_charge(frames), options.rule, options.gaussians, options.norm,
+            options.exponents, options.radial, tuple((s, tuple(sorted(t.items()))) for s, t in sorted(zeta.items())))
+
+
+def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
+    """``<out_dir>/<structure name><extension>`` (``naming``), or with ``symbol`` the per-element
+    file ``<out_dir>/<structure name>.<Symbol><extension>`` (water.O.nw)."""
+    return os.path.join(out_dir, *output_file(structure_name(os.path.basename(path)), code, symbol).split("/"))
+
+
+CACHE_LIMIT = 4096  # entries of a ``prepare`` cache before it is emptied
+
+
+def prepare(
+    path: str,
+    options: BuildOptions,
+    name: str | None = None,
+    split_elements: bool = False,
+    cache: dict | None = None,
+) -> Prepared:
+    """Read one structure file, check its geometry and electron counts, build its basis and make
+    every file text. Writes nothing; raises InputError (naming ``path``) for any bad input.
+
+    name   the output name (``naming``); default the file's own name without extension
+    cache  a dict kept between calls (a batch worker's): one basis and one text per content key
+    """
+    if not isinstance(options, BuildOptions):
+        raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
+    frames = read_structures(path, charge=options.charge, spin=options.spin)
+    for frame in frames:
+        check_geometry(frame)
+    key = basis_key(frames, options)
+    if cache is not None and len(cache) >= CACHE_LIMIT:
+        cache.clear()
+    basis = cache.get(("basis", key)) if cache is not None else None
+    if basis is None:
+        try:
+            basis = basis_for(frames, options)
+        except InputError as exc:
+            raise InputError(_named(os.fspath(path), str(exc))) from None
+        if cache is not None:
+            cache[("basis", key)] = basis
+    if options.check:
+        for frame in frames[: options.max_check_frames]:
+            check_electrons(frame, basis, options.method, checks=True)
+    name = name or structure_name(os.path.basename(path))
+    texts = []
+    for code in options.codes:
+        fmt = get_format(code)
+        parts = [(e.symbol, replace(basis, elements=(e,))) for e in basis.elements] if split_elements else [(None, basis)]
+        for symbol, part in parts:
+            text_key = ("text", key, fmt.name, options.sp_shells, symbol)
+            text = cache.get(text_key) if cache is not None else None
+            if text is None:
+                text = render_checked(part, fmt.name, options.sp_shells, source=os.fspath(path))
+                if cache is not None:
+                    cache[text_key] = text
+            texts.append((fmt.name + (f":{symbol}" if symbol else ""), output_file(name, fmt.name, symbol), text))
+    notes = tuple(n for f in frames for n in f.notes)
+    return Prepared(path, name, frames, basis, tuple(texts), notes)
+
+
+def _where(frame: Structure) -> str:
+    return frame.path if frame.frame == 0 else f"{frame.path} (frame {frame.frame})"
+
+
+def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = False) -> None:
+    """Before any SCF: the method suits the structure, the basis has room for its electrons
+    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``checks.check_scf_size``).
+    Periodic structures are checked on free atoms instead; so, with ``checks`` (the path of
+    ``run_checks``), is a structure of more than ``checks.MAX_BASIS_FUNCTIONS`` functions."""
+    from stobuilder.checks.structure import MAX_BASIS_FUNCTIONS, check_scf_size
+    from stobuilder.model.methods import free_atom_method
+
+    def functions_of(symbols) -> int:
+        return sum(2 * s.l + 1 for symbol in symbols for s in basis[symbol].shells)
+
+    functions = functions_of(frame.symbols)
+    if frame.periodic or (checks and functions > MAX_BASIS_FUNCTIONS):
+        for symbol in frame.elements:  # the free atoms the checks compute instead (high spin: ROHF or UHF)
+            check_scf_size(functions_of([symbol]), free_atom_method(method, 1)[0], f"{_where(frame)}: free atom {symbol}")
+        if frame.periodic:
+            return
+    try:
+        m = pick_method(method, frame.spin)
+    except InputError as exc:
+        raise InputError(f"{_where(frame)}: {exc}") from None
+    alpha = (frame.electrons + frame.spin) // 2
+    if alpha > functions:
+        raise InputError(
+            f"{_where(frame)}: {frame.electrons} electrons (spin {frame.spin}) do not fit in the {functions} "
+            f"basis functions of the minimal basis (charge {frame.charge:+d}); no SCF can hold them"
+        )
+    if not (checks and functions > MAX_BASIS_FUNCTIONS):
+        check_scf_size(functions, m, _where(frame))
+
+
+def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
+    """The SCF checks of the first ``options.max_check_frames`` frames (PySCF's OpenMP threads
+    limited to ``threads`` when given). An SCF that raises is an InputError naming the file."""
+    from stobuilder.checks.structure import check_structure  # looked up at call time (tests replace it)
+
+    frames = prepared.frames
+    checked = frames[: options.max_check_frames]
+    try:
+        if threads is None:
+            checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+        else:
+            from pyscf import lib
+
+            with lib.with_omp_threads(threads):
+                checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+    except InputError as exc:
+        raise InputError(_named(prepared.path, str(exc))) from None
+    except Exception as exc:  # an SCF that fails numerically (LinAlgError, overflow, ...)
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise InputError(f"{prepared.path}: the SCF check failed ({type(exc).__name__}: {reason})") from None
+    notes = prepared.notes + tuple(dict.fromkeys(n for c in checks for n in c.notes))
+    if len(frames) > len(checked):
+        notes += (f"checked the first {len(checked)} of {len(frames)} frames",)
+    return replace(prepared, checks=checks, notes=notes)
+
+
+def _named(path: str, message: str) -> str:
+    message = " ".join(message.split())
+    return message if message.startswith(path) else f"{path}: {message}"
+
+
+def claim_target(sources: dict[str, str], target: str, path: str) -> None:
+    """Record in ``sources`` (target → structure file) that ``path`` writes ``target``;
+    InputError when another structure of the job already does."""
+    if target in sources:
+        raise InputError(f"{path} and {sources[target]} would both write {target}")
+    sources[target] = path
+
+
+def check_zeta_elements(options: BuildOptions, frames) -> None:
+    """Before any SCF: every element the options' ``zeta`` names is in one of ``frames`` (a typo
+    guard), and the zeta file's library (``zeta_library``), which is applied where its elements
+    occur, names at least one element of them. OptionError of ``zeta`` / ``zeta_file`` otherwise
+    (the CLI names ``--zeta`` / ``--zeta-file``)."""
+    from stobuilder.model.elements import atomic_number
+
+    present = {s for f in frames for s in f.symbols}
+    missing = {s for s, _ in options.zeta} - present
+    if missing:
+        raise OptionError("zeta", f" names elements in no structure: {', '.join(sorted(missing, key=atomic_number))}")
+    library = [s for s, _ in options.zeta_library]
+    if options.zeta_file is not None and not library:
+        raise OptionError("zeta_file", f" {one_line(options.zeta_file)}: it gives no ζ (no table with an entry)")
+    if library and not present & set(library):
+        where = ("zeta_file", f" {one_line(options.zeta_file)}:") if options.zeta_file else ("zeta_library", ":")
+        raise OptionError(where[0], f"{where[1]} it names none of the structures' elements (it names "
+                                    f"{', '.join(sorted(library, key=atomic_number))}; the structures have "
+                                    f"{', '.join(sorted(present, key=atomic_number))})")
+
+
+def union_basis(bases: Sequence[Basis]) -> Basis:
+    """One basis with the elements of all ``bases``; an element must have the same shells in each."""
+    elements = {}
+    for basis in bases:
+        for e in basis.elements:
+            if e.symbol in elements and elements[e.symbol].shells != e.shells:
+                raise InputError(f"the structures give {e.symbol} two different bases (an ion and a neutral atom?)")
+            elements.setdefault(e.symbol, e)
+    first = bases[0]
+    return Basis(
+        tuple(elements.values()), rule=first.rule, gaussians=first.gaussians, norm=first.norm, radial=first.radial
+    )
+
+
+def backup_path(path: str) -> str:
+    """The first of ``path.bak``, ``path.bak2``, ``path.bak3`` … that does not exist (a dangling
+    symbolic link counts as existing)."""
+    candidate, k = path + ".bak", 1
+    while os.path.lexists(candidate):
+        k += 1
+        candidate = f"{path}.bak{k}"
+    return candidate
+
+
+def _write_backup(path: str, data: bytes, mode: int) -> str:
+    """A new backup file beside ``path`` holding ``data`` (permission bits ``mode``), never
+    replacing an existing file, even one another process creates meanwhile."""
+    while True:
+        backup = backup_path(path)
+        if create_bytes(backup, data, mode):
+            return backup
+
+
+def read_merge_target(path: str) -> tuple[str, bytes, str, int]:
+    """The basis file that ``--merge-into path`` updates: (real path after symbolic links, its
+    bytes, its text with line ends as \\n, its permission bits). InputError for a missing file,
+    a folder, a FIFO or device (never opened: it could block), or bytes that are not UTF-8."""
+    real = os.path.realpath(path)
+    try:
+        info = os.stat(real)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
+    if not stat.S_ISREG(info.st_mode):
+        raise InputError(f"{path}: not a regular file")
+    try:
+        with open(real, "rb") as handle:
+            data = handle.read()
+    except OSError as exc:
+        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
+    try:
+        text = data.decode("utf-8")
+    except UnicodeDecodeError:
+        raise InputError(f"{path}: not a UTF-8 text file") from None
+    if text.startswith("\ufeff"):
+        text = text[1:]
+    return real, data, text.replace("\r\n", "\n").replace("\r", "\n"), stat.S_IMODE(info.st_mode)
+
+
+def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, source: str = "text") -> str:
+    """``merge_basis`` plus the proof that nothing was lost: the merged text reads back to the
+    old text's other elements unchanged and to our elements as written alone."""
+    fmt = get_format(code)
+    try:
+        before = fmt.entries_of(text)
+        merged = merge_basis(text, basis, code, sp_shells)
+        after = fmt.entries_of(merged)
+    except InputError as exc:
+        raise InputError(f"{source}: {exc}") from None
+    expected = before | fmt.entries_of(fmt.write(basis, sp_shells=sp_shells))
+    if after != expected:
+        raise InputError(f"{source}: merging would change entries it should keep; nothing written")
+    return merged
+
+
+def merge_file(path: str, basis: Basis, code: str | None = None, sp_shells: bool = False) -> tuple[str, str]:
+    """Add or replace the elements of ``basis`` in the basis file ``path`` (format ``code``, or
+    told by the file name). Returns (path, backup path).
+
+    The old bytes are first copied, byte for byte and with the file's permission bits, to a new
+    backup beside ``path`` (``backup_path``: FILE.bak, FILE.bak2, …; an existing file is never
+    replaced); then the merged text replaces the file atomically, through a temporary file in the
+    file's own folder, with the file's permission bits and its line ends (CRLF stays CRLF). When
+    ``path`` is a symbolic link, the file it points at is updated and the link stays a link. If
+    the update fails, the backup is removed again and the file is as it was; errors are
+    InputError naming ``path``.
+    """
+    code = code or format_for_path(path)
+    real, data, text, mode = read_merge_target(path)
+    merged = merge_text(text, basis, code, sp_shells, source=path)
+    crlf = b"\r\n" in data and data.count(b"\n") == data.count(b"\r\n")
+    out = (merged.replace("\n", "\r\n") if crlf else merged).encode("utf-8")
+    if data.startswith(b"\xef\xbb\xbf"):
+        out = b"\xef\xbb\xbf" + out
+    try:
+        backup = _write_backup(path, data, mode)
+    except OSError as exc:
+        raise InputError(f"{path}: cannot write the backup ({exc.strerror}); nothing changed") from None
+    try:
+        replace_bytes(real, out, mode)
+    except BaseException as exc:
+        try:
+            os.unlink(backup)
+        except OSError:
+            pass
+        if isinstance(exc, OSError):
+            raise InputError(f"{path}: cannot replace the file ({exc.strerror}); nothing changed") from None
+        raise
+    return path, backup
+
+
+def build_structures(
+    paths: Sequence[str],
+    options: BuildOptions | None = None,
+    out_dir: str = "basis",
+    force: bool = False,
+    write: bool = True,
+    split_elements: bool = False,
+    merge_into: str | None = None,
+    **option_values,
+) -> tuple[StructureReport, ...]:
+    """Read every structure file, build its basis, run the checks (``options.check``) and write
+    one file per structure and code. Every structure is prepared and checked before the first
+    file is written, and the files are then written all or none (``files.write_all``); an
+    existing file is kept unless ``force``.
+
+    options         a BuildOptions; or give its fields as keywords (rule="molecular", gaussians=6, ...)
+    split_elements  one file per structure, code and element: ``<stem>.<Symbol><extension>``
+    merge_into      instead of new files, add or replace the elements of all structures in this
+                    existing basis file of one format (backed up first, see ``merge_file``); the
+                    format is the one its file name tells unless the options name one
+    """
+    if isinstance(paths, (str, os.PathLike)):
+        raise TypeError("paths must be a list of structure files, not one path")
+    if options is None:
+        if merge_into is not None and not option_values.get("codes"):
+            option_values["codes"] = (format_for_path(merge_into),)
+        options = BuildOptions(**option_values)
+    elif option_values:
+        raise TypeError(f"give either options or option keywords, not both ({', '.join(option_values)})")
+    if not paths:
+        raise InputError("no structure files given")
+    if merge_into is not None:
+        if split_elements:
+            raise OptionError("merge_into", " and ", other="split_elements", tail=" exclude each other")
+        if len(options.codes) != 1:
+            raise OptionError("merge_into", f" {merge_into}: give exactly one format, not {', '.join(options.codes)}")
+        if not os.path.isfile(merge_into):
+            raise OptionError("merge_into", f" {merge_into}: no such file")
+    prepared: list[Prepared] = []
+    sources: dict[str, str] = {}
+    contents: dict[str, str] = {}
+    for path in paths:
+        item = prepare(path, options, split_elements=split_elements)
+        for _, rel, text in item.texts if merge_into is None else ():
+            target = os.path.join(out_dir, *rel.split("/"))
+            claim_target(sources, target, path)
+            contents[target] = text
+        prepared.append(item)
+    check_zeta_elements(options, (f for item in prepared for f in item.frames))
+    if merge_into is not None:
+        merged = union_basis([item.basis for item in prepared])
+        code = options.codes[0]
+        merge_text(read_merge_target(merge_into)[2], merged, code, options.sp_shells, source=merge_into)
+    elif write:
+        check_targets(sources, force)
+    if options.check:  # before anything is written: a check that fails writes nothing
+        prepared = [run_checks(item, options) for item in prepared]
+    files_of = {item.path: {key: os.path.join(out_dir, *rel.split("/")) for key, rel, _ in item.texts} for item in prepared}
+    if merge_into is not None:
+        if write:
+            target, backup = merge_file(merge_into, merged, code, options.sp_shells)
+        else:
+            target, backup = merge_into, None
+        files_of = {item.path: {code: target} for item in prepared}
+    elif write:
+        write_all(contents, out_dir)
+    reports = []
+    for item in prepared:
+        notes = item.notes
+        if merge_into is not None and write:
+            notes += (f"merged into {target}; its former text is in {backup}",)
+        reports.append(StructureReport(item.path, item.frames, item.basis, files_of[item.path], item.checks, notes))
+    return tuple(reports)
