@@ -6,18 +6,20 @@ The public API; every name here is a plain function or a frozen dataclass.
 from stobuilder.core.version import __version__  # noqa: E402,F401
 
 from stobuilder.checks.atom import atom_report  # noqa: E402
-from stobuilder.exact.atoms import AtomResult, atom_energy, optimize_zeta  # noqa: E402
+from stobuilder.exact.atoms import AtomResult  # noqa: E402
+from stobuilder.checks.atom import atom_energy, optimize_zeta  # noqa: E402
 from stobuilder.model.basis import Basis, ElementBasis, Shell  # noqa: E402
 from stobuilder.calculator import pyscf_mole  # noqa: E402  (STOCalculator: stobuilder.calculator)
-from stobuilder.builder.construct import build_basis, element_basis, exponents, zeff  # noqa: E402
+from stobuilder.builder.construct import build_basis, element_basis, exponents, zeta_values, zeff  # noqa: E402
+from stobuilder.builder.spec import BasisSpec, ZetaTable  # noqa: E402
 from stobuilder.model.elements import Configuration, ground_state, parse_configuration  # noqa: E402
 from stobuilder.core.errors import InputError  # noqa: E402
 from stobuilder.expansion import Fit  # noqa: E402
 from stobuilder.formats import formats  # noqa: E402
-from stobuilder.pipeline.options import BuildOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
+from stobuilder.pipeline.options import BuildOptions, CheckOptions, OutputOptions, load_zeta_file, parse_zeta_overrides  # noqa: E402
 from stobuilder.pipeline.path import Prepared, prepare  # noqa: E402
 from stobuilder.public import build_structures, fit_sto, merge_basis, read_basis, write_basis  # noqa: E402  (argument checks)
-from stobuilder.rules import ShellExponent, rules  # noqa: E402
+from stobuilder.screening import ShellExponent, rules  # noqa: E402
 from stobuilder.model.structures import Structure, read_structures  # noqa: E402
 
 __all__ = [
@@ -28,7 +30,11 @@ __all__ = [
     "optimize_zeta",
     "parse_zeta_overrides",
     "Basis",
+    "BasisSpec",
     "BuildOptions",
+    "CheckOptions",
+    "OutputOptions",
+    "ZetaTable",
     "Prepared",
     "prepare",
     "pyscf_mole",
@@ -53,4 +59,5 @@ __all__ = [
     "rules",
     "write_basis",
     "zeff",
+    "zeta_values",
 ]

@@ -374,7 +374,7 @@ def run_item(task: Task) -> ItemOutcome:
         texts = prepared.texts
         checks: tuple[dict, ...] = ()
         error = None
-        if options.check:
+        if options.checks.run:
             t = time.perf_counter()
             prepared = run_checks(prepared, options, threads=task.threads)
             checks = tuple(c.to_json() for c in prepared.checks)
@@ -552,16 +552,30 @@ def read_manifest(path: str, notes: list[str] | None = None, key: str = "input",
     return last
 
 
+def same_options(recorded, options: BuildOptions) -> bool:
+    """True when a manifest's ``options`` record is ``options`` of this stobuilder version. A
+    record of an earlier layout (``exponents`` for the sharing mode) is compared by its value."""
+    current = options.to_json()
+    if recorded == current:
+        return True
+    if not isinstance(recorded, Mapping) or recorded.get("stobuilder") != current["stobuilder"]:
+        return False
+    try:
+        return BuildOptions.from_json(recorded) == options
+    except (InputError, TypeError):
+        return False
+
+
 def is_up_to_date(record: Mapping | None, input_sha256: str | None, options: BuildOptions,
                   item: BatchItem, out_dir: str) -> bool:
     """True when ``record`` (the item's last) says done (or skipped after done) for the same input
     bytes and options, and every file it names still exists with the recorded hash."""
     if not record or record.get("status") not in ("done", "skipped") or input_sha256 is None:
         return False
-    if record.get("input_sha256") != input_sha256 or record.get("options") != options.to_json():
+    if record.get("input_sha256") != input_sha256 or not same_options(record.get("options"), options):
         return False
     files = record.get("files") or {}
-    if files.keys() != item.output_files(options.codes).keys():
+    if files.keys() != item.output_files(options.output.codes).keys():
         return False
     for code, entry in files.items():
         if entry.get("path") != item.output_files([code])[code]:
@@ -910,7 +924,7 @@ def check_zeta(items: Sequence[BatchItem], options: BuildOptions) -> None:
     from stobuilder.pipeline.path import check_zeta_elements
     from stobuilder.model.structures import read_structures
 
-    if not (options.zeta or options.zeta_library or options.zeta_file):
+    if not (options.basis.zeta or options.library or options.zeta_file):
         return
     frames = []
     for item in items:

@@ -9,8 +9,8 @@ PySCF's SCF through ``checks.solve``, the one SCF driver:
     dipole                PySCF's ``dip_moment`` about the origin of the coordinates (e·Å)
     charges               Mulliken charges (e)
 
-The basis is built once per element set and options (``pipeline.basis_for``, cached under
-``pipeline.basis_key``) and reused at every geometry step; each SCF starts from the density of
+The basis comes from ``pipeline.basis_for`` (``builder.basis_of``, the one memoised basis
+constructor, keyed by the element set and the basis spec) and is reused at every geometry step; each SCF starts from the density of
 the previous one. The last PySCF SCF object is ``calc.scf`` (orbitals, energies, ...).
 
 What decides whether to recompute is ASE's ``check_state`` (positions, numbers, cell, ...) plus
@@ -27,14 +27,18 @@ from __future__ import annotations
 
 import os
 import threading
+from dataclasses import fields
 
 import numpy as np
 from ase.calculators.calculator import Calculator, SCFError, all_changes
 
+from stobuilder.builder.spec import DEFAULTS, BasisSpec
 from stobuilder.core.errors import InputError
 
-#: basis options (BuildOptions fields under the names the calculator takes), then the SCF's
-BASIS_PARAMETERS = ("rule", "gaussians", "fit", "exponents", "radial", "zeta", "zeta_file", "charge", "spin")
+#: basis options (BuildOptions' keywords), then the SCF's
+BASIS_PARAMETERS = (*(f.name for f in fields(BasisSpec)), "zeta_file", "charge", "spin")
+#: parameter names of earlier versions, still taken (with a DeprecationWarning)
+DEPRECATED_PARAMETERS = {"fit": "norm", "exponents": "sharing"}
 SCF_PARAMETERS = ("method", "conv_tol", "max_cycle")
 
 # An SCF converged to PySCF's default 1e-9 hartree leaves gradient errors near 1e-4 eV/Å; the
@@ -49,25 +53,31 @@ def _check_names(given, allowed, what: str) -> None:
         raise InputError(f"{what}: unknown option {', '.join(map(repr, unknown))}; options are {', '.join(allowed)}")
 
 
-#: the calculator's parameters that are not named as their BuildOptions field (in its errors)
-OPTION_NAMES = {"norm": "fit"}
+def renamed_parameters(given: dict, where: str) -> dict:
+    """``given`` with the deprecated names (``fit``, ``exponents``) as today's (``norm``,
+    ``sharing``), each with a DeprecationWarning; TypeError when both names of one are given."""
+    import warnings
+
+    out = dict(given)
+    for old, new in DEPRECATED_PARAMETERS.items():
+        if old in out:
+            if new in out:
+                raise TypeError(f"{where}: give {new}, not both {new} and the deprecated {old}")
+            warnings.warn(f"{where}: the parameter {old} is deprecated; use {new}", DeprecationWarning, stacklevel=4)
+            out[new] = out.pop(old)
+    return out
 
 
-def build_options(rule="slater", gaussians=3, fit="l2", exponents="family", radial="integer", zeta=None,
-                  zeta_file=None, charge=None, spin=None, method="auto"):
-    """The ``BuildOptions`` of the calculator's parameters (``fit`` is BuildOptions' ``norm``;
-    ``zeta_file`` is a library, applied to the elements the atoms have; ``zeta``
-    {symbol: {label: ζ}} goes on top of it, as on the command line). Errors name the
-    calculator's parameters (``OPTION_NAMES``)."""
-    from stobuilder.pipeline.options import BuildOptions, OptionError
+def build_options(**parameters):
+    """The ``BuildOptions`` of the calculator's basis parameters and method (``zeta_file`` is a
+    library, applied to the elements the atoms have; ``zeta`` {symbol: {label: ζ}} goes on top of
+    it, as on the command line); the defaults are BuildOptions' own."""
+    from stobuilder.pipeline.options import BuildOptions
 
-    if zeta is not None and not isinstance(zeta, dict):
-        raise InputError(f"zeta must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
-    try:
-        return BuildOptions(rule=rule, gaussians=gaussians, norm=fit, exponents=exponents, radial=radial,
-                            zeta=zeta or {}, zeta_file=zeta_file, charge=charge, spin=spin, method=method)
-    except OptionError as exc:
-        raise exc.renamed(OPTION_NAMES) from None
+    parameters = renamed_parameters(parameters, "build_options")
+    if parameters.get("zeta") is None:
+        parameters.pop("zeta", None)
+    return BuildOptions(**parameters)
 
 
 def _structure(atoms, options, where: str | None = None):
@@ -85,39 +95,41 @@ def _structure(atoms, options, where: str | None = None):
         )
     if "X" in atoms.get_chemical_symbols():
         raise InputError(f"{label}: ghost/dummy atoms (symbol X) are not supported by the calculator")
-    structure = structure_from_atoms(atoms, label, options.charge, options.spin)
+    structure = structure_from_atoms(atoms, label, options.checks.charge, options.checks.spin)
     check_geometry(structure)
     return structure
 
 
-def _basis(structure, options, cache: dict | None = None):
-    """The basis of ``structure`` under ``options`` (``pipeline.basis_for``), from ``cache`` when
-    it holds one for the same content key. The options' ζ are checked against the structure by
-    the rule of every door (``pipeline.check_zeta_elements``): each element ``zeta`` names is in
-    it, and a ``zeta_file`` names one of its elements."""
+def basis_key(structure, options) -> tuple:
+    """What decides the basis of ``structure`` under ``options``: its element set, the basis spec
+    of those elements and a single atom's charge (the key of ``builder.basis_of``)."""
+    elements = structure.elements
+    charge = structure.charge if len(structure.symbols) == 1 else None
+    return elements, options.spec_for(elements), charge
+
+
+def _basis(structure, options):
+    """(key, basis) of ``structure`` under ``options`` (``pipeline.basis_for``, memoised). The
+    options' ζ are checked against the structure by the rule of every door
+    (``pipeline.check_zeta_elements``): each element ``zeta`` names is in it, and a
+    ``zeta_file`` names one of its elements."""
+    from stobuilder.core.errors import OptionError
     from stobuilder.pipeline import path as pipeline
-    from stobuilder.pipeline.options import OptionError
 
     try:
         pipeline.check_zeta_elements(options, (structure,))
     except OptionError as exc:
         raise exc.within(f"{structure.path}: ") from None
-    key = pipeline.basis_key((structure,), options)
-    basis = cache.get(key) if cache is not None else None
-    if basis is None:
-        try:
-            basis = pipeline.basis_for((structure,), options)
-        except InputError as exc:
-            raise InputError(f"{structure.path}: {' '.join(str(exc).split())}") from None
-        if cache is not None:
-            cache.clear()  # one basis kept: the atoms of one calculator rarely change elements
-            cache[key] = basis
-    return key, basis
+    try:
+        basis = pipeline.basis_for((structure,), options)
+    except InputError as exc:
+        raise InputError(f"{structure.path}: {' '.join(str(exc).split())}") from None
+    return basis_key(structure, options), basis
 
 
 def pyscf_mole(atoms_or_path, **options):
     """The built PySCF ``Mole`` (spherical, Å) of an ASE Atoms or a structure file (its first
-    frame) with our basis. ``options``: rule, gaussians, fit, exponents, radial, zeta, zeta_file,
+    frame) with our basis. ``options``: rule, gaussians, norm, sharing, radial, zeta, zeta_file,
     charge, spin, as for ``STOCalculator``; charge and spin default to the atoms' info (``charge``,
     ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input.
     The options' ζ are checked as the calculator checks them; no size guard (no SCF runs here:
@@ -125,10 +137,11 @@ def pyscf_mole(atoms_or_path, **options):
     from stobuilder.checks.structure import structure_mole
     from stobuilder.model.structures import check_geometry, read_structures
 
+    options = renamed_parameters(options, "pyscf_mole")
     _check_names(options, BASIS_PARAMETERS, "pyscf_mole")
     opts = build_options(**options)
     if isinstance(atoms_or_path, (str, os.PathLike)):
-        structure = read_structures(atoms_or_path, charge=opts.charge, spin=opts.spin)[0]
+        structure = read_structures(atoms_or_path, charge=opts.checks.charge, spin=opts.checks.spin)[0]
         if structure.periodic:
             raise InputError(f"{structure.path}: periodic structure; pyscf_mole makes molecules (Mole), "
                              "for periodic codes write basis files with stobuilder build")
@@ -147,12 +160,14 @@ class STOCalculator(Calculator):
     """An ASE calculator: SCF with a stobuilder basis in PySCF.
 
     Parameters (keywords; unknown ones are an InputError):
-        rule, gaussians, fit ("l2"/"h1"), exponents ("family"/"shared"/"separate"),
+        rule, gaussians, norm ("l2"/"h1"), sharing ("family"/"shared"/"separate"),
         radial ("integer"/"effective-n"), zeta ({"Fe": {"3d": 2.1}}), zeta_file (TOML)
                       the basis, as ``stobuilder build`` makes it
         method        "auto" (RHF closed shell, ROHF open shell), "rhf", "rohf", "uhf"
         charge, spin  total charge (e) and 2S; default the atoms' info ``charge``, ``spin``,
                       ``multiplicity`` as ``build`` reads them, else neutral and the lowest spin
+        (fit and exponents, the names of earlier versions for norm and sharing, still work
+        with a DeprecationWarning)
         conv_tol      SCF energy convergence (hartree), default 1e-10
         max_cycle     SCF iterations before PySCF's second-order solver takes over (default 100)
 
@@ -172,7 +187,7 @@ class STOCalculator(Calculator):
 
     implemented_properties = ["energy", "free_energy", "forces", "dipole", "charges"]
     default_parameters = {
-        "rule": "slater", "gaussians": 3, "fit": "l2", "exponents": "family", "radial": "integer", "zeta": None,
+        **DEFAULTS, "zeta": None,
         "zeta_file": None, "charge": None, "spin": None, "method": "auto", "conv_tol": DEFAULT_CONV_TOL,
         "max_cycle": DEFAULT_MAX_CYCLE,
     }
@@ -180,7 +195,7 @@ class STOCalculator(Calculator):
     def __init__(self, **kwargs):
         self._lock = threading.RLock()  # before Calculator.__init__, which calls set()
         self._options = None
-        self._cache: dict = {}
+        self._key = None  # the basis key of the last basis used (``builds`` counts changes)
         self._density = None  # (signature, density) of the last SCF
         self.scf = self.mol = self.basis = None
         self.iterations = 0
@@ -222,10 +237,11 @@ class STOCalculator(Calculator):
         from stobuilder.model.structures import INFO_KEYS, structure_from_atoms
 
         options = self._options or build_options()
-        if options.charge is not None and options.spin is not None:
-            return options.charge, options.spin
+        checks = options.checks
+        if checks.charge is not None and checks.spin is not None:
+            return checks.charge, checks.spin
         try:
-            structure = structure_from_atoms(atoms, atoms.get_chemical_formula(), options.charge, options.spin)
+            structure = structure_from_atoms(atoms, atoms.get_chemical_formula(), checks.charge, checks.spin)
         except InputError as exc:
             return ("error", str(exc), tuple(repr(atoms.info.get(k)) for k in INFO_KEYS))
         return structure.charge, structure.spin
@@ -235,6 +251,7 @@ class STOCalculator(Calculator):
             return self._set(**kwargs)
 
     def _set(self, **kwargs):
+        kwargs = renamed_parameters(kwargs, "STOCalculator")
         own = {k: v for k, v in kwargs.items() if k not in ("parameters",)}
         _check_names(own, BASIS_PARAMETERS + SCF_PARAMETERS, "STOCalculator")
         merged = {**dict(self.parameters or self.get_default_parameters()), **own}
@@ -270,8 +287,8 @@ class STOCalculator(Calculator):
         options = self._options
         structure = _structure(self.atoms, options)
         key, basis = self._basis_for(structure, options)
-        check_electrons(structure, basis, options.method)
-        method = pick_method(options.method, structure.spin, f"({structure.formula})")
+        check_electrons(structure, basis, options.checks.method)
+        method = pick_method(options.checks.method, structure.spin, f"({structure.formula})")
         mol = structure_mole(structure, basis)
         signature = (key, structure.symbols, structure.charge, structure.spin, method)
         dm0 = self._density[1] if self._density is not None and self._density[0] == signature else None
@@ -298,8 +315,7 @@ class STOCalculator(Calculator):
         names = set(structure.symbols)
         if set(basis.symbols) < names:
             raise InputError(f"{structure.path}: the basis lacks {', '.join(sorted(names - set(basis.symbols)))}")
-        self._cache.clear()
-        self._cache[_basis_key(structure, self._options)] = basis
+        self._key = basis_key(structure, self._options)
 
     @staticmethod
     def _forces(mf):
@@ -311,16 +327,11 @@ class STOCalculator(Calculator):
         return -np.asarray(grad.kernel(), dtype=float) * (Hartree / Bohr)
 
     def _basis_for(self, structure, options):
-        key = _basis_key(structure, options)
-        if key not in self._cache:
+        key, basis = _basis(structure, options)
+        if key != self._key:
             self.builds += 1
-        return _basis(structure, options, self._cache)
-
-
-def _basis_key(structure, options):
-    from stobuilder.pipeline import path as pipeline
-
-    return pipeline.basis_key((structure,), options)
+            self._key = key
+        return key, basis
 
 
 __all__ = ["STOCalculator", "build_options", "pyscf_mole"]

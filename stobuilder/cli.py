@@ -55,7 +55,7 @@ _whole_number = _whole_in()
 
 
 def _add_rule(p, default="slater"):
-    from stobuilder.rules import rules
+    from stobuilder.screening import rules
 
     p.add_argument("--rule", default=default, help=f"screening rule: {', '.join(rules())} (default {default})")
 
@@ -201,7 +201,12 @@ def _cmd_build(args) -> int:
 
     options = from_args(args)
     if args.merge_into and not args.code:
-        options = options.replace(codes=(format_for_path(args.merge_into),))
+        import dataclasses
+
+        from stobuilder.pipeline.options import OutputOptions
+
+        output = OutputOptions(codes=(format_for_path(args.merge_into),), sp_shells=options.output.sp_shells)
+        options = dataclasses.replace(options, output=output)
     reports = build_structures(
         args.structures, options, out_dir=args.out, force=args.force, split_elements=args.split_elements,
         merge_into=args.merge_into,
@@ -229,7 +234,7 @@ def _build_table(report) -> str:
     lines.append(f"  {'element':<8}{'configuration':<24}STOs: subshell zeta/bohr^-1")
     for e in report.basis.elements:
         stos = "  ".join(f"{s.label} {s.zeta:.4f}" for s in e.stos)
-        lines.append(f"  {e.symbol:<8}{e.configuration:<24}{stos}")
+        lines.append(f"  {e.symbol:<8}{e.configuration_label:<24}{stos}")
         errors = "  ".join(f"{s.label} {s.fit_error:.2e}" for s in e.shells if s.fit_error is not None)
         if errors:
             lines.append(f"  {'':<8}{'fit error (' + report.basis.norm + ')':<24}{errors}")
@@ -409,14 +414,16 @@ def _cmd_bench(args) -> int:
 
 def _cmd_atom(args) -> int:
     from stobuilder.checks.atom import atom_report
-    from stobuilder.pipeline.options import parse_zeta_overrides
+    from stobuilder.builder.spec import ZetaTable
+    from stobuilder.model.elements import resolve
 
+    symbol = resolve(args.element, args.charge or 0, args.configuration).symbol
     doc = atom_report(
         args.element,
         rule=args.rule,
         configuration=args.configuration,
         charge=args.charge,
-        zeta=parse_zeta_overrides(args.zeta or []) or None,
+        zeta=ZetaTable.parse(args.zeta or [], element=symbol).of_element(symbol) or None,
         optimize=args.optimize,
         gaussians=args.gaussians,
         method=args.method,

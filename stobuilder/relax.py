@@ -120,9 +120,8 @@ def _calculator(frame, basis, options: BuildOptions, conv_tol, max_cycle):
     from stobuilder.calculator import DEFAULT_CONV_TOL, DEFAULT_MAX_CYCLE, STOCalculator
 
     calc = STOCalculator(
-        rule=options.rule, gaussians=options.gaussians, fit=options.norm, exponents=options.exponents,
-        radial=options.radial, zeta=options.zeta_for(frame.symbols), charge=frame.charge, spin=frame.spin,
-        method=options.method, conv_tol=DEFAULT_CONV_TOL if conv_tol is None else conv_tol,
+        **options.spec_for(frame.symbols).to_json(), charge=frame.charge, spin=frame.spin,
+        method=options.checks.method, conv_tol=DEFAULT_CONV_TOL if conv_tol is None else conv_tol,
         max_cycle=DEFAULT_MAX_CYCLE if max_cycle is None else max_cycle,
     )
     calc.adopt_basis(frame, basis)
@@ -174,8 +173,8 @@ def relax_structures(
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     fmax, steps, optimizer = _check_settings(fmax, steps, optimizer)
-    if options.check:
-        raise InputError("options.check is build's; relax runs an SCF at every step already")
+    if options.checks.run:
+        raise InputError("options.checks.run is build's; relax runs an SCF at every step already")
     if not paths:
         raise InputError("no structure files given")
     jobs, sources = [], {}
@@ -187,7 +186,7 @@ def relax_structures(
                 f"{one_line(item.path)}: periodic structure; relax does molecules (stobuilder build writes the "
                 "basis files for periodic codes)"
             )
-        check_electrons(frame, item.basis, options.method)  # the method suits it, its electrons fit the basis
+        check_electrons(frame, item.basis, options.checks.method)  # the method suits it, its electrons fit the basis
         relaxed = os.path.join(out_dir, *(structure_name(os.path.basename(path)) + RELAXED_SUFFIX).split("/"))
         targets = {code: os.path.join(out_dir, *rel.split("/")) for code, rel, _ in item.texts}
         for target in (relaxed, *targets.values()):

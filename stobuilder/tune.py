@@ -42,7 +42,8 @@ import numpy as np
 
 from stobuilder.core.errors import InputError
 from stobuilder.core.limits import ZETA_MAX, ZETA_MIN
-from stobuilder.pipeline.options import BuildOptions, merge_zeta
+from stobuilder.builder.spec import ZetaTable
+from stobuilder.pipeline.options import BuildOptions
 
 __all__ = ["EnergyRow", "TuneResult", "Variable", "default_variables", "energy_gradient", "load_weights", "parse_vary",
            "tune"]
@@ -241,8 +242,7 @@ class TuneResult:
         computed with."""
         tuned = {(v.element, label) for v in self.variables for label in v.subshells}
         out: dict[str, dict[str, float]] = {}
-        for symbol, table in merge_zeta({s: dict(t) for s, t in self.options.zeta_library},
-                                        self.options.zeta_map).items():
+        for symbol, table in self.options.basis.zeta.over(self.options.library).as_dict().items():
             kept = {label: z for label, z in table.items() if (symbol, label) not in tuned}
             if kept:
                 out[symbol] = kept
@@ -250,7 +250,7 @@ class TuneResult:
 
     def _origin(self, symbol: str, label: str) -> str:
         """Where a fixed ζ came from: "your own ζ" (the options' zeta) or "zeta file"."""
-        return "your own ζ" if label in (self.options.zeta_map or {}).get(symbol, {}) else "zeta file"
+        return "your own ζ" if label in self.options.basis.zeta.of_element(symbol) else "zeta file"
 
     def objective(self, which: str) -> float | None:
         values = [(r.weight, getattr(r, which)) for r in self.energies]
@@ -338,14 +338,14 @@ class _Item:
 
 
 def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str = "training") -> list[_Item]:
-    from stobuilder.checks.structure import _is_its_configuration
+    from stobuilder.checks.structure import is_its_configuration
     from stobuilder.model.methods import pick_method
     from stobuilder.pipeline.path import check_electrons, basis_for
     from stobuilder.model.structures import check_geometry, read_structures
 
     items = []
     for i, path in enumerate(paths):
-        frames = read_structures(path, charge=options.charge, spin=options.spin)
+        frames = read_structures(path, charge=options.checks.charge, spin=options.checks.spin)
         for frame in frames:
             label = path if len(frames) == 1 else f"{path} (frame {frame.frame})"
             if frame.periodic:
@@ -355,9 +355,9 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
                 basis = basis_for([frame], options)
             except InputError as exc:
                 raise InputError(f"{label}: {exc}") from None
-            check_electrons(frame, basis, options.method)
-            method = pick_method(options.method, frame.spin, f"({label})")
-            atom = len(frame.symbols) == 1 and _is_its_configuration(basis, frame)
+            check_electrons(frame, basis, options.checks.method)
+            method = pick_method(options.checks.method, frame.spin, f"({label})")
+            atom = len(frame.symbols) == 1 and is_its_configuration(basis, frame)
             items.append(_Item(label, frame, method, 1.0 if weights is None else weights[i], atom))
     if not items:
         raise InputError(f"no {role} structures")
@@ -366,13 +366,13 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
 
 def _scf(item: _Item, options: BuildOptions, zeta: dict, dm0):
     """(energy or None, density) of ``item`` with the ζ overrides ``zeta`` on top of the options'."""
-    from stobuilder.checks.structure import _configuration, free_atom_setup, solve, structure_mole
+    from stobuilder.checks.structure import atom_configuration, free_atom_setup, solve, structure_mole
     from stobuilder.pipeline.path import basis_for
 
-    basis = basis_for([item.structure], options.replace(zeta=merge_zeta(options.zeta_map, zeta)))
+    basis = basis_for([item.structure], options, ZetaTable.of(zeta))
     if item.atom:  # the fixed-occupation free atom of build --check (checks.free_atom_setup)
         symbol = item.structure.symbols[0]
-        mol, configure = free_atom_setup(symbol, _configuration(basis, symbol), basis[symbol].to_pyscf(), item.method)
+        mol, configure = free_atom_setup(symbol, atom_configuration(basis, symbol), basis[symbol].to_pyscf(), item.method)
     else:
         mol, configure = structure_mole(item.structure, basis), None
     if dm0 is not None and np.shape(dm0)[-1] != mol.nao:

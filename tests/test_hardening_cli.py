@@ -186,7 +186,7 @@ def test_atom_json_says_whether_the_scf_converged(capsys):
 def test_on_demand_optimisation_reports_progress_and_gives_the_same_result(tmp_path, capsys, monkeypatch):
     from stobuilder.exact.atoms import optimize_zeta
     from stobuilder.model.elements import ground_state
-    from stobuilder.rules import optimized
+    from stobuilder.screening import optimized
 
     monkeypatch.setenv("STOBUILDER_CACHE_DIR", str(tmp_path / "cache" / "fits"))
     monkeypatch.setattr(optimized, "PROGRESS_SECONDS", 0.0)

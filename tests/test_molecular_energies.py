@@ -29,7 +29,7 @@ from stobuilder.checks.structure import check_free_atom, make_mole, run_scf
 from stobuilder.checks.structure import _atom_solver, irrep_occupations, pick_method
 from stobuilder.model.elements import atomic_number, element_symbol, parse_configuration
 from stobuilder.core.errors import InputError
-from stobuilder.rules.molecular import table
+from stobuilder.screening.molecular import table
 
 ELEMENTS = list(table()["elements"])
 

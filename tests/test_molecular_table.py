@@ -1,4 +1,4 @@
-"""The derived molecular STO-3G ζ table (stobuilder/rules/data/molecular_sto3g.json).
+"""The derived molecular STO-3G ζ table (stobuilder/screening/data/molecular_sto3g.json).
 
 Expected values: H–Ne from Hehre, Stewart & Pople, J. Chem. Phys. 51, 2657 (1969), Na–Ar from
 Hehre, Ditchfield, Stewart & Pople, J. Chem. Phys. 52, 2769 (1970) — both value from memory; the
@@ -10,7 +10,7 @@ from __future__ import annotations
 import pytest
 
 from stobuilder.maintainer import molecular as regenerate_molecular
-from stobuilder.rules.molecular import table
+from stobuilder.screening.molecular import table
 
 # (1s, 2sp) H–Ne: Hehre, Stewart & Pople 1969, value from memory
 HSP69 = {

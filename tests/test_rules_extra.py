@@ -3,8 +3,8 @@
 import pytest
 
 from stobuilder.model.elements import element_symbol, ground_state, parse_configuration
-from stobuilder.rules import rules, shell_exponents
-from stobuilder.rules.optimized import table
+from stobuilder.screening import rules, shell_exponents
+from stobuilder.screening.optimized import table
 
 ROWS = [(1, 2), (3, 10), (11, 18), (19, 36)]
 
@@ -107,7 +107,7 @@ def test_optimized_on_demand_is_cached_on_disk(tmp_path, monkeypatch):
     # the user cache folder; the cached value is the same optimum (He-like ion: ζ = Z − 5/16,
     # the textbook variational result, e.g. Levine, Quantum Chemistry).
     import stobuilder
-    from stobuilder.rules import optimized
+    from stobuilder.screening import optimized
 
     monkeypatch.setenv("STOBUILDER_CACHE_DIR", str(tmp_path))
     optimized._optimise.cache_clear()

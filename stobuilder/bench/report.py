@@ -34,7 +34,7 @@ CAUTIONS = (
     "experiment.",
 )
 
-TSV_COLUMNS = ("structure", "formula", "variant", "rule", "gaussians", "fit", "zeta_file", "spin", "method",
+TSV_COLUMNS = ("structure", "formula", "variant", "rule", "gaussians", "norm", "zeta_file", "spin", "method",
                "converged", "iterations", "energy_hartree", "reference_energy_hartree",
                "energy_above_reference_hartree", "atomization_kcal_mol", "reference_atomization_kcal_mol",
                "experiment_atomization_kcal_mol", "atomization_error_kcal_mol", "wall_seconds", "error")

@@ -2,7 +2,7 @@
 
 The flow::
 
-    structures (a named set, or files)  ×  variants (rule × N × fit, plus each zeta file)
+    structures (a named set, or files)  ×  variants (rule × N × norm, plus each zeta file)
         ──plan──▶ BenchTask per calculation: each molecule per variant, each free atom per
                   element and variant (never per molecule), and with a reference basis each
                   molecule and atom once more in that basis
@@ -188,39 +188,40 @@ class Variant:
 
     @property
     def rule(self) -> str:
-        return self.options.rule
+        return self.options.basis.rule
 
     @property
     def gaussians(self) -> int:
-        return self.options.gaussians
+        return self.options.basis.gaussians
 
     @property
-    def fit(self) -> str:
-        return self.options.norm
+    def norm(self) -> str:
+        return self.options.basis.norm
 
     @property
     def label(self) -> str:
-        base = f"{self.rule} N={self.gaussians} {self.fit}"
+        base = f"{self.rule} N={self.gaussians} {self.norm}"
         return base if self.zeta_file is None else f"{base} +{os.path.basename(self.zeta_file)}"
 
     def to_json(self) -> dict:
-        return {"label": self.label, "rule": self.rule, "gaussians": self.gaussians, "fit": self.fit,
+        return {"label": self.label, "rule": self.rule, "gaussians": self.gaussians, "norm": self.norm,
                 "zeta_file": self.zeta_file, "options": self.options.to_json()}
 
 
-def make_variants(rules: Sequence[str], gaussians: Sequence[int], fits: Sequence[str],
+def make_variants(rules: Sequence[str], gaussians: Sequence[int], norms: Sequence[str],
                   zeta_files: Sequence[str] = ()) -> tuple[Variant, ...]:
-    """The product rule × N × fit (repeats dropped), then the same product once more for each zeta
+    """The product rule × N × norm (repeats dropped), then the same product once more for each zeta
     file, its ζ on top of each rule. Every variant is validated (``BuildOptions``); a zeta file is
     read now."""
-    from stobuilder.pipeline.options import load_zeta_file
+    from stobuilder.builder.spec import DEFAULTS, ZetaTable
 
-    rules, gaussians, fits = (list(dict.fromkeys(x)) for x in (rules or ["slater"], gaussians or [3], fits or ["l2"]))
-    out = [Variant(BuildOptions(rule=r, gaussians=n, norm=f)) for r, n, f in product(rules, gaussians, fits)]
+    rules, gaussians, norms = (list(dict.fromkeys(x)) for x in (rules or [DEFAULTS["rule"]], gaussians or [DEFAULTS["gaussians"]],
+                                                                 norms or [DEFAULTS["norm"]]))
+    out = [Variant(BuildOptions(rule=r, gaussians=n, norm=f)) for r, n, f in product(rules, gaussians, norms)]
     for path in dict.fromkeys(zeta_files):
-        library = load_zeta_file(path)  # read once: the library of every variant of this file
+        library = ZetaTable.load(path)  # read once: the library of every variant of this file
         out += [Variant(BuildOptions(rule=r, gaussians=n, norm=f, zeta_file=path, zeta_library=library), path)
-                for r, n, f in product(rules, gaussians, fits)]
+                for r, n, f in product(rules, gaussians, norms)]
     labels = [v.label for v in out]
     for a in set(labels):
         if labels.count(a) > 1:
@@ -256,7 +257,7 @@ class BenchTask:
         options = None
         if self.options is not None:  # a zeta file's ζ of elements not in this structure do not count: the
             # ζ its basis takes (library and own ζ merged) stand for both, so resumed records keep their fingerprint
-            options = self.options.to_json() | {"zeta": self.options.zeta_for(self.structure.symbols) or {},
+            options = self.options.to_json() | {"zeta": self.options.spec_for(self.structure.symbols).zeta.as_dict(),
                                                 "zeta_library": {}}
         doc = {"layout": TASK_LAYOUT, "stobuilder": __version__, "kind": self.kind,
                "symbols": list(self.structure.symbols), "positions": [list(p) for p in self.structure.positions],
@@ -303,16 +304,11 @@ def free_atom(symbol: str) -> Structure:
     return Structure(f"free atom {symbol}", 0, (symbol,), ((0.0, 0.0, 0.0),), 0, ground_state(symbol).unpaired, False)
 
 
-_BASIS_CACHE: dict = {}  # one basis per content key (pipeline.basis_key) and worker process
-
-
 def _basis(structure: Structure, options: BuildOptions):
-    from stobuilder.pipeline.path import basis_for, basis_key
+    """The basis of ``structure`` (``pipeline.basis_for``: the one memoised constructor)."""
+    from stobuilder.pipeline.path import basis_for
 
-    key = basis_key((structure,), options)
-    if key not in _BASIS_CACHE:
-        _BASIS_CACHE[key] = basis_for((structure,), options)
-    return _BASIS_CACHE[key]
+    return basis_for((structure,), options)
 
 
 def _energy(mf) -> float | None:
@@ -433,7 +429,7 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     if not structures:
         raise InputError("no structures: give structure files or --set NAME")
     if not variants:
-        raise InputError("no variants: give --rule, --gaussians, --fit")
+        raise InputError("no variants: give --rule, --gaussians, --norm")
     names = [b.name for b in structures]
     for n in names:
         if names.count(n) > 1:
@@ -466,7 +462,7 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
 # ---------------------------------------------------------------------------- rows and summary
 
 
-ROW_FIELDS = ("structure", "formula", "variant", "rule", "gaussians", "fit", "zeta_file", "spin", "energy_hartree",
+ROW_FIELDS = ("structure", "formula", "variant", "rule", "gaussians", "norm", "zeta_file", "spin", "energy_hartree",
               "converged", "atomization_kcal_mol", "experiment_atomization_kcal_mol", "reference_energy_hartree",
               "wall_seconds")
 
@@ -481,7 +477,7 @@ class BenchRow:
     variant: str
     rule: str
     gaussians: int
-    fit: str
+    norm: str
     zeta_file: str | None
     spin: int
     method: str
@@ -623,7 +619,7 @@ def assemble(plan: BenchPlan, results: Mapping[str, Calculation]) -> tuple[Bench
             mol = results.get(molecule_key(v, b.name))
             ref_mol = results.get(molecule_key(None, b.name, ref)) if ref is not None else None
             rows.append(BenchRow(
-                structure=b.name, formula=s.formula, variant=v.label, rule=v.rule, gaussians=v.gaussians, fit=v.fit,
+                structure=b.name, formula=s.formula, variant=v.label, rule=v.rule, gaussians=v.gaussians, norm=v.norm,
                 zeta_file=v.zeta_file, spin=s.spin, method=mol.method if mol else "",
                 energy_hartree=mol.energy_hartree if mol else None, converged=bool(mol and mol.ok),
                 iterations=mol.iterations if mol else 0, wall_seconds=mol.wall_seconds if mol else 0.0,

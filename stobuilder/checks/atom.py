@@ -13,34 +13,77 @@ import numbers
 from collections.abc import Iterable
 
 
-from stobuilder.exact.atoms import _conf, numerical_guard, optimize_zeta, pick_method, solve
-from stobuilder.model.basis import Basis
 from stobuilder.builder.construct import element_basis, sto_exponents
+from stobuilder.builder.spec import DEFAULTS
 from stobuilder.checks.structure import check_free_atom
 from stobuilder.core.limits import whole_number
+from stobuilder.exact.atoms import AtomResult, numerical_guard, pick_method, solve, supported
+from stobuilder.exact.atoms import optimize as optimize_stos  # atom_report's own optimize is a flag
+from stobuilder.model.basis import Basis
+from stobuilder.model.elements import resolve
 
 
-def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = "l2", rule: str = "slater") -> dict:
-    """{gaussians, fit, energy_hartree, converged}: the SCF of ``conf`` with the N-Gaussian basis
+def atom_energy(element: str, rule: str = DEFAULTS["rule"], charge: int = 0, configuration=None, zeta=None,
+                method: str = "auto") -> AtomResult:
+    """Exact-STO SCF energy of one atom or ion with the exponents of a screening rule.
+
+    Parameters
+    ----------
+    element : element symbol (or a configuration string naming it).
+    rule : screening rule giving ζ of every basis subshell (see stobuilder.screening.rules()).
+    charge : ionic charge (electrons removed), used when no configuration is given.
+    configuration : configuration string or Configuration; the ground state when None.
+    zeta : {label: ζ in bohr⁻¹} overriding the rule for those subshells.
+    method : "auto" (RHF closed shell, ROHF open shell), "rhf", "rohf" or "uhf".
+
+    Returns
+    -------
+    AtomResult with E, T, V in hartree. Method: Roothaan (1951) SCF over exact STO integrals
+    (stobuilder.exact).
+    """
+    conf, stos = _stos(element, rule, charge, configuration, zeta)
+    return solve(conf, stos, pick_method(conf, method))
+
+
+def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = DEFAULTS["rule"],
+                  zeta=None) -> AtomResult:
+    """Variationally optimal single-ζ exponents: minimum of the exact-STO SCF energy over every
+    occupied ζ, starting from ``rule`` (with ``zeta`` overrides); see stobuilder.exact.atoms.optimize.
+    Only occupied subshells enter (basis and result). Energies in hartree, ζ in bohr⁻¹."""
+    conf, stos = _stos(element, rule, charge, configuration, zeta)
+    return optimize_stos(conf, stos, pick_method(conf, method))
+
+
+def _stos(element, rule, charge, configuration, zeta):
+    """(configuration, the rule's STOs with ``zeta`` {label: ζ} on top) of one atom or ion."""
+    from stobuilder.builder.spec import ZetaTable
+
+    conf = supported(resolve(element, charge, configuration))
+    table = ZetaTable.of({conf.symbol: zeta}).of_element(conf.symbol) if zeta else None
+    return conf, sto_exponents(conf, rule, zeta=table)[1]
+
+
+def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = DEFAULTS["norm"], rule: str = DEFAULTS["rule"]) -> dict:
+    """{gaussians, norm, energy_hartree, converged}: the SCF of ``conf`` with the N-Gaussian basis
     ``build`` writes for it (rule ``rule``, ζ overrides ``zeta``) in the determinant of the checks."""
-    element = element_basis(conf, rule, gaussians, zeta=zeta, norm=norm)
+    element = element_basis(conf, rule=rule, gaussians=gaussians, zeta=zeta, norm=norm)
     basis = Basis((element,), rule=rule, gaussians=gaussians, norm=norm)
     r = numerical_guard(conf, f"SCF with STO-{gaussians}G", lambda: check_free_atom(basis, conf.symbol, method, reference=False))
-    return {"gaussians": gaussians, "fit": norm, "energy_hartree": r.energy_hartree, "converged": r.converged}
+    return {"gaussians": gaussians, "norm": norm, "energy_hartree": r.energy_hartree, "converged": r.converged}
 
 
-def atom_report(element: str, rule: str = "slater", configuration=None, charge: int = 0, zeta=None,
-                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = "l2") -> dict:
+def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, charge: int = 0, zeta=None,
+                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = DEFAULTS["norm"]) -> dict:
     """The exact-STO atom and the N-Gaussian bases of ``build`` for it, as a JSON-ready dict.
 
     Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
-    virial_ratio, gaussian [{gaussians, fit, energy_hartree, converged}],
+    virial_ratio, gaussian [{gaussians, norm, energy_hartree, converged}],
     orbital_energies [{label, spin, energy_hartree, occupation}]. With ``optimize`` the ζ of the
     occupied subshells are optimised first (from ``rule`` and ``zeta``) and only those subshells
     form the exact-STO basis; the Gaussian bases take the optimised ζ (empty subshells, which do
     not change an atom's energy, keep the rule's).
     """
-    conf = _conf(element, charge, configuration)
+    conf, stos = _stos(element, rule, charge, configuration, zeta)
     m = pick_method(conf, method)
     if isinstance(gaussians, numbers.Real):
         counts = [gaussians]
@@ -52,11 +95,10 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         raise TypeError(f"gaussians must be a number of Gaussians or a list of them, got {type(gaussians).__name__}")
     counts = [whole_number(n, "number of Gaussians", 1) for n in counts]
     if optimize:
-        result = optimize_zeta(conf.symbol, configuration=conf, method=m, rule=rule, zeta=zeta)
+        result = optimize_stos(conf, stos, m)
         used = dict(result.zeta)
     else:
-        exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-        result = solve(conf, exps, m)
+        result = solve(conf, stos, m)
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]
     return {
@@ -76,4 +118,4 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
     }
 
 
-__all__ = ["atom_report", "gaussian_row"]
+__all__ = ["atom_energy", "atom_report", "gaussian_row", "optimize_zeta"]

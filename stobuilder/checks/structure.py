@@ -15,7 +15,7 @@ import time
 from dataclasses import dataclass, field, replace
 
 from stobuilder.model.basis import Basis
-from stobuilder.model.elements import M_FILL_ORDER, ground_state, parse_configuration
+from stobuilder.model.elements import M_FILL_ORDER, ground_state
 from stobuilder.model.methods import METHODS, free_atom_method, pick_method  # noqa: F401 (METHODS re-exported)
 from stobuilder.model.structures import Structure
 
@@ -380,9 +380,11 @@ def _atom_solver(occupations, method: str):
     return configure
 
 
-def _configuration(basis: Basis, symbol: str):
-    element = basis[symbol]
-    return parse_configuration(element.configuration, symbol) if element.configuration else ground_state(symbol)
+def atom_configuration(basis: Basis, symbol: str):
+    """The configuration ``basis`` was built for at ``symbol`` (the ground state for a basis read
+    from a file, which carries none)."""
+    conf = basis[symbol].configuration
+    return conf if conf is not None else ground_state(symbol)
 
 
 def _atom_methods(basis: Basis, symbols, method: str) -> tuple[dict[str, str], tuple[str, ...]]:
@@ -390,7 +392,7 @@ def _atom_methods(basis: Basis, symbols, method: str) -> tuple[dict[str, str], t
     notes that say where it is not the one asked for."""
     chosen, notes = {}, []
     for symbol in symbols:
-        conf = _configuration(basis, symbol)
+        conf = atom_configuration(basis, symbol)
         chosen[symbol], note = free_atom_method(method, conf.unpaired, f"free atom {symbol} {conf.label}")
         if note:
             notes.append(note)
@@ -410,7 +412,7 @@ def check_free_atom(basis: Basis, symbol: str, method: str = "auto", reference: 
     """SCF of the free atom (or ion) of ``symbol`` in the configuration its basis was built for:
     the high-spin single determinant of ``irrep_occupations``, held fixed through PySCF's atomic
     (SO3) symmetry so that the SCF cannot drift to another configuration."""
-    conf = _configuration(basis, symbol)
+    conf = atom_configuration(basis, symbol)
     spin = conf.unpaired
     m = pick_method(method, spin, f"({symbol} {conf.label})")
     atoms = [(symbol, (0.0, 0.0, 0.0))]
@@ -435,7 +437,7 @@ def check_structure(
     reason = ""
     if structure.periodic:
         reason = "periodic structure: checked on the free atoms of each element"
-    elif len(structure.symbols) == 1 and _is_its_configuration(basis, structure):
+    elif len(structure.symbols) == 1 and is_its_configuration(basis, structure):
         # a free atom or ion in the state its basis was built for: the same fixed-occupation SCF
         # as ``stobuilder atom`` (check_free_atom), so both give the same energy
         symbol = structure.symbols[0]
@@ -463,8 +465,10 @@ def check_structure(
     return Check("free atoms", reason, results, exact_sto_atoms(basis, structure.elements, method, gaussian), notes)
 
 
-def _is_its_configuration(basis: Basis, structure: Structure) -> bool:
-    conf = _configuration(basis, structure.symbols[0])
+def is_its_configuration(basis: Basis, structure: Structure) -> bool:
+    """True when the one atom of ``structure`` is in the state its basis was built for (same
+    charge, the high-spin number of unpaired electrons)."""
+    conf = atom_configuration(basis, structure.symbols[0])
     return conf.charge == structure.charge and conf.unpaired == structure.spin
 
 
@@ -473,23 +477,19 @@ def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) 
     the same atom with the Gaussian basis. ``gaussian`` holds Gaussian free-atom energies already
     computed. Elements without STO provenance (read from a file) are left out, and so are STOs of
     non-integer n* (``radial="effective-n"``), which the exact-STO integrals do not cover."""
-    from stobuilder.exact.atoms import atom_energy
+    from stobuilder.exact.atoms import pick_method as exact_method
+    from stobuilder.exact.atoms import solve, supported
 
     methods, _ = _atom_methods(basis, symbols, method)
     out = []
     for symbol in symbols:
         element = basis[symbol]
-        if not element.stos:
+        if not element.stos or element.configuration is None:
             continue
         if basis.radial == "effective-n" and any(s.n_eff != s.n for s in element.stos):
             continue
-        exact = atom_energy(
-            symbol,
-            rule=basis.rule,
-            configuration=element.configuration,
-            zeta={s.label: s.zeta for s in element.stos},
-            method=methods[symbol].lower(),
-        )
+        conf = supported(element.configuration)  # the very STOs the basis expands, in its configuration
+        exact = solve(conf, element.stos, exact_method(conf, methods[symbol].lower()))
         if gaussian is not None and symbol in gaussian:
             e_gauss = gaussian[symbol]
         else:

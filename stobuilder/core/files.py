@@ -306,3 +306,28 @@ def cache_folder(kind: str):
     import platformdirs
 
     return Path(platformdirs.user_cache_dir("stobuilder")) / kind
+
+
+def read_toml(path, what: str) -> tuple[dict, str]:
+    """(document, "WHAT 'path'") of a TOML file; InputError naming ``what`` and the path for a
+    file that cannot be read or is not TOML. The one TOML reader (zeta files, tune's weights)."""
+    import sys
+
+    from stobuilder.core import arguments
+
+    path = arguments.path(path, "path")
+    if sys.version_info >= (3, 11):
+        import tomllib
+    else:  # pragma: no cover - Python 3.10
+        import tomli as tomllib
+    where = f"{what} {str(path)!r}"
+    try:
+        with open(path, "rb") as fh:
+            data = fh.read()
+        if data.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark, as some editors write
+            data = data[3:]
+        return tomllib.loads(data.decode("utf-8")), where
+    except OSError as err:
+        raise InputError(f"{where}: cannot read it ({err.strerror})") from None
+    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
+        raise InputError(f"{where}: not valid TOML ({' '.join(str(err).split())})") from None

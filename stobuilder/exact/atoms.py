@@ -1,7 +1,8 @@
 """Exact Slater-orbital atomic reference: atomic SCF over STOs and variational exponents.
 
-The entry points by element and screening rule (``atom_energy``, ``optimize_zeta``); the engine
-on given exponents is stobuilder.exact.solver, and the ``atom`` command's document stobuilder.checks.atom.
+The entry points on a configuration and its STOs (``solve``, ``optimize``); the engine under them
+is stobuilder.exact.solver. By element and screening rule (``atom_energy``, ``optimize_zeta``) and
+the ``atom`` command's document: stobuilder.checks.atom.
 
 The method (exact one-centre STO integrals, PySCF's drivers with the occupations held to the
 configuration, analytic ζ gradients, the virial theorem at the optimum) and its sources are in
@@ -15,41 +16,17 @@ import math
 
 import numpy as np
 
-from stobuilder.builder.construct import sto_exponents
-from stobuilder.model.elements import Configuration, resolve
+from stobuilder.model.elements import Configuration
 from stobuilder.core.errors import InputError
 from stobuilder.exact.solver import AtomResult, OrbitalEnergy, _solve, describe_state, optimize_exponents, pick_method
 
 # ---------------------------------------------------------------- inputs
-def _conf(element, charge, configuration) -> Configuration:
-    conf = resolve(element, charge, configuration)
+def supported(conf: Configuration) -> Configuration:
+    """``conf`` when the STO integrals cover it (no subshell beyond n = 6); InputError otherwise."""
     for s in conf.subshells:
         if s.n > 6:
             raise InputError(f"{conf.symbol} {conf.label}: subshell {s.label} beyond n = 6 is not supported by the STO integrals")
     return conf
-
-
-def atom_energy(element: str, rule: str = "slater", charge: int = 0, configuration=None, zeta=None,
-                method: str = "auto") -> AtomResult:
-    """Exact-STO SCF energy of one atom or ion with the exponents of a screening rule.
-
-    Parameters
-    ----------
-    element : element symbol (or a configuration string naming it).
-    rule : screening rule giving ζ of every basis subshell (see stobuilder.rules.rules()).
-    charge : ionic charge (electrons removed), used when no configuration is given.
-    configuration : configuration string or Configuration; the ground state when None.
-    zeta : {label: ζ in bohr⁻¹} overriding the rule for those subshells.
-    method : "auto" (RHF closed shell, ROHF open shell), "rhf", "rohf" or "uhf".
-
-    Returns
-    -------
-    AtomResult with E, T, V in hartree. Method: Roothaan (1951) SCF over exact STO integrals.
-    """
-    conf = _conf(element, charge, configuration)
-    m = pick_method(conf, method)
-    exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-    return solve(conf, exps, m)
 
 
 def numerical_guard(conf, what: str, run, hint: str = ""):
@@ -81,21 +58,14 @@ def solve(conf: Configuration, exps, method: str) -> AtomResult:
     return _numerically(conf, "SCF", lambda: _solve(conf, exps, method).result)
 
 
-def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",
-                  zeta=None, progress=None) -> AtomResult:
-    """Variationally optimal single-ζ exponents: minimum of the SCF energy over every occupied ζ.
-
-    Only occupied subshells enter (basis and result). Starts from ``rule`` (with ``zeta`` overrides),
-    BFGS in ln ζ with analytic gradients, then
-    Newton steps on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree; the returned result
-    satisfies the virial theorem −V/T = 2 to about 1e-9. Energies in hartree, ζ in bohr⁻¹.
-    ``progress``, if given, is called with one line of text after every BFGS iteration and Newton
-    step (step count, energy, largest |ζ dE/dζ|).
-    """
-    conf = _conf(element, charge, configuration)
-    m = pick_method(conf, method)
-    exps = [e for e in sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1] if conf.occupation(e.n, e.l)]
-    return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, tuple(exps), m))
+def optimize(conf: Configuration, stos, method: str) -> AtomResult:
+    """Variationally optimal single-ζ exponents of ``conf``, starting from the STOs ``stos`` (the
+    occupied subshells among them enter): BFGS in ln ζ with analytic gradients, then Newton steps
+    on the analytic gradient until |ζ·dE/dζ| < 1e-10 hartree; the result satisfies the virial
+    theorem −V/T = 2 to about 1e-9. Energies in hartree, ζ in bohr⁻¹. Numerical failures as
+    InputError."""
+    exps = tuple(e for e in stos if conf.occupation(e.n, e.l))
+    return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, exps, method))
 
 
-__all__ = ["AtomResult", "OrbitalEnergy", "atom_energy", "describe_state", "optimize_zeta", "pick_method"]
+__all__ = ["AtomResult", "OrbitalEnergy", "describe_state", "numerical_guard", "optimize", "pick_method", "solve", "supported"]

@@ -44,7 +44,7 @@ def provenance_lines(basis: Basis) -> list[str]:
     for element in basis.elements:
         if element.stos:
             zetas = ", ".join(f"{s.label} {s.zeta:.6f}" for s in element.stos)
-            lines.append(f"{element.symbol} [{element.configuration}]: zeta/bohr^-1 {zetas}")
+            lines.append(f"{element.symbol} [{element.configuration_label}]: zeta/bohr^-1 {zetas}")
     lines.extend(basis.notes)
     return [comment_text(line) for line in lines]
 
@@ -61,7 +61,7 @@ _SEPARATOR = re.compile(r"\s*# *BASIS SET")
 def separator_line(element: ElementBasis, rule: str) -> str:
     """The comment line in front of an element's block in the NWChem and CP2K files: the prefix
     PySCF's loaders split at, then the element, its configuration and the screening rule."""
-    facts = [f"configuration {element.configuration}"] if element.configuration else []
+    facts = [f"configuration {element.configuration_label}"] if element.configuration else []
     facts.append("shells as read from a file" if rule == "file" else f"screening rule {rule}")
     return f"{SEPARATOR_PREFIX} for {element.symbol}: {comment_text(', '.join(facts))}"
 

@@ -36,7 +36,7 @@ from stobuilder.core.files import atomic_write as write_atomic
 from stobuilder.maintainer.tablecheck import Comparison, Tolerance, compare, report
 
 COMMAND = "python -m stobuilder.maintainer.molecular"
-OUTPUT = Path(__file__).parent / "data" / "molecular_sto3g.json"
+OUTPUT = Path(__file__).resolve().parent.parent / "screening" / "data" / "molecular_sto3g.json"
 ROUNDING_TOL = 1e-6  # relative change of ζ² (= of every exponent) allowed by the rounding
 EXPONENT_TOL = 1e-5  # relative: a block whose primitives disagree more than this is inconsistent
 

@@ -1,7 +1,7 @@
 """Regenerate (or check) the optimised-exponent table:
 ``python -m stobuilder.maintainer.optimized [--last Rn] [--workers 2] [--keep DIR] [--check]``.
 
-Every neutral ground state from H to ``--last`` is optimised with stobuilder.exact.atoms.optimize_zeta
+Every neutral ground state from H to ``--last`` is optimised with stobuilder.checks.atom.optimize_zeta
 (process pool). The file holds no timestamps and repr floats, so regeneration on the machine
 that made it is byte-identical. The heavy atoms take minutes each (hours for H–Rn on two cores):
 --keep DIR stores each finished entry as DIR/<Symbol>.json and reuses the entries already there,
@@ -35,7 +35,7 @@ TOLERANCE_TEXT = ", ".join(f"{k} {v}" for k, v in TOLERANCES.items())
 
 def optimise_entry(symbol: str) -> dict:
     """The table entry of one neutral ground state."""
-    from stobuilder.exact.atoms import optimize_zeta
+    from stobuilder.checks.atom import optimize_zeta
 
     r = optimize_zeta(symbol)
     return {
@@ -88,7 +88,7 @@ def build_text(last: str = DEFAULT_LAST, workers: int = 2, keep: str | None = No
         "provenance": {
             "method": "exact one-centre STO integrals (stobuilder.exact.sto); SCF with PySCF drivers, RHF for closed "
             "shells, ROHF high-spin determinants otherwise, orbitals pure in (l, m); ζ of every occupied "
-            "subshell minimised with analytic gradients (stobuilder.exact.atoms.optimize_zeta) until "
+            "subshell minimised with analytic gradients (stobuilder.checks.atom.optimize_zeta) until "
             "|ζ dE/dζ| < 1e-10 hartree",
             "reference": "E. Clementi and D. L. Raimondi, J. Chem. Phys. 38, 2686 (1963) (same quantity)",
             "states": "neutral ground-state configurations of stobuilder.model.elements.ground_state",
@@ -114,7 +114,7 @@ def compare_table(shipped: dict, fresh: dict) -> Comparison:
 
 
 def table_path() -> Path:
-    return Path(__file__).resolve().parent / "data" / "optimized_zeta.json"
+    return Path(__file__).resolve().parent.parent / "screening" / "data" / "optimized_zeta.json"
 
 
 def main(argv: list[str] | None = None) -> int:

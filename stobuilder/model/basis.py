@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
-from stobuilder.model.elements import atomic_number
+from stobuilder.model.elements import Configuration, atomic_number
 from stobuilder.core.errors import InputError
 from stobuilder.model.shells import ShellExponent
 
@@ -54,14 +54,19 @@ class Shell:
 class ElementBasis:
     """The basis of one element: its shells in (n, l) order and the STOs they expand.
 
-    configuration  the electron configuration the exponents were derived from ("" if read from a file)
+    configuration  the electron configuration the exponents were derived from (None if read from
+                   a file); ``configuration_label`` is its text ("[Ar] 3d6 4s2", "" if None)
     stos           the ShellExponent of every STO expanded (empty if read from a file)
     """
 
     symbol: str
     shells: tuple[Shell, ...]
-    configuration: str = ""
+    configuration: Configuration | None = None
     stos: tuple[ShellExponent, ...] = ()
+
+    @property
+    def configuration_label(self) -> str:
+        return self.configuration.label if self.configuration is not None else ""
 
     @property
     def z(self) -> int:

@@ -1,232 +1,38 @@
-"""The build options: one frozen value, validated once, that every door passes down the path.
+"""The build options: what a door asks for, as three values made and validated once.
 
-``BuildOptions`` holds everything that decides a structure's basis, its files and its checks.
-It is validated when it is made (every bad value is a one-line InputError naming the option and
-the problem), so the rest of the path trusts it; it converts to and from plain JSON for the
-batch manifest (resume compares it) and for tasks sent to other processes or a Dask cluster.
-The command line makes it from one argparse group (``add_arguments`` / ``from_args``), shared
-by ``build`` and ``batch``. ζ overrides are parsed here (``--zeta`` items and zeta files) and
-held in the options as plain numbers; a zeta file is read once, when the options are made.
+``BuildOptions`` is one structure job's request: the basis (a ``BasisSpec``, the one value that
+decides a basis, with the ζ library of a zeta file beside it), the output (``OutputOptions``:
+the codes and how each file is written) and the checks (``CheckOptions``: whether to run the SCF
+checks, their method, the charge and spin that override the files'). Each part is validated
+when it is made, so the rest of the path trusts it; the whole converts to and from plain JSON for
+the batch manifest (resume compares it) and for tasks sent to other processes or a Dask cluster.
+``BuildOptions(rule="molecular", check=True, ...)`` takes the parts' fields as keywords.
+
+Where files go (out_dir, force, merge_into, split_elements) is no option of the content: it
+belongs to the call that writes (``build_structures``, ``run_batch``).
 """
 
 from __future__ import annotations
 
 import json
-from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field, fields
+import warnings
+from collections.abc import Iterable, Mapping
+from dataclasses import dataclass, field
 
-from stobuilder.core.errors import InputError
-from stobuilder.core.limits import MAX_CHARGE, whole_number, zeta_value
+from stobuilder.builder.spec import DEFAULTS, BasisSpec, ZetaTable
+from stobuilder.core.errors import InputError, OptionError
+from stobuilder.core.limits import MAX_CHARGE, whole_number
 
 MAX_CHECK_FRAMES = 3
 
 
-class OptionError(InputError):
-    """A bad value of one build option (or of two that exclude each other). Its text names each
-    option as the door that took it calls it: the Python argument (``charge``) by default, and
-    the command line's flag (``--charge``) where ``cli.main`` prints it (``render(CLI_FLAGS)``).
-
-    option   the BuildOptions field (or the Python argument) the value was given for
-    rest     the message after the name, e.g. " must be a whole number, got 0.5"
-    prefix   text before the name, e.g. a structure file's path and ": "
-    other    a second option named after ``rest`` (then ``tail`` follows it)
-    """
-
-    def __init__(self, option: str, rest: str, prefix: str = "", other: str | None = None, tail: str = ""):
-        self.option, self.rest, self.prefix, self.other, self.tail = option, rest, prefix, other, tail
-        super().__init__(self.render({}))
-
-    def render(self, names: Mapping[str, str]) -> str:
-        """The message with every option called by its name in ``names`` (its own name when absent)."""
-        second = "" if self.other is None else names.get(self.other, self.other) + self.tail
-        return f"{self.prefix}{names.get(self.option, self.option)}{self.rest}{second}"
-
-    def renamed(self, names: Mapping[str, str]) -> "OptionError":
-        """This error with its options called by ``names`` from now on: for a Python door whose
-        argument is not the BuildOptions field (the calculator's ``fit`` is ``norm``)."""
-        other = None if self.other is None else names.get(self.other, self.other)
-        return OptionError(names.get(self.option, self.option), self.rest, self.prefix, other, self.tail)
-
-    def within(self, prefix: str) -> "OptionError":
-        """This error with ``prefix`` (e.g. a structure's name and ": ") before its text."""
-        return OptionError(self.option, self.rest, prefix + self.prefix, self.other, self.tail)
-
-    @classmethod
-    def of(cls, option: str, exc: InputError) -> "OptionError":
-        """``exc`` (a message that begins with ``option``, as ``limits`` writes them) as an
-        OptionError of ``option``."""
-        message = str(exc)
-        return cls(option, message[len(option):] if message.startswith(option) else f": {message}")
-
-
 # The flag of each option on the command line (``add_arguments``, build's own), for ``OptionError.render``.
 CLI_FLAGS = {
-    "rule": "--rule", "gaussians": "--gaussians", "norm": "--fit", "exponents": "--shared-exponents/--separate-fits",
+    "rule": "--rule", "gaussians": "--gaussians", "norm": "--fit", "sharing": "--shared-exponents/--separate-fits",
     "radial": "--radial", "zeta": "--zeta", "zeta_library": "--zeta-file", "zeta_file": "--zeta-file",
     "sp_shells": "--sp-shells", "codes": "--code", "check": "--check", "method": "--method", "charge": "--charge",
     "spin": "--spin", "merge_into": "--merge-into", "split_elements": "--split-elements", "out_dir": "--out",
 }
-
-
-# ---------------------------------------------------------------------------- ζ overrides
-
-
-def parse_zeta_overrides(items, per_element: bool = False) -> dict:
-    """Parse ``--zeta`` items: "1s=1.6875" → {"1s": 1.6875}; per element "Fe:3d=2.1" → {"Fe": {"3d": 2.1}}.
-
-    Errors are OptionErrors of ``zeta`` (``--zeta`` on the command line). Labels are checked to
-    be subshell labels (whether the basis has them is checked where the
-    overrides are applied); values must be numbers in the range of ``limits.zeta_value`` (bohr⁻¹).
-    """
-    from stobuilder.model.elements import L_LETTERS, normalise_symbol, parse_subshell_label
-
-    out: dict = {}
-    if isinstance(items, str):
-        items = [items]  # one item, never its characters
-    for item in items or ():
-        if not isinstance(item, str):
-            raise TypeError(f"zeta overrides: {item!r} is not a text such as '1s=1.6875'")
-        text = item
-        if "=" not in text:
-            raise OptionError("zeta", f" {text!r}: expected {'ELEMENT:' if per_element else ''}LABEL=VALUE")
-        key, value = text.split("=", 1)
-        if per_element:
-            if ":" not in key:
-                raise OptionError("zeta", f" {text!r}: expected ELEMENT:LABEL=VALUE, e.g. Fe:3d=2.1")
-            sym, label = key.split(":", 1)
-            try:
-                sym = normalise_symbol(sym)
-            except InputError as err:
-                raise OptionError("zeta", f" {text!r}: {err}") from None
-        else:
-            sym, label = None, key
-        try:
-            n, l = parse_subshell_label(label)
-        except InputError as err:
-            raise OptionError("zeta", f" {text!r}: {err}") from None
-        label = f"{n}{L_LETTERS[l]}"
-        try:
-            number = float(value)
-        except ValueError:
-            raise OptionError("zeta", f" {text!r}: {value.strip()!r} is not a number") from None
-        try:
-            v = zeta_value(number, f"zeta {text!r}")
-        except InputError as err:
-            raise OptionError.of("zeta", err) from None
-        target = out.setdefault(sym, {}) if per_element else out
-        if label in target:
-            raise OptionError("zeta", f" {text!r}: {label} is given twice")
-        target[label] = v
-    return out
-
-
-def _normalised_or_none(text: str):
-    from stobuilder.model.elements import normalise_symbol
-
-    try:
-        return normalise_symbol(text)
-    except InputError:
-        return None
-
-
-def read_toml(path, what: str) -> tuple[dict, str]:
-    """(document, "WHAT 'path'") of a TOML file; InputError naming ``what`` and the path for a
-    file that cannot be read or is not TOML. The one TOML reader (zeta files, tune's weights)."""
-    import sys
-
-    from stobuilder.core import arguments
-
-    path = arguments.path(path, "path")
-    if sys.version_info >= (3, 11):
-        import tomllib
-    else:  # pragma: no cover - Python 3.10
-        import tomli as tomllib
-    where = f"{what} {str(path)!r}"
-    try:
-        with open(path, "rb") as fh:
-            data = fh.read()
-        if data.startswith(b"\xef\xbb\xbf"):  # a UTF-8 byte-order mark, as some editors write
-            data = data[3:]
-        return tomllib.loads(data.decode("utf-8")), where
-    except OSError as err:
-        raise InputError(f"{where}: cannot read it ({err.strerror})") from None
-    except (tomllib.TOMLDecodeError, UnicodeDecodeError) as err:
-        raise InputError(f"{where}: not valid TOML ({' '.join(str(err).split())})") from None
-
-
-def load_zeta_file(path) -> dict[str, dict[str, float]]:
-    """Read a TOML file with one table per element, e.g. ``[Fe]\n3d = 2.1``, into {symbol: {label: ζ}}."""
-    from stobuilder.model.elements import L_LETTERS, normalise_symbol, parse_subshell_label
-
-    doc, where = read_toml(path, "zeta file")
-    out: dict[str, dict[str, float]] = {}
-    for sym, table in doc.items():
-        try:
-            symbol = normalise_symbol(sym)
-        except InputError as err:
-            raise InputError(f"{where}: {err}") from None
-        if not isinstance(table, dict):
-            raise InputError(f"{where}: {sym} must be a table of LABEL = VALUE")
-        if symbol in out:  # TOML keys are case-sensitive, element symbols are not: [H] and [h]
-            first = next(k for k in doc if k != sym and _normalised_or_none(k) == symbol)
-            raise InputError(f"{where}: [{first}] and [{sym}] are both element {symbol}; give one table")
-        entry = out[symbol] = {}
-        for label, value in table.items():
-            try:
-                n, l = parse_subshell_label(str(label))
-            except InputError as err:
-                raise InputError(f"{where}: [{sym}] {err}") from None
-            key = f"{n}{L_LETTERS[l]}"
-            if key in entry:
-                raise InputError(f"{where}: [{sym}] gives {key} twice")
-            entry[key] = zeta_value(value, f"{where}: [{sym}] {label}")
-    return out
-
-
-def merge_zeta(*tables: Mapping | None) -> dict[str, dict[str, float]]:
-    """Later tables on top of earlier ones: {symbol: {label: ζ}}."""
-    out: dict[str, dict[str, float]] = {}
-    for table in tables:
-        for symbol, entries in (table or {}).items():
-            out.setdefault(symbol, {}).update(entries)
-    return out
-
-
-def _frozen_zeta(zeta, option: str = "zeta") -> tuple[tuple[str, tuple[tuple[str, float], ...]], ...]:
-    """{symbol: {label: ζ}} (validated, symbols normalised) as a sorted tuple of tuples; errors are
-    OptionErrors of ``option``."""
-    from stobuilder.model.elements import L_LETTERS, normalise_symbol, parse_subshell_label
-
-    if not zeta:
-        return ()
-    if isinstance(zeta, tuple):
-        zeta = {s: dict(t) for s, t in zeta}
-    if not isinstance(zeta, Mapping):
-        raise OptionError(option, f" must be a mapping {{symbol: {{label: value}}}}, got {type(zeta).__name__}")
-    out: dict[str, dict[str, float]] = {}
-    for symbol, table in zeta.items():
-        try:
-            sym = normalise_symbol(str(symbol))
-        except InputError as err:
-            raise OptionError(option, f": {err}") from None
-        if not isinstance(table, Mapping):
-            raise OptionError(option, f" for {sym} must be a mapping label → value, got {type(table).__name__}")
-        entry = out.setdefault(sym, {})
-        for label, value in table.items():
-            try:
-                n, l = parse_subshell_label(str(label).strip())
-                entry[f"{n}{L_LETTERS[l]}"] = zeta_value(value, f"{option} {sym}:{label}")
-            except InputError as err:
-                raise OptionError.of(option, err) from None
-    return tuple((s, tuple(sorted(t.items()))) for s, t in sorted(out.items()) if t)
-
-
-def _merged(*tables) -> dict[str, dict[str, float]] | None:
-    """Frozen ζ tables (``_frozen_zeta``), later on top of earlier, as {symbol: {label: ζ}}."""
-    return merge_zeta(*({s: dict(t) for s, t in table} for table in tables)) or None
-
-
-# ---------------------------------------------------------------------------- the options
 
 
 def _whole(value, option: str, minimum: int | None = None, maximum: int | None = None) -> int:
@@ -237,124 +43,177 @@ def _whole(value, option: str, minimum: int | None = None, maximum: int | None =
         raise OptionError.of(option, err) from None
 
 
-
 @dataclass(frozen=True)
-class BuildOptions:
-    """Everything that decides a structure's basis, files and checks (validated when made).
+class OutputOptions:
+    """What the basis files hold and how they are written.
 
-    rule              screening rule (``stobuilder.rules.rules()``)
-    gaussians         N, primitive Gaussians per STO (1–12)
-    norm              fitting norm of the expansions: "l2" or "h1"
-    exponents         "family", "shared" or "separate" (see ``stobuilder.builder.construct``)
-    radial            "integer" or "effective-n"
-    zeta              your own ζ (bohr⁻¹): {symbol: {label: ζ}}; held as a sorted tuple, see ``zeta_map``.
-                      Every element it names must occur in the structures (``pipeline.check_zeta_elements``)
-    zeta_library      ζ from a zeta file (a library, e.g. ``tune``'s for a whole training set):
-                      {symbol: {label: ζ}}, applied to the elements a structure has; ``zeta`` goes on top.
-                      It must name at least one element of the structures
-    zeta_file         the TOML zeta file to read ``zeta_library`` from (read once, when the options
-                      are made, unless ``zeta_library`` is given too); only named in messages: it is
-                      no part of the options' equality or JSON
-    sp_shells         write s and p shells that share exponents as sp shells
-    codes             output formats ("all" expands to every one); default nwchem
-    check             run the SCF checks (the first ``max_check_frames`` frames of a file)
-    method            SCF method of the checks: "auto", "rhf", "rohf", "uhf"
-    charge, spin      override the files' charge (e) and 2S; None keeps the file's
+    codes      output formats ("all" expands to every one); default nwchem
+    sp_shells  write s and p shells that share exponents as sp shells
     """
 
-    rule: str = "slater"
-    gaussians: int = 3
-    norm: str = "l2"
-    exponents: str = "family"
-    radial: str = "integer"
-    zeta: tuple = ()
-    zeta_library: tuple = ()
-    zeta_file: str | None = field(default=None, compare=False)
-    sp_shells: bool = False
     codes: tuple[str, ...] = ("nwchem",)
-    check: bool = False
-    method: str = "auto"
-    charge: int | None = None
-    spin: int | None = None
-    max_check_frames: int = MAX_CHECK_FRAMES
+    sp_shells: bool = False
 
     def __post_init__(self):
-        from stobuilder.builder.construct import EXPONENT_MODES, RADIAL_FORMS
-        from stobuilder.expansion.fit import MAX_GAUSSIANS, NORMS
         from stobuilder.formats import formats, get_format
-        from stobuilder.model.methods import check_method
-        from stobuilder.rules import get_rule
 
-        set_ = object.__setattr__
-        if not isinstance(self.rule, str):
-            raise OptionError("rule", f" must be a rule name, got {self.rule!r}")
-        get_rule(self.rule)
-        set_(self, "gaussians", _whole(self.gaussians, "gaussians", 1, MAX_GAUSSIANS))
-        if self.norm not in NORMS:
-            raise OptionError("norm", f" {self.norm!r}: unknown fitting norm; choose one of {', '.join(NORMS)}")
-        if self.exponents not in EXPONENT_MODES:
-            raise OptionError("exponents", f" {self.exponents!r}: choose one of {', '.join(EXPONENT_MODES)}")
-        if self.radial not in RADIAL_FORMS:
-            raise OptionError("radial", f" {self.radial!r}: choose one of {', '.join(RADIAL_FORMS)}")
-        set_(self, "zeta", _frozen_zeta(self.zeta))
-        if self.zeta_file is not None:
-            from stobuilder.core import arguments
-
-            set_(self, "zeta_file", arguments.path(self.zeta_file, "zeta_file"))
-            if not self.zeta_library:
-                set_(self, "zeta_library", load_zeta_file(self.zeta_file))
-        set_(self, "zeta_library", _frozen_zeta(self.zeta_library, "zeta_library"))
-        codes = (self.codes,) if isinstance(self.codes, str) else tuple(self.codes or ("nwchem",))
+        codes = (self.codes,) if isinstance(self.codes, str) else self.codes
+        if codes is None:
+            codes = ("nwchem",)
+        if not isinstance(codes, Iterable):
+            raise TypeError(f"codes must be format names, got {type(codes).__name__}")
         expanded: list[str] = []
         for code in codes:
             if not isinstance(code, str):
-                raise OptionError("codes", f" must be format names, got {code!r}")
+                raise TypeError(f"codes must be format names, got {type(code).__name__} {code!r}")
             expanded.extend(formats() if code == "all" else [get_format(code).name])
-        set_(self, "codes", tuple(dict.fromkeys(expanded)))
-        for name in ("sp_shells", "check"):
-            if not isinstance(getattr(self, name), bool):
-                raise OptionError(name, f" must be True or False, got {getattr(self, name)!r}")
+        object.__setattr__(self, "codes", tuple(dict.fromkeys(expanded)) or ("nwchem",))
+        if not isinstance(self.sp_shells, bool):
+            raise TypeError(f"sp_shells must be True or False, got {self.sp_shells!r}")
+
+
+@dataclass(frozen=True)
+class CheckOptions:
+    """The SCF checks of a structure.
+
+    run           run them (the first ``max_frames`` frames of a file)
+    method        "auto", "rhf", "rohf", "uhf"
+    charge, spin  override the files' charge (e) and 2S; None keeps the file's (a structure of
+                  one atom is an ion: its charge also decides its configuration, hence its basis)
+    """
+
+    run: bool = False
+    method: str = "auto"
+    charge: int | None = None
+    spin: int | None = None
+    max_frames: int = MAX_CHECK_FRAMES
+
+    def __post_init__(self):
+        from stobuilder.model.methods import check_method
+
+        set_ = object.__setattr__
+        if not isinstance(self.run, bool):
+            raise TypeError(f"check must be True or False, got {self.run!r}")
         set_(self, "method", check_method(self.method))
         if self.charge is not None:
             set_(self, "charge", _whole(self.charge, "charge", -MAX_CHARGE, MAX_CHARGE))
         if self.spin is not None:
             set_(self, "spin", _whole(self.spin, "spin", 0, MAX_CHARGE))
-        set_(self, "max_check_frames", _whole(self.max_check_frames, "max_check_frames", 1))
+        set_(self, "max_frames", _whole(self.max_frames, "max_check_frames", 1))
+
+
+# The flat keywords of BuildOptions (the README's contract) and the part each belongs to.
+_BASIS_KEYS = ("rule", "gaussians", "norm", "sharing", "radial", "zeta")
+_OUTPUT_KEYS = {"codes": "codes", "sp_shells": "sp_shells"}
+_CHECK_KEYS = {"check": "run", "method": "method", "charge": "charge", "spin": "spin", "max_check_frames": "max_frames"}
+FLAT_KEYS = (*_BASIS_KEYS, "zeta_library", "zeta_file", *_OUTPUT_KEYS, *_CHECK_KEYS)
+
+
+def deprecated_sharing(values: dict, where: str, stacklevel: int = 3) -> None:
+    """Rename the deprecated keyword ``exponents`` (the sharing mode) in ``values`` to ``sharing``
+    with a DeprecationWarning; TypeError when both are given."""
+    if "exponents" in values:
+        if "sharing" in values:
+            raise TypeError(f"{where}: give sharing, not both sharing and the deprecated exponents")
+        warnings.warn(f"{where}: the keyword exponents is deprecated; use sharing", DeprecationWarning, stacklevel=stacklevel)
+        values["sharing"] = values.pop("exponents")
+
+
+@dataclass(frozen=True, init=False)
+class BuildOptions:
+    """One structure job's request: the basis, the output and the checks (validated when made).
+
+    basis         the BasisSpec (rule, gaussians, norm, sharing, radial, zeta); its ``zeta`` are your
+                  own ζ, and every element they name must occur in the structures
+                  (``pipeline.path.check_zeta_elements``)
+    library       ζ from a zeta file (a ZetaTable, e.g. ``tune``'s for a whole training set), applied
+                  to the elements a structure has; ``basis.zeta`` goes on top. It must name at
+                  least one element of the structures
+    zeta_file     the TOML zeta file the library was read from (read once, when the options are
+                  made, unless ``zeta_library`` is given too); only named in messages: no part of
+                  the options' equality or JSON
+    output        OutputOptions (codes, sp_shells)
+    checks        CheckOptions (run, method, charge, spin, max_frames)
+
+    Made from the parts (``BuildOptions(basis=BasisSpec(...), checks=CheckOptions(run=True))``)
+    or from their fields as keywords: rule, gaussians, norm, sharing, radial, zeta, zeta_library,
+    zeta_file, codes, sp_shells, check, method, charge, spin, max_check_frames.
+    """
+
+    basis: BasisSpec
+    library: ZetaTable
+    output: OutputOptions
+    checks: CheckOptions
+    zeta_file: str | None = field(default=None, compare=False)
+
+    def __init__(self, basis: BasisSpec | None = None, output: OutputOptions | None = None,
+                 checks: CheckOptions | None = None, library: ZetaTable | None = None, **flat):
+        deprecated_sharing(flat, "BuildOptions")
+        unknown = set(flat) - set(FLAT_KEYS)
+        if unknown:
+            raise TypeError(f"BuildOptions: unknown option {', '.join(sorted(unknown))}")
+        for part, keys, name in ((basis, _BASIS_KEYS, "basis"), (output, _OUTPUT_KEYS, "output"), (checks, _CHECK_KEYS, "checks")):
+            given = [k for k in keys if k in flat]
+            if part is not None and given:
+                raise TypeError(f"BuildOptions: give {name} or its fields ({', '.join(given)}), not both")
+        if basis is None:
+            basis = BasisSpec(**{k: flat[k] for k in _BASIS_KEYS if k in flat})
+        elif not isinstance(basis, BasisSpec):
+            raise TypeError(f"basis must be a BasisSpec, got {type(basis).__name__}")
+        if output is None:
+            output = OutputOptions(**{v: flat[k] for k, v in _OUTPUT_KEYS.items() if k in flat})
+        elif not isinstance(output, OutputOptions):
+            raise TypeError(f"output must be an OutputOptions, got {type(output).__name__}")
+        if checks is None:
+            checks = CheckOptions(**{v: flat[k] for k, v in _CHECK_KEYS.items() if k in flat})
+        elif not isinstance(checks, CheckOptions):
+            raise TypeError(f"checks must be a CheckOptions, got {type(checks).__name__}")
+        zeta_file = flat.get("zeta_file")
+        if library is not None and "zeta_library" in flat:
+            raise TypeError("BuildOptions: give library or zeta_library, not both")
+        library = ZetaTable.of(library if library is not None else flat.get("zeta_library"), "zeta_library")
+        if zeta_file is not None:
+            from stobuilder.core import arguments
+
+            zeta_file = arguments.path(zeta_file, "zeta_file")
+            if not library:
+                library = ZetaTable.load(zeta_file)
+        set_ = object.__setattr__
+        set_(self, "basis", basis)
+        set_(self, "library", library)
+        set_(self, "output", output)
+        set_(self, "checks", checks)
+        set_(self, "zeta_file", zeta_file)
 
     # -- views
 
-    @property
-    def zeta_map(self) -> dict[str, dict[str, float]] | None:
-        """The ζ overrides given as ``zeta`` (not the library) as {symbol: {label: ζ}}, or None."""
-        return {s: dict(t) for s, t in self.zeta} or None
-
-    def zeta_for(self, symbols) -> dict[str, dict[str, float]] | None:
-        """The ζ overrides of the elements in ``symbols`` only: the library's, ``zeta`` on top."""
-        present = set(symbols)
-        return _merged(*(tuple(e for e in table if e[0] in present) for table in (self.zeta_library, self.zeta)))
-
-    def replace(self, **changes) -> "BuildOptions":
-        """A copy with ``changes`` (validated again)."""
-        values = {f.name: getattr(self, f.name) for f in fields(self)} | changes
-        return BuildOptions(**values)
+    def spec_for(self, symbols: Iterable[str]) -> BasisSpec:
+        """The basis spec of a structure with the elements ``symbols``: the library's ζ of those
+        elements, ``basis.zeta`` on top (the key of its basis)."""
+        symbols = tuple(symbols)
+        zeta = self.basis.zeta.over(self.library).restricted(symbols)
+        return self.basis if zeta == self.basis.zeta else self.basis.with_zeta(zeta)
 
     # -- JSON
 
     def to_json(self) -> dict:
-        """Plain JSON (the manifest's ``options`` record), with the stobuilder version."""
+        """Plain JSON (the manifest's ``options`` record): the parts' fields, flat, with the
+        stobuilder version."""
         from stobuilder.core.version import __version__
 
-        doc = asdict(self)
-        doc.pop("zeta_file")  # a name, not a value: the library's numbers are in zeta_library
-        doc["codes"] = list(self.codes)
-        doc["zeta"] = self.zeta_map or {}
-        doc["zeta_library"] = _merged(self.zeta_library) or {}
+        doc = self.basis.to_json()
+        doc["zeta_library"] = self.library.as_dict()
+        doc["sp_shells"] = self.output.sp_shells
+        doc["codes"] = list(self.output.codes)
+        for flat, name in _CHECK_KEYS.items():
+            doc[flat] = getattr(self.checks, name)
         doc["stobuilder"] = __version__
         return doc
 
     @classmethod
     def from_json(cls, doc: Mapping | str) -> "BuildOptions":
-        """The options of ``to_json`` (a dict or its text); unknown keys are an InputError."""
+        """The options of ``to_json`` (a dict or its text); unknown keys are an InputError. A
+        record of an earlier version with ``exponents`` (the sharing mode) is read as ``sharing``."""
         if isinstance(doc, str):
             try:
                 doc = json.loads(doc)
@@ -364,8 +223,9 @@ class BuildOptions:
             raise InputError("build options: expected a JSON object")
         doc = dict(doc)
         doc.pop("stobuilder", None)
-        names = {f.name for f in fields(cls)}
-        unknown = set(doc) - names
+        if "exponents" in doc and "sharing" not in doc:
+            doc["sharing"] = doc.pop("exponents")
+        unknown = set(doc) - set(FLAT_KEYS) - {"zeta_file"}
         if unknown:
             raise InputError(f"build options: unknown option {', '.join(sorted(unknown))}")
         if "codes" in doc and isinstance(doc["codes"], list):
@@ -373,19 +233,33 @@ class BuildOptions:
         return cls(**doc)
 
 
+def load_zeta_file(path) -> dict[str, dict[str, float]]:
+    """Deprecated: ``ZetaTable.load(path).as_dict()``."""
+    warnings.warn("load_zeta_file is deprecated; use stobuilder.ZetaTable.load", DeprecationWarning, stacklevel=2)
+    return ZetaTable.load(path).as_dict()
+
+
+def parse_zeta_overrides(items, per_element: bool = False) -> dict:
+    """Deprecated: ``ZetaTable.parse(items)`` (the ``[ELEMENT:]LABEL=VALUE`` grammar)."""
+    warnings.warn("parse_zeta_overrides is deprecated; use stobuilder.ZetaTable.parse", DeprecationWarning, stacklevel=2)
+    if per_element:
+        return ZetaTable.parse(items).as_dict()
+    return ZetaTable.parse(items, element="H").of_element("H")
+
+
 # ---------------------------------------------------------------------------- the command line
 
 
 def add_arguments(parser, whole_number_type) -> None:
     """The build options as one argparse group (``build`` and ``batch`` share it)."""
-    from stobuilder.builder.construct import RADIAL_FORMS
+    from stobuilder.builder.spec import RADIAL_FORMS
     from stobuilder.expansion.fit import NORMS
     from stobuilder.formats import formats
     from stobuilder.model.methods import METHODS
-    from stobuilder.rules import rules
+    from stobuilder.screening import rules
 
     g = parser.add_argument_group("build options")
-    g.add_argument("--rule", default="slater", help=f"screening rule: {', '.join(rules())} (default slater)")
+    g.add_argument("--rule", default=DEFAULTS["rule"], help=f"screening rule: {', '.join(rules())} (default {DEFAULTS['rule']})")
     g.add_argument("--gaussians", type=whole_number_type, default=3, metavar="N", help="Gaussians per STO, 1–12 (default 3)")
     g.add_argument(
         "--code", action="append", metavar="CODE",
@@ -421,9 +295,9 @@ def from_args(args) -> BuildOptions:
         rule=args.rule,
         gaussians=args.gaussians,
         norm=args.fit,
-        exponents="shared" if args.shared_exponents else "separate" if args.separate_fits else "family",
+        sharing="shared" if args.shared_exponents else "separate" if args.separate_fits else "family",
         radial=args.radial,
-        zeta=parse_zeta_overrides(args.zeta or [], per_element=True),
+        zeta=ZetaTable.parse(args.zeta or []),
         zeta_file=args.zeta_file or None,
         sp_shells=args.sp_shells,
         codes=tuple(args.code or ("nwchem",)),
@@ -434,5 +308,5 @@ def from_args(args) -> BuildOptions:
     )
 
 
-__all__ = ["BuildOptions", "CLI_FLAGS", "MAX_CHECK_FRAMES", "OptionError", "add_arguments", "from_args", "load_zeta_file", "merge_zeta",
-           "parse_zeta_overrides"]
+__all__ = ["BuildOptions", "CLI_FLAGS", "CheckOptions", "MAX_CHECK_FRAMES", "OutputOptions", "add_arguments", "from_args",
+           "load_zeta_file", "parse_zeta_overrides"]

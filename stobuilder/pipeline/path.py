@@ -5,7 +5,7 @@ Every door (``build``, ``batch``'s workers, the Python API) walks the same path:
     structure file ──read_structures──▶ frames (geometry checked: finite, atoms ≥ 0.1 Å apart)
         ──basis_for(frames, options)──▶ Basis (ζ and every Gaussian exponent checked in range)
         ──prepare──▶ Prepared: the basis and every file text, named by stobuilder.pipeline.naming
-        ──run_checks──▶ the SCF checks (with ``options.check``)
+        ──run_checks──▶ the SCF checks (with ``options.checks.run``)
         ──files.write_all──▶ every file of the job, or none
 
 ``build_structures`` prepares and checks every structure before the first file is written: a
@@ -21,8 +21,10 @@ import stat
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
+from stobuilder.core import arguments
 from stobuilder.model.basis import Basis
-from stobuilder.builder.construct import build_basis
+from stobuilder.builder.construct import basis_of
+from stobuilder.builder.spec import ZetaTable
 from stobuilder.checks.structure import Check
 from stobuilder.core.errors import InputError
 from stobuilder.core.files import check_targets, create_bytes, replace_bytes, write_all
@@ -30,10 +32,11 @@ from stobuilder.core.limits import one_line
 from stobuilder.formats import format_for_path, get_format, merge_basis, render_checked
 from stobuilder.model.methods import pick_method
 from stobuilder.pipeline.naming import output_file, structure_name
-from stobuilder.pipeline.options import BuildOptions, OptionError
+from stobuilder.core.errors import OptionError
+from stobuilder.pipeline.options import BuildOptions
 from stobuilder.model.structures import Structure, check_geometry, elements_of, read_structures
 
-__all__ = ["Prepared", "StructureReport", "basis_for", "basis_key", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
+__all__ = ["Prepared", "StructureReport", "basis_for", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
            "prepare", "run_checks"]
 
 
@@ -107,23 +110,15 @@ def _single_atom_charge(frames: Sequence[Structure]) -> int | None:
     return None
 
 
-def basis_for(frames: Sequence[Structure], options: BuildOptions) -> Basis:
-    """The basis for the union of the frames' elements. A structure of one atom is an atomic ion:
+def basis_for(frames: Sequence[Structure], options: BuildOptions, zeta: ZetaTable | None = None) -> Basis:
+    """The basis for the union of the frames' elements (``builder.basis_of``, memoised), with
+    ``zeta`` (tune's trial ζ) on top of the options'. A structure of one atom is an atomic ion:
     its basis follows the ion's configuration; atoms in molecules and solids use neutral atoms."""
     elements = elements_of(tuple(frames))
-    return build_basis(
-        elements, rule=options.rule, gaussians=options.gaussians, charge=_single_atom_charge(frames),
-        zeta=options.zeta_for(elements), norm=options.norm, exponents=options.exponents, radial=options.radial,
-    )
-
-
-def basis_key(frames: Sequence[Structure], options: BuildOptions) -> tuple:
-    """The content key of a basis: everything ``basis_for`` looks at (the element set, a single
-    atom's charge, the options that shape it)."""
-    elements = elements_of(tuple(frames))
-    zeta = options.zeta_for(elements) or {}
-    return (elements, _single_atom_charge(frames), options.rule, options.gaussians, options.norm,
-            options.exponents, options.radial, tuple((s, tuple(sorted(t.items()))) for s, t in sorted(zeta.items())))
+    spec = options.spec_for(elements)
+    if zeta:
+        spec = spec.with_zeta(zeta.over(spec.zeta).restricted(elements))
+    return basis_of(elements, spec, _single_atom_charge(frames))
 
 
 def output_path(path: str, out_dir: str, code: str, symbol: str | None = None) -> str:
@@ -146,37 +141,35 @@ def prepare(
     every file text. Writes nothing; raises InputError (naming ``path``) for any bad input.
 
     name   the output name (``naming``); default the file's own name without extension
-    cache  a dict kept between calls (a batch worker's): one basis and one text per content key
+    cache  a dict kept between calls (a batch worker's): one text per content key (the basis
+           itself comes from ``builder.basis_of``, the one basis cache)
     """
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
-    frames = read_structures(path, charge=options.charge, spin=options.spin)
+    frames = read_structures(path, charge=options.checks.charge, spin=options.checks.spin)
     for frame in frames:
         check_geometry(frame)
-    key = basis_key(frames, options)
+    elements = elements_of(tuple(frames))
+    try:
+        basis = basis_for(frames, options)
+    except InputError as exc:
+        raise InputError(_named(os.fspath(path), str(exc))) from None
+    if options.checks.run:
+        for frame in frames[: options.checks.max_frames]:
+            check_electrons(frame, basis, options.checks.method, checks=True)
+    name = name or structure_name(os.path.basename(path))
+    key = (elements, options.spec_for(elements), _single_atom_charge(frames))
     if cache is not None and len(cache) >= CACHE_LIMIT:
         cache.clear()
-    basis = cache.get(("basis", key)) if cache is not None else None
-    if basis is None:
-        try:
-            basis = basis_for(frames, options)
-        except InputError as exc:
-            raise InputError(_named(os.fspath(path), str(exc))) from None
-        if cache is not None:
-            cache[("basis", key)] = basis
-    if options.check:
-        for frame in frames[: options.max_check_frames]:
-            check_electrons(frame, basis, options.method, checks=True)
-    name = name or structure_name(os.path.basename(path))
     texts = []
-    for code in options.codes:
+    for code in options.output.codes:
         fmt = get_format(code)
         parts = [(e.symbol, replace(basis, elements=(e,))) for e in basis.elements] if split_elements else [(None, basis)]
         for symbol, part in parts:
-            text_key = ("text", key, fmt.name, options.sp_shells, symbol)
+            text_key = (key, fmt.name, options.output.sp_shells, symbol)
             text = cache.get(text_key) if cache is not None else None
             if text is None:
-                text = render_checked(part, fmt.name, options.sp_shells, source=os.fspath(path))
+                text = render_checked(part, fmt.name, options.output.sp_shells, source=os.fspath(path))
                 if cache is not None:
                     cache[text_key] = text
             texts.append((fmt.name + (f":{symbol}" if symbol else ""), output_file(name, fmt.name, symbol), text))
@@ -220,20 +213,20 @@ def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = 
 
 
 def run_checks(prepared: Prepared, options: BuildOptions, threads: int | None = None) -> Prepared:
-    """The SCF checks of the first ``options.max_check_frames`` frames (PySCF's OpenMP threads
+    """The SCF checks of the first ``options.checks.max_frames`` frames (PySCF's OpenMP threads
     limited to ``threads`` when given). An SCF that raises is an InputError naming the file."""
     from stobuilder.checks.structure import check_structure  # looked up at call time (tests replace it)
 
     frames = prepared.frames
-    checked = frames[: options.max_check_frames]
+    checked = frames[: options.checks.max_frames]
     try:
         if threads is None:
-            checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+            checks = tuple(check_structure(f, prepared.basis, method=options.checks.method) for f in checked)
         else:
             from pyscf import lib
 
             with lib.with_omp_threads(threads):
-                checks = tuple(check_structure(f, prepared.basis, method=options.method) for f in checked)
+                checks = tuple(check_structure(f, prepared.basis, method=options.checks.method) for f in checked)
     except InputError as exc:
         raise InputError(_named(prepared.path, str(exc))) from None
     except Exception as exc:  # an SCF that fails numerically (LinAlgError, overflow, ...)
@@ -266,10 +259,10 @@ def check_zeta_elements(options: BuildOptions, frames) -> None:
     from stobuilder.model.elements import atomic_number
 
     present = {s for f in frames for s in f.symbols}
-    missing = {s for s, _ in options.zeta} - present
+    missing = set(options.basis.zeta.symbols) - present
     if missing:
         raise OptionError("zeta", f" names elements in no structure: {', '.join(sorted(missing, key=atomic_number))}")
-    library = [s for s, _ in options.zeta_library]
+    library = list(options.library.symbols)
     if options.zeta_file is not None and not library:
         raise OptionError("zeta_file", f" {one_line(options.zeta_file)}: it gives no ζ (no table with an entry)")
     if library and not present & set(library):
@@ -399,23 +392,30 @@ def build_structures(
     merge_into: str | None = None,
     **option_values,
 ) -> tuple[StructureReport, ...]:
-    """Read every structure file, build its basis, run the checks (``options.check``) and write
+    """Read every structure file, build its basis, run the checks (``options.checks.run``) and write
     one file per structure and code. Every structure is prepared and checked before the first
     file is written, and the files are then written all or none (``files.write_all``); an
     existing file is kept unless ``force``.
 
+    paths           structure files: a list, or one path
     options         a BuildOptions; or give its fields as keywords (rule="molecular", gaussians=6, ...)
     split_elements  one file per structure, code and element: ``<stem>.<Symbol><extension>``
     merge_into      instead of new files, add or replace the elements of all structures in this
                     existing basis file of one format (backed up first, see ``merge_file``); the
                     format is the one its file name tells unless the options name one
     """
-    if isinstance(paths, (str, os.PathLike)):
-        raise TypeError("paths must be a list of structure files, not one path")
+    paths = arguments.paths(paths, "paths")
+    out_dir = arguments.path(out_dir, "out_dir")
+    for name, value in (("force", force), ("write", write), ("split_elements", split_elements)):
+        arguments.flag(value, name)
+    if merge_into is not None:
+        merge_into = arguments.path(merge_into, "merge_into")
     if options is None:
         if merge_into is not None and not option_values.get("codes"):
             option_values["codes"] = (format_for_path(merge_into),)
         options = BuildOptions(**option_values)
+    elif not isinstance(options, BuildOptions):
+        raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     elif option_values:
         raise TypeError(f"give either options or option keywords, not both ({', '.join(option_values)})")
     if not paths:
@@ -423,8 +423,8 @@ def build_structures(
     if merge_into is not None:
         if split_elements:
             raise OptionError("merge_into", " and ", other="split_elements", tail=" exclude each other")
-        if len(options.codes) != 1:
-            raise OptionError("merge_into", f" {merge_into}: give exactly one format, not {', '.join(options.codes)}")
+        if len(options.output.codes) != 1:
+            raise OptionError("merge_into", f" {merge_into}: give exactly one format, not {', '.join(options.output.codes)}")
         if not os.path.isfile(merge_into):
             raise OptionError("merge_into", f" {merge_into}: no such file")
     prepared: list[Prepared] = []
@@ -440,16 +440,16 @@ def build_structures(
     check_zeta_elements(options, (f for item in prepared for f in item.frames))
     if merge_into is not None:
         merged = union_basis([item.basis for item in prepared])
-        code = options.codes[0]
-        merge_text(read_merge_target(merge_into)[2], merged, code, options.sp_shells, source=merge_into)
+        code = options.output.codes[0]
+        merge_text(read_merge_target(merge_into)[2], merged, code, options.output.sp_shells, source=merge_into)
     elif write:
         check_targets(sources, force)
-    if options.check:  # before anything is written: a check that fails writes nothing
+    if options.checks.run:  # before anything is written: a check that fails writes nothing
         prepared = [run_checks(item, options) for item in prepared]
     files_of = {item.path: {key: os.path.join(out_dir, *rel.split("/")) for key, rel, _ in item.texts} for item in prepared}
     if merge_into is not None:
         if write:
-            target, backup = merge_file(merge_into, merged, code, options.sp_shells)
+            target, backup = merge_file(merge_into, merged, code, options.output.sp_shells)
         else:
             target, backup = merge_into, None
         files_of = {item.path: {code: target} for item in prepared}
