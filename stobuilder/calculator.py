@@ -32,7 +32,8 @@ from dataclasses import fields
 import numpy as np
 from ase.calculators.calculator import Calculator, SCFError, all_changes
 
-from stobuilder.builder.spec import DEFAULTS, BasisSpec
+from stobuilder.core.defaults import DEFAULTS
+from stobuilder.builder.spec import BasisSpec
 from stobuilder.core.errors import InputError
 
 #: basis options (BuildOptions' keywords), then the SCF's

@@ -3,7 +3,7 @@
 import pytest
 
 from stobuilder.checks.atom import atom_report
-from stobuilder.exact.atoms import atom_energy, optimize_zeta
+from stobuilder.checks.atom import atom_energy, optimize_zeta
 from stobuilder.pipeline.options import load_zeta_file, parse_zeta_overrides
 from stobuilder.core.errors import InputError
 from stobuilder.expansion import MAX_GAUSSIANS

@@ -388,8 +388,8 @@ def test_build_options_shared_separate_effective_n():
     """Fe under Slater's rules has 3s,3p ζ ≠ 3d ζ: the default scales the joint fit per subshell;
     shared-exponents gives one exponent set per n; separate fits give each subshell its own fit."""
     default = stobuilder.build_basis(["Fe"], gaussians=3)["Fe"]
-    shared = stobuilder.build_basis(["Fe"], gaussians=3, exponents="shared")["Fe"]
-    separate = stobuilder.build_basis(["Fe"], gaussians=3, exponents="separate")["Fe"]
+    shared = stobuilder.build_basis(["Fe"], gaussians=3, sharing="shared")["Fe"]
+    separate = stobuilder.build_basis(["Fe"], gaussians=3, sharing="separate")["Fe"]
     by = lambda e: {s.label: s for s in e.shells}  # noqa: E731
     d, sh, se = by(default), by(shared), by(separate)
     assert d["3s"].exponents == d["3p"].exponents != d["3d"].exponents
@@ -400,7 +400,7 @@ def test_build_options_shared_separate_effective_n():
     ratio = {"3d": sh["3d"].zeta / sh["3s"].zeta}
     assert sh["3d"].fit_error == lookup(["3s", "3p", "3d"], 3, zeta_ratio=ratio).error["3d"]
     c_def = stobuilder.build_basis(["C"], gaussians=3)["C"].shells
-    c_sh = stobuilder.build_basis(["C"], gaussians=3, exponents="shared")["C"].shells
+    c_sh = stobuilder.build_basis(["C"], gaussians=3, sharing="shared")["C"].shells
     assert [s.exponents for s in c_def] == [s.exponents for s in c_sh]
     k = stobuilder.build_basis(["K"], gaussians=4, radial="effective-n")
     k4s = by(k["K"])["4s"]

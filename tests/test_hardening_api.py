@@ -62,7 +62,7 @@ def test_elements_of_the_wrong_type_are_type_errors(elements, word):
     (lambda b: stobuilder.ground_state("Fe", True), "charge"),
     (lambda b: stobuilder.parse_configuration(None), "configuration"),
     (lambda b: stobuilder.parse_configuration(5), "configuration"),
-    (lambda b: stobuilder.exponents(26), "element"),
+    (lambda b: stobuilder.zeta_values(26), "element"),
     (lambda b: stobuilder.zeff(None), "element"),
     (lambda b: stobuilder.element_basis(None), "element"),
     (lambda b: stobuilder.atom_energy(1), "element"),

@@ -184,7 +184,7 @@ def test_atom_json_says_whether_the_scf_converged(capsys):
 
 
 def test_on_demand_optimisation_reports_progress_and_gives_the_same_result(tmp_path, capsys, monkeypatch):
-    from stobuilder.exact.atoms import optimize_zeta
+    from stobuilder.checks.atom import optimize_zeta
     from stobuilder.model.elements import ground_state
     from stobuilder.screening import optimized
 

@@ -136,7 +136,7 @@ def test_build_options_validate_once_with_one_line(kwargs, words):
 
 def test_build_options_round_trip_through_json():
     options = BuildOptions(rule="molecular", gaussians=6, codes=("all",), zeta={"fe": {"3d": 2.1}, "O": {"2p": 2.2}},
-                           charge=-1, spin=1, check=True, method="uhf", exponents="shared")
+                           charge=-1, spin=1, check=True, method="uhf", sharing="shared")
     text = json.dumps(options.to_json(), allow_nan=False)
     back = BuildOptions.from_json(text)
     assert back == options and hash(back) == hash(options)

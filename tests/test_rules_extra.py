@@ -44,7 +44,7 @@ def test_heavy_optimised_energies_lie_just_above_the_hartree_fock_limit(symbol):
 def test_heavy_table_entry_is_the_energy_minimum():
     # Rn: the shipped ζ reproduce the shipped energy, and moving the 6p ζ either way by 0.1 %
     # raises it (a minimum; common practice, no source)
-    from stobuilder.exact.atoms import atom_energy
+    from stobuilder.checks.atom import atom_energy
 
     entry = table()["elements"]["Rn"]
     e0 = atom_energy("Rn", zeta=entry["zeta"]).energy
@@ -111,9 +111,9 @@ def test_optimized_on_demand_is_cached_on_disk(tmp_path, monkeypatch):
 
     monkeypatch.setenv("STOBUILDER_CACHE_DIR", str(tmp_path))
     optimized._optimise.cache_clear()
-    zeta = stobuilder.exponents("Li", rule="optimized", charge=1)["1s"]
+    zeta = stobuilder.zeta_values("Li", rule="optimized", charge=1)["1s"]
     assert zeta == pytest.approx(3 - 5 / 16, abs=1e-6)
     files = list((tmp_path / "optimized").glob("Li-*.json"))
     assert len(files) == 1
     optimized._optimise.cache_clear()
-    assert stobuilder.exponents("Li", rule="optimized", charge=1)["1s"] == zeta
+    assert stobuilder.zeta_values("Li", rule="optimized", charge=1)["1s"] == zeta

@@ -27,12 +27,12 @@ def test_textbook_zeff(element, label, expected):
 
 def test_zeta_uses_effective_n():
     # Slater 1930: n* = 3.7 for n = 4, ζ = Zeff / n*; K 4s: 2.20 / 3.7.
-    assert stobuilder.exponents("K")["4s"] == pytest.approx(2.20 / 3.7, abs=1e-12)
+    assert stobuilder.zeta_values("K")["4s"] == pytest.approx(2.20 / 3.7, abs=1e-12)
     # n* = 4.0 for n = 5 and 4.2 for n = 6 (Slater 1930).
     rb = stobuilder.zeff("Rb")["5s"]
-    assert stobuilder.exponents("Rb")["5s"] == pytest.approx(rb / 4.0, abs=1e-12)
+    assert stobuilder.zeta_values("Rb")["5s"] == pytest.approx(rb / 4.0, abs=1e-12)
     cs = stobuilder.zeff("Cs")["6s"]
-    assert stobuilder.exponents("Cs")["6s"] == pytest.approx(cs / 4.2, abs=1e-12)
+    assert stobuilder.zeta_values("Cs")["6s"] == pytest.approx(cs / 4.2, abs=1e-12)
 
 
 def test_empty_p_partner_shares_the_s_group():

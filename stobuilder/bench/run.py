@@ -213,7 +213,8 @@ def make_variants(rules: Sequence[str], gaussians: Sequence[int], norms: Sequenc
     """The product rule × N × norm (repeats dropped), then the same product once more for each zeta
     file, its ζ on top of each rule. Every variant is validated (``BuildOptions``); a zeta file is
     read now."""
-    from stobuilder.builder.spec import DEFAULTS, ZetaTable
+    from stobuilder.core.defaults import DEFAULTS
+    from stobuilder.builder.spec import ZetaTable
 
     rules, gaussians, norms = (list(dict.fromkeys(x)) for x in (rules or [DEFAULTS["rule"]], gaussians or [DEFAULTS["gaussians"]],
                                                                  norms or [DEFAULTS["norm"]]))

@@ -29,7 +29,8 @@ import warnings
 from collections.abc import Iterable, Mapping
 from itertools import groupby
 
-from stobuilder.builder.spec import DEFAULTS, BasisSpec, ZetaTable, spec_notes
+from stobuilder.core.defaults import DEFAULTS
+from stobuilder.builder.spec import BasisSpec, ZetaTable, spec_notes
 from stobuilder.core import arguments
 from stobuilder.core.errors import InputError
 from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value

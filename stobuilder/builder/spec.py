@@ -9,7 +9,7 @@ unchanged. It is validated once, when it is made; inside, the path trusts it.
 symbols normalised, labels canonical ("3d"), every ζ in the supported range. ``--zeta`` items,
 zeta files, tune's results and Python mappings all become a ZetaTable at the edge.
 
-Defaults live here (``DEFAULTS``) and nowhere else.
+The defaults are stobuilder.core.defaults.DEFAULTS (one table for every door).
 
 >>> spec = BasisSpec(rule="molecular", gaussians=6)
 >>> spec.norm, spec.sharing
@@ -20,6 +20,8 @@ Defaults live here (``DEFAULTS``) and nowhere else.
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, fields
 
@@ -29,8 +31,7 @@ from stobuilder.core.limits import whole_number, zeta_value
 SHARING_MODES = ("family", "shared", "separate")
 RADIAL_FORMS = ("integer", "effective-n")
 
-# The defaults of every door (CLI flags, Python keywords, the calculator, bench variants).
-DEFAULTS = {"rule": "slater", "gaussians": 3, "norm": "l2", "sharing": "family", "radial": "integer"}
+# DEFAULTS (stobuilder.core.defaults) hold the defaults of every field.
 
 
 def _label(text) -> str:
@@ -284,4 +285,4 @@ def spec_notes(spec: BasisSpec) -> tuple[str, ...]:
     return tuple(notes)
 
 
-__all__ = ["DEFAULTS", "RADIAL_FORMS", "SHARING_MODES", "BasisSpec", "ZetaTable", "spec_notes"]
+__all__ = ["RADIAL_FORMS", "SHARING_MODES", "BasisSpec", "ZetaTable", "spec_notes"]

@@ -14,7 +14,7 @@ from collections.abc import Iterable
 
 
 from stobuilder.builder.construct import element_basis, sto_exponents
-from stobuilder.builder.spec import DEFAULTS
+from stobuilder.core.defaults import DEFAULTS
 from stobuilder.checks.structure import check_free_atom
 from stobuilder.core.limits import whole_number
 from stobuilder.exact.atoms import AtomResult, numerical_guard, pick_method, solve, supported

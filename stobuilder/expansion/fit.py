@@ -28,6 +28,8 @@ and is finished on that bound.
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
@@ -330,7 +332,7 @@ def clear_caches() -> None:
 def fit_sto(
     subshells: str | Iterable[str],
     gaussians: int,
-    norm: str = "l2",
+    norm: str = DEFAULTS["norm"],
     n_eff: Mapping[str, float] | None = None,
     zeta_ratio: Mapping[str, float] | None = None,
 ) -> Fit:

@@ -16,6 +16,8 @@ package directory is never written to.
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 import hashlib
 import json
 from functools import lru_cache
@@ -93,7 +95,7 @@ _METHODS = {
 }
 
 
-def provenance(norm: str = "l2") -> dict:
+def provenance(norm: str = DEFAULTS["norm"]) -> dict:
     return {
         "method": _METHODS[norm] + "; variable projection over ln(alpha) with closed-form integrals (no quadrature "
         "grid): trust-region Newton on the exact Hessian from deterministic starts (continuation from N-1 and "
@@ -112,7 +114,7 @@ def provenance(norm: str = "l2") -> dict:
     }
 
 
-def render_library(fits: dict[tuple[str, ...], dict[int, Fit]], norm: str = "l2") -> str:
+def render_library(fits: dict[tuple[str, ...], dict[int, Fit]], norm: str = DEFAULTS["norm"]) -> str:
     """The library file text for the given fits (deterministic)."""
     body = {
         "provenance": provenance(norm),
@@ -125,7 +127,7 @@ def render_library(fits: dict[tuple[str, ...], dict[int, Fit]], norm: str = "l2"
     return json.dumps(body, indent=1, ensure_ascii=True) + "\n"
 
 
-def library_path(norm: str = "l2"):
+def library_path(norm: str = DEFAULTS["norm"]):
     return resources.files(__package__).joinpath("data", f"fits_{norm}.json")
 
 
@@ -251,7 +253,7 @@ def _fit_cached(labels: tuple[str, ...], gaussians: int, norm: str, n_eff: tuple
 def lookup(
     subshells: str | Iterable[str],
     gaussians: int,
-    norm: str = "l2",
+    norm: str = DEFAULTS["norm"],
     n_eff: Mapping[str, float] | None = None,
     zeta_ratio: Mapping[str, float] | None = None,
 ) -> Fit:

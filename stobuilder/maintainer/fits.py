@@ -11,6 +11,8 @@ with the entries, and the exit status is 0 when every file is equal within them,
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 import argparse
 import json
 import math
@@ -62,7 +64,7 @@ def build_texts(workers: int = 2, norms=NORMS, top: int = LIBRARY_MAX_GAUSSIANS,
     return out
 
 
-def build_text(workers: int = 2, norm: str = "l2") -> str:
+def build_text(workers: int = 2, norm: str = DEFAULTS["norm"]) -> str:
     """The text of one library file, fitted from scratch."""
     return build_texts(workers, (norm,))[norm]
 

@@ -7,6 +7,8 @@ tables, Hehre, Stewart & Pople, J. Chem. Phys. 51, 2657, 1969).
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 from dataclasses import dataclass, field
 
 from stobuilder.model.elements import Configuration, atomic_number
@@ -87,11 +89,11 @@ class Basis:
     """
 
     elements: tuple[ElementBasis, ...]
-    rule: str = "slater"
-    gaussians: int = 3
-    norm: str = "l2"
+    rule: str = DEFAULTS["rule"]
+    gaussians: int = DEFAULTS["gaussians"]
+    norm: str = DEFAULTS["norm"]
     notes: tuple[str, ...] = field(default=())
-    radial: str = "integer"  # "effective-n" where the STOs are r^(n*−1) e^(−ζr)
+    radial: str = DEFAULTS["radial"]  # "effective-n" where the STOs are r^(n*−1) e^(−ζr)
 
     def __post_init__(self):
         symbols = [e.symbol for e in self.elements]

@@ -19,7 +19,8 @@ import warnings
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
-from stobuilder.builder.spec import DEFAULTS, BasisSpec, ZetaTable
+from stobuilder.core.defaults import DEFAULTS
+from stobuilder.builder.spec import BasisSpec, ZetaTable
 from stobuilder.core.errors import InputError, OptionError
 from stobuilder.core.limits import MAX_CHARGE, whole_number
 

@@ -6,6 +6,8 @@ and one line in ``_MODULES`` (see DEVELOPERS.md).
 
 from __future__ import annotations
 
+from stobuilder.core.defaults import DEFAULTS
+
 import math
 from dataclasses import dataclass
 from functools import lru_cache
@@ -48,7 +50,7 @@ def get_rule(name: str) -> Rule:
     return table[name]
 
 
-def shell_exponents(conf: Configuration, rule: str = "slater") -> tuple[ShellExponent, ...]:
+def shell_exponents(conf: Configuration, rule: str = DEFAULTS["rule"]) -> tuple[ShellExponent, ...]:
     """ζ of every basis subshell of ``conf`` under the named rule.
 
     The one door to every rule: a rule's error is given the element, the configuration and the

@@ -10,7 +10,7 @@ import time
 
 from pyscf import gto, scf
 
-from stobuilder.exact.atoms import atom_energy, optimize_zeta
+from stobuilder.checks.atom import atom_energy, optimize_zeta
 
 
 def timed(fn, repeat=1):
