@@ -1,4 +1,5 @@
-"""Exact-STO atomic SCF and optimised exponents against textbook and published results."""
+"""Exact-STO atomic SCF and optimised exponents against textbook and published results; an
+on-demand optimisation reports its progress on stderr and gives the same ζ as a quiet one."""
 
 import json
 

@@ -5,6 +5,15 @@ Real engines throughout: ASE reads the files, PySCF runs the checks, Dask and Sn
 jobs. Structures are made from ASE's G2 collection (ase.collections.g2: Curtiss et al., J. Chem.
 Phys. 106, 1063, 1997, as ASE ships them), perturbed by a seeded random displacement.
 Budget: about 60-90 s on 2 cores, most of it Dask and Snakemake start-up.
+
+Robustness: only regular files are inputs, the manifest reader skips and reports bad lines and
+checks every field of a record, a manifest that is a symbolic link is refused, ``--force`` starts
+a fresh manifest and keeps the old one, our own outputs are never inputs, workers are capped at
+the cores and die with their parent, scheduler addresses are checked before anything starts, and
+a zeta file applies where its elements occur. Facts relied on: opening a FIFO for reading blocks
+until a writer opens it (POSIX open(2)); an orphaned process is re-parented, so its getppid()
+changes (POSIX _exit(2)); a SIGKILLed process runs no clean-up code (signal(7)): common practice,
+no source.
 """
 
 from __future__ import annotations

@@ -1,5 +1,9 @@
 """stobuilder bench: agreement with PySCF's stored STO-3G, the experimental column, strict JSON,
-the report files, resume after a kill, failed SCFs, bad input.
+the report files, resume after a kill, failed SCFs, bad input; manifest records validated field
+by field and recomputed when bad, a manifest that is a symbolic link refused and an output that
+is one replaced, never written through; zeta files as libraries; structures given twice; a
+molecule or reference basis too big for the memory limit refused before any SCF. The published
+outputs themselves: test_bench_report.py.
 
 Outside references: PySCF's stored 'sto-3g' basis (Hehre, Stewart & Pople, J. Chem. Phys. 51,
 2657 (1969); PySCF: Sun et al., J. Chem. Phys. 153, 024109 (2020)) run here with PySCF's own
@@ -24,7 +28,7 @@ from ase.build import molecule
 from ase.data import g2_1
 from ase.io import write
 
-from stobuilder import batch, bench
+from stobuilder import bench
 from support import assert_bad_input, assert_one_line_error, child_env, kill_when_done, run_cli, strict_json
 
 # Open and closed shells, first and second row, RHF and ROHF (spins from ASE's magnetic moments)
@@ -247,11 +251,10 @@ def test_resume_after_a_kill(tmp_path, capsys):
     assert code == 0 and _counts(stdout)[1] == 12
 
 
-def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
+def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch, threads):
     # the calculations run in this process (a one-thread pool), so the fault can be injected
     from stobuilder import checks
 
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
     real = checks.solve
 
     def failing(mol, method, *args, **kwargs):

@@ -17,16 +17,15 @@ import base64
 import concurrent.futures as cf
 import csv
 import html
-import os
 from html.parser import HTMLParser
 
 import pytest
-from ase.io import write
 from ase.build import molecule
+from ase.io import write
 
 from stobuilder import bench, bench_report
 from stobuilder.limits import one_line
-from support import strict_json
+from support import child_env, strict_json
 
 
 class _Page(HTMLParser):
@@ -132,7 +131,7 @@ def test_the_page_is_byte_identical_and_embeds_deterministic_pngs(two_variants, 
     # another process draws the same bytes (the PNG carries no time and no software tag)
     code = ("import sys, json; from stobuilder import bench_report as r; "
             "sys.stdout.buffer.write(r._png(r._figure(2, 2)[0]))")
-    env = dict(os.environ, PYTHONPATH=os.path.dirname(os.path.dirname(os.path.abspath(bench.__file__))))
+    env = child_env()
     a = subprocess.run([sys.executable, "-c", code], capture_output=True, env=env, timeout=120).stdout
     assert a[:8] == b"\x89PNG\r\n\x1a\n" and a == bench_report._png(bench_report._figure(2, 2)[0])
     assert b"tIME" not in a and b"Software" not in a

@@ -1,6 +1,9 @@
 """STOCalculator (ASE calculator) and pyscf_mole against outside references: published STO-3G
 geometries, PySCF's stored sto-3g, central finite differences of the energy, PySCF's own
-dip_moment; and the bad-input contract."""
+dip_moment; and the bad-input contract: errors name the calculator's parameters, a zeta file is a
+library (its elements apply where they occur; one naming none of the molecule's is refused), a
+molecule too big for the memory limit is refused before its SCF, and any change of atoms.info
+gives what a fresh calculator gives."""
 
 import numpy as np
 import pytest

@@ -1,4 +1,13 @@
-"""SCF checks against textbook results and exact one-function energies."""
+"""SCF checks against textbook results and exact one-function energies; and the checks of
+``build --check``: they never fail after files are written, nor with a traceback.
+
+The contract (README "Checks"): every structure is read, its geometry and electron counts
+checked, its basis built and its SCF checks run before the first file is written; a check that
+fails writes nothing. An explicit --method applies to the structure; free atoms take the method
+their own electron count allows, and the output says so. A structure too big for an SCF within
+the memory limit (STOBUILDER_MAX_MEMORY) is refused before any SCF, or checked by its free atoms;
+a long SCF prints its cycles on stderr.
+"""
 
 import os
 

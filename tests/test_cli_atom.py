@@ -1,4 +1,5 @@
-"""`stobuilder atom`, user exponents on `build`, and the exact-STO atoms of `build --check`."""
+"""`stobuilder atom` (its JSON says whether each SCF converged), user exponents on `build`, and the
+exact-STO atoms of `build --check`."""
 
 import json
 

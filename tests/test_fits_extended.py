@@ -1,5 +1,6 @@
 """Gaussian expansions beyond STO-6G: N ≤ 12, the H¹ norm, unequal ζ in one exponent set, effective n*,
-the user fit cache, the build options and the fit command.
+the user fit cache (a tampered entry is never used: the build gives a clean cache's bytes), the
+build options and the fit command.
 
 References:
   [HSP69] W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)

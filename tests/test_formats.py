@@ -10,6 +10,10 @@ them, by readers the project did not write:
 - qcelemental's ``BasisSet`` model for the QCSchema JSON;
 - for Dalton and OpenMolcas, which no package reads, the layout readers in tests/layout_readers.py
   (written from the codes' manuals, sharing nothing with the package).
+
+Text from inputs that goes into a file's header (a rule name, a configuration, a note, a
+structure's file name) passes through stobuilder.limits.one_line: it cannot end the comment and
+become live content, and every reader above reads the file as if the text were plain.
 """
 
 import os

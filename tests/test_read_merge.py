@@ -1,5 +1,13 @@
 """Strict readers (bad input → one-line InputError naming the line; CLI exit 2; nothing written)
-and merging our elements into a user's basis file without losing anything of theirs."""
+and merging our elements into a user's basis file without losing anything of theirs.
+
+``--merge-into`` under faults: symbolic links, CRLF files, failed replaces, pathological JSON,
+file modes. The contract: the backup is a byte copy; a link's target is updated atomically in its
+own folder and the link stays a link; a failed merge leaves the file as it was and no backup; a
+bad file is a one-line error with exit status 2 and nothing written. The file-system facts relied
+on are POSIX's (rename(2) replaces a directory entry and never follows a symbolic link at the
+destination; link(2) fails with EEXIST): common practice, no source.
+"""
 
 import errno
 import json

@@ -1,6 +1,7 @@
 """stobuilder relax end to end: the files by path (relaxed extxyz read back by ASE and by
 stobuilder, basis files identical to build's), strict JSON, exit status 1 when out of steps,
-and the bad-input contract (exit 2, one line, nothing written)."""
+and the bad-input contract (exit 2, one line, nothing written); output locations checked before
+the first SCF, an interrupted run keeps the finished structures, a zeta file applies as a library."""
 
 import os
 

@@ -1,4 +1,15 @@
-"""Reading structure files through ASE: formats, frames, charge/spin, ghosts, bad files."""
+"""Reading structure files through ASE: formats, frames, charge/spin, ghosts, bad files; bad
+geometry (atoms too close, coordinates not finite) is an error before any file; a free atom takes
+its ground state's spin.
+
+The extxyz comment-line keys ``charge``, ``spin`` (2S) and ``multiplicity`` (2S + 1) under
+fuzzing: every value ends in a clean InputError naming the file and the key (one line; from the
+command line: ``stobuilder: error: ...``, exit status 2, nothing written) or in the structure
+with exactly the number the file gives. The oracle is Python's decimal module (the exact value of
+the text written), independent of ASE's own parsing. Water has 10 electrons (Z = 8 + 1 + 1): a
+charge may lie in −10 … 9 (1 … 20 electrons), spin in 0 … electrons with the parity of the
+electron count (PySCF's rule that 2S and N have the same parity: common practice, no source).
+"""
 
 import contextlib
 import decimal
