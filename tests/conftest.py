@@ -37,3 +37,55 @@ def no_scf(monkeypatch):
     monkeypatch.setattr(checks, "solve", refuse)
     monkeypatch.setattr(hf.SCF, "kernel", refuse)
     monkeypatch.setattr(hf.SCF, "scf", refuse)
+
+
+@pytest.fixture()
+def threads(monkeypatch):
+    """The batch engine's local pool (bench's calculations, batch items) as one thread of this
+    process: fast, no spawned interpreter, and within reach of ``no_scf`` and monkeypatch."""
+    import concurrent.futures as cf
+
+    from stobuilder import batch
+
+    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+
+
+@pytest.fixture()
+def water(tmp_path):
+    """ASE's G2 water (ase.build.molecule) as tmp_path/in/water.xyz, a str path."""
+    from ase.build import molecule
+    from ase.io import write
+
+    path = tmp_path / "in" / "water.xyz"
+    path.parent.mkdir()
+    write(path, molecule("H2O"))  # ASE G2 geometry
+    return str(path)
+
+
+@pytest.fixture()
+def hydrogen(tmp_path):
+    """One H atom at the origin as tmp_path/h.xyz, a str path."""
+    path = tmp_path / "h.xyz"
+    path.write_text("1\n\nH 0.0 0.0 0.0\n")
+    return str(path)
+
+
+@pytest.fixture()
+def two(tmp_path):
+    """Two structure files, tmp_path/a.xyz (ASE G2 water) and tmp_path/b.xyz (ASE G2 ammonia), as Paths."""
+    from ase.build import molecule
+    from ase.io import write
+
+    a, b = tmp_path / "a.xyz", tmp_path / "b.xyz"
+    write(a, molecule("H2O"))  # ASE G2 geometries
+    write(b, molecule("NH3"))
+    return a, b
+
+
+@pytest.fixture()
+def big(tmp_path):
+    """5000 H atoms on a simple cubic lattice 1.5 Å apart (tmp_path/h5000.xyz, a Path): too big for
+    an SCF within the default memory limit."""
+    from support import h_lattice
+
+    return h_lattice(tmp_path / "h5000.xyz", 5000)

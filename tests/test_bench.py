@@ -1,5 +1,9 @@
 """stobuilder bench: agreement with PySCF's stored STO-3G, the experimental column, strict JSON,
-the report files, resume after a kill, failed SCFs, bad input.
+the report files, resume after a kill, failed SCFs, bad input; manifest records validated field
+by field and recomputed when bad, a manifest that is a symbolic link refused and an output that
+is one replaced, never written through; zeta files as libraries; structures given twice; a
+molecule or reference basis too big for the memory limit refused before any SCF. The published
+outputs themselves: test_bench_report.py.
 
 Outside references: PySCF's stored 'sto-3g' basis (Hehre, Stewart & Pople, J. Chem. Phys. 51,
 2657 (1969); PySCF: Sun et al., J. Chem. Phys. 153, 024109 (2020)) run here with PySCF's own
@@ -17,20 +21,20 @@ import json
 import os
 import re
 from html.parser import HTMLParser
-from pathlib import Path
 
 import pytest
 from ase.collections import g2
+from ase.build import molecule
 from ase.data import g2_1
+from ase.io import write
 
-from cli_run import assert_one_line_error, kill_when_done, run_cli
-from stobuilder import batch
 from stobuilder.bench import run as bench
+from support import assert_bad_input, assert_one_line_error, child_env, kill_when_done, run_cli, strict_json
 
 # Open and closed shells, first and second row, RHF and ROHF (spins from ASE's magnetic moments)
 SUBSET = ["CH4", "NH3", "H2O", "HF", "OH", "NH", "O2", "HCl", "SiH3", "PH2", "LiH", "CO"]
 
-# The row layout the issue fixes for --json (issue 13, "Outputs")
+# The row layout of --json
 ROW_KEYS = ["structure", "formula", "variant", "rule", "gaussians", "fit", "zeta_file", "spin", "energy_hartree",
             "converged", "atomization_kcal_mol", "experiment_atomization_kcal_mol", "reference_energy_hartree",
             "wall_seconds"]
@@ -41,13 +45,6 @@ ATOMS = {"H": (0, 0, 1, 0), "Li": (1, 0, 1, 0), "C": (1, 0, 2, 2), "N": (1, 0, 2
          "F": (1, 0, 2, 5), "Si": (2, 1, 2, 2), "P": (2, 1, 2, 3), "Cl": (2, 1, 2, 5)}
 
 HARTREE_KCAL_MOL = 627.509474  # kcal/mol per hartree, CODATA 2018 (value from memory)
-
-
-def _strict(text):
-    def bad(name):
-        raise ValueError(f"non-finite number {name} in JSON")
-
-    return json.loads(text, parse_constant=bad)
 
 
 @functools.lru_cache(maxsize=None)
@@ -102,12 +99,12 @@ def sto3g_run(tmp_path_factory):
         code = main(["bench", "--set", "g2-1", *SUBSET, "--rule", "molecular", "--gaussians", "3",
                      "--reference", "sto-3g", "--out", str(out), "--workers", "2", "--json", "--progress", "off"])
     assert code == 0, stderr.getvalue()
-    return out, _strict(stdout.getvalue())
+    return out, strict_json(stdout.getvalue())
 
 
 def test_molecular_sto3g_equals_pyscf_stored_sto3g(sto3g_run):
     # our fits are the exact least-squares optimum of the STO-3G exponents; PySCF's stored
-    # STO-3G (Hehre et al. 1969) differs slightly: energies within 5e-5 hartree (issue 13)
+    # STO-3G (Hehre et al. 1969) differs slightly: energies within 5e-5 hartree
     _, doc = sto3g_run
     rows = {r["structure"]: r for r in doc["rows"]}
     assert sorted(rows) == sorted(SUBSET)
@@ -158,7 +155,7 @@ def test_json_layout_and_files(sto3g_run):
     assert summary["mean_abs_atomization_error_kcal_mol"] == pytest.approx(sum(errors) / len(errors), rel=1e-12)
     # minimal-basis HF atomization energies are far from experiment (tens of kcal/mol on average)
     assert summary["mean_abs_atomization_error_kcal_mol"] > 10
-    assert _strict((out / "bench.json").read_text()) == doc
+    assert strict_json((out / "bench.json").read_text()) == doc
     for name in ("bench.tsv", "free_atoms.tsv", "bench.json", "report.html", "energy_error.png", "atomization.png"):
         assert (out / name).is_file(), name
     assert set(doc["files"]) == {"tsv", "atoms_tsv", "json", "report", "energy_plot", "atomization_plot"}
@@ -200,7 +197,7 @@ def _embedded(page):
 
 
 def test_report_is_self_contained_and_embeds_the_pngs(sto3g_run):
-    # the page alone shows its plots: each image is the PNG file beside it, embedded (issue 21 §5)
+    # the page alone shows its plots: each image is the PNG file beside it, embedded
     out, _ = sto3g_run
     page = (out / "report.html").read_text(encoding="utf-8")
     images = _embedded(page)
@@ -244,8 +241,8 @@ def test_resume_after_a_kill(tmp_path, capsys):
     code, stdout, err = run_cli(argv, capsys)
     assert code == 0, err
     assert _counts(stdout) == (12, 7, 5, 0)
-    again = _strict((out / "bench.json").read_text())
-    before = _strict(first["bench.json"].decode())
+    again = strict_json((out / "bench.json").read_text())
+    before = strict_json(first["bench.json"].decode())
     for a, b in zip(again["rows"], before["rows"]):
         assert a["structure"] == b["structure"] and a["variant"] == b["variant"]
         assert a["energy_hartree"] == pytest.approx(b["energy_hartree"], abs=1e-9)
@@ -254,11 +251,10 @@ def test_resume_after_a_kill(tmp_path, capsys):
     assert code == 0 and _counts(stdout)[1] == 12
 
 
-def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
+def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch, threads):
     # the calculations run in this process (a one-thread pool), so the fault can be injected
     from stobuilder.checks import structure as checks
 
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
     real = checks.solve
 
     def failing(mol, method, *args, **kwargs):
@@ -272,7 +268,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
     argv = ["bench", "--set", "g2-1", "CH4", "H2O", "--rule", "molecular", "--out", str(out), "--progress", "off"]
     code, stdout, err = run_cli(argv + ["--json"], capsys)
     assert code == 1, err
-    doc = _strict(stdout)
+    doc = strict_json(stdout)
     rows = {r["structure"]: r for r in doc["rows"]}
     assert rows["H2O"]["converged"] is False and rows["H2O"]["atomization_kcal_mol"] is None
     assert rows["CH4"]["converged"] is True and rows["CH4"]["atomization_kcal_mol"] is not None
@@ -369,10 +365,11 @@ def test_structure_files_on_a_callers_executor(tmp_path):
     assert _embedded(page) == []
     assert "No energy plot" in page and "No atomization plot" in page
     assert not (tmp_path / "out" / "atomization.png").exists() and not (tmp_path / "out" / "energy_error.png").exists()
-    files = _strict((tmp_path / "out" / "bench.json").read_text())["files"]
+    files = strict_json((tmp_path / "out" / "bench.json").read_text())["files"]
     assert "atomization_plot" not in files and "energy_plot" not in files
 
 
+@pytest.mark.slow
 def test_dask_executor_and_resume_across_engines(tmp_path):
     # the same bench on a Dask cluster (in-process workers, distributed's own scheduler), then
     # resumed on a thread pool: nothing is computed twice
@@ -388,6 +385,7 @@ def test_dask_executor_and_resume_across_engines(tmp_path):
     assert [r.energy_hartree for r in again.rows] == [r.energy_hartree for r in first.rows]
 
 
+@pytest.mark.slow
 def test_a_killed_bench_resumes_without_recomputing(tmp_path):
     # A real kill (SIGKILL of the bench and its worker at once, mid-run): the calculations the
     # manifest recorded are not computed again, the rest are, and the outputs come out whole.
@@ -395,9 +393,7 @@ def test_a_killed_bench_resumes_without_recomputing(tmp_path):
     import subprocess
     import sys
 
-    root = Path(__file__).resolve().parents[1]
-    env = dict(os.environ, OMP_NUM_THREADS="1")
-    env["PYTHONPATH"] = str(root) + os.pathsep + env.get("PYTHONPATH", "")
+    env = child_env()
     out = tmp_path / "run"
     manifest = out / bench.MANIFEST_NAME
     names = list(g2_1.molecule_names)[:30]
@@ -411,5 +407,217 @@ def test_a_killed_bench_resumes_without_recomputing(tmp_path):
     total, computed, taken, failed = _counts(rerun.stdout)
     assert failed == 0 and taken >= 5
     assert taken == survived and computed == total - survived
-    doc = _strict((out / "bench.json").read_text())
+    doc = strict_json((out / "bench.json").read_text())
     assert len(doc["rows"]) == len(names) and all(r["converged"] for r in doc["rows"])
+
+
+# ---------------------------------------------------------------------------- the size guard
+
+
+def test_bench_refuses_a_molecule_too_big_for_memory_before_any_scf(big, tmp_path, capsys, no_scf, threads,
+                                                                     monkeypatch):
+    # the bug: bench tried to allocate 60 GiB; the same estimate as relax and tune (test_checks.py)
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    out = tmp_path / "out"
+    code, _, err = run_cli(["bench", str(big), "--out", str(out), "--progress", "off"], capsys)
+    assert_bad_input(code, err, out, str(big), "5000 basis functions", "8,250 MB", "4,000 MB", "STOBUILDER_MAX_MEMORY")
+
+
+def test_bench_refuses_a_reference_basis_too_big_for_memory_before_any_scf(tmp_path, capsys, no_scf, threads,
+                                                                           monkeypatch):
+    # CH4 in cc-pVTZ: C 4s3p2d1f = 30 and H 3s2p1d = 14 spherical functions (Dunning, J. Chem. Phys. 90,
+    # 1007 (1989); value from memory), 86 in all: its integrals, 86⁴/1e6 = 54.7 MB, do not fit in
+    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.structure.scf_size);
+    # the minimal basis, 9 functions, fits (about 0.03 MB)
+    from stobuilder.checks.structure import scf_size
+
+    monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "20")
+    expected = scf_size(86, "RHF", 20.0)
+    assert not expected.incore
+    out = tmp_path / "out"
+    code, _, err = run_cli(["bench", "--set", "g2-1", "CH4", "--reference", "cc-pvtz", "--out", str(out), "--progress", "off"],
+                       capsys)
+    assert_bad_input(code, err, out, "CH4 in cc-pvtz", "86 basis functions", f"about {expected.memory_mb:,.0f} MB",
+                     "limit of 20 MB", "STOBUILDER_MAX_MEMORY")
+    assert scf_size(9, "RHF", 20.0).fits
+
+
+
+# ---------------------------------------------------------------------------- manifest records
+
+
+def _bench(tmp_path, capsys, *args, out="out"):
+    return run_cli(["bench", *args, "--out", str(tmp_path / out), "--progress", "off"], capsys)
+
+
+def _nan(record):
+    record["result"]["energy_hartree"] = float("nan")
+
+
+def _true_energy(record):
+    record["result"]["energy_hartree"] = True  # would be used as 1.0 hartree
+
+
+def _set(key, value):
+    def change(record):
+        record["result"][key] = value
+
+    return change
+
+
+def _top(key, value):
+    def change(record):
+        record[key] = value
+
+    return change
+
+
+def _not_converged_but_done(record):
+    record["result"]["converged"] = False
+
+
+FAULTS = {
+    "energy NaN": ("molecule", _nan),
+    "energy true": ("molecule", _true_energy),
+    "atom energy true": ("atom", _true_energy),
+    "converged 'yes'": ("molecule", _set("converged", "yes")),
+    "wall_seconds 'abc'": ("molecule", _set("wall_seconds", "abc")),
+    "wall_seconds negative": ("molecule", _set("wall_seconds", -1.0)),
+    "iterations 2.5": ("molecule", _set("iterations", 2.5)),
+    "iterations true": ("molecule", _set("iterations", True)),
+    "method 3": ("molecule", _set("method", 3)),
+    "error 5": ("molecule", _set("error", 5)),
+    "unknown result key": ("molecule", _set("surprise", 1)),
+    "unknown record key": ("molecule", _top("surprise", 1)),
+    "no finished_utc": ("molecule", lambda r: r.pop("finished_utc")),
+    "done but not converged": ("molecule", _not_converged_but_done),
+}
+
+
+@pytest.mark.parametrize("fault", list(FAULTS))
+def test_a_record_with_bad_values_is_reported_and_recomputed(tmp_path, capsys, threads, fault):
+    # LiH: free atoms H and Li, the molecule: 3 calculations
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    first = strict_json((tmp_path / "out" / "bench.json").read_text())
+    path = tmp_path / "out" / bench.MANIFEST_NAME
+    lines = path.read_text().splitlines()
+    kind, change = FAULTS[fault]
+    (number, record), = [(i, json.loads(x)) for i, x in enumerate(lines) if json.loads(x)["task"].startswith(kind + "|")
+                         and json.loads(x)["task"].endswith("|Li" if kind == "atom" else "|LiH")]
+    change(record)
+    lines[number] = json.dumps(record)  # NaN written as NaN, as a tampered or foreign line could hold
+    path.write_text("\n".join(lines) + "\n")
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    assert _counts(stdout) == (3, 1, 2, 0)  # only the bad record's calculation again
+    notes = [x for x in err.splitlines() if "unusable" in x]
+    assert len(notes) == 1 and f"line {number + 1}:" in notes[0], err
+    again = strict_json((tmp_path / "out" / "bench.json").read_text())
+    assert again["rows"][0]["energy_hartree"] == pytest.approx(first["rows"][0]["energy_hartree"], abs=1e-9)
+    assert again["rows"][0]["atomization_kcal_mol"] == pytest.approx(first["rows"][0]["atomization_kcal_mol"], abs=1e-6)
+    # and the run after that computes nothing (the bad line stays in the file and is noted again,
+    # as any unusable line is, until --force starts a fresh manifest)
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0 and _counts(stdout) == (3, 0, 3, 0)
+
+
+
+# ---------------------------------------------------------------------------- symbolic links
+
+
+def test_a_bench_manifest_that_is_a_symbolic_link_is_refused(tmp_path, capsys, threads):
+    outside = tmp_path / "precious.txt"
+    outside.write_text("not yours\n")
+    out = tmp_path / "out"
+    out.mkdir()
+    (out / bench.MANIFEST_NAME).symlink_to(outside)
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert_one_line_error(code, err)
+    assert "symbolic link" in err and bench.MANIFEST_NAME in err
+    assert outside.read_text() == "not yours\n"
+    assert sorted(os.listdir(out)) == [bench.MANIFEST_NAME]  # nothing computed, nothing written
+
+
+def test_an_output_that_is_a_symbolic_link_is_replaced_not_written_through(tmp_path, capsys, threads):
+    outside = tmp_path / "precious.txt"
+    outside.write_text("not yours\n")
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    tsv = tmp_path / "out" / "bench.tsv"
+    text = tsv.read_text()
+    tsv.unlink()
+    tsv.symlink_to(outside)
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH")
+    assert code == 0, err
+    assert outside.read_text() == "not yours\n"
+    assert not tsv.is_symlink() and tsv.read_text() == text
+
+
+
+# ---------------------------------------------------------------------------- zeta files
+
+
+def test_a_zeta_file_naming_no_element_of_the_structures_is_refused(tmp_path, capsys, threads):
+    zeta = tmp_path / "helium.toml"
+    zeta.write_text("[He]\n1s = 1.6875\n")  # 27/16, He's variational ζ (Zener 1930; value from memory)
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "--zeta-file", str(zeta))
+    assert_one_line_error(code, err)
+    assert str(zeta) in err and "names none of the structures' elements" in err and "He" in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_bench_zeta_file_takes_the_rule_and_words_of_every_door(tmp_path, capsys):
+    # the rule of build, relax, tune and batch (pipeline.check_zeta_elements): the command line
+    # names the flag, the Python door its argument; a file with no ζ in it is refused as well
+    from stobuilder.pipeline.options import OptionError
+
+    zeta = tmp_path / "helium.toml"
+    zeta.write_text("[He]\n1s = 1.6875\n")  # 27/16, He's variational ζ (Zener 1930; value from memory)
+    code, _, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "--zeta-file", str(zeta))
+    assert_one_line_error(code, err)
+    assert err.startswith(f"stobuilder: error: --zeta-file {zeta}: it names none of the structures' elements"), err
+    structures = bench.set_structures("g2-1", ["LiH"])
+    with pytest.raises(OptionError, match=f"^zeta_file {re.escape(str(zeta))}: it names none"):
+        bench.plan(structures, bench.make_variants(["slater"], [3], ["l2"], [str(zeta)]))
+    zeta.write_text("[H]\n")
+    code, _, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "--zeta-file", str(zeta))
+    assert_one_line_error(code, err)
+    assert f"--zeta-file {zeta}: it gives no ζ" in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_zeta_file_is_a_library(tmp_path, capsys, threads):
+    # [H] applies to LiH's H; [He] is unused, and editing it changes nothing: nothing recomputed
+    zeta = tmp_path / "lib.toml"
+    zeta.write_text("[H]\n1s = 1.24\n[He]\n1s = 1.6875\n")
+    args = ["--set", "g2-1", "LiH", "--zeta-file", str(zeta), "--json"]
+    code, stdout, err = _bench(tmp_path, capsys, *args)
+    assert code == 0, err
+    rows = {r["variant"]: r for r in strict_json(stdout[:stdout.rindex("}") + 1])["rows"]}
+    assert rows["slater N=3 l2"]["energy_hartree"] != rows["slater N=3 l2 +lib.toml"]["energy_hartree"]
+    zeta.write_text("[H]\n1s = 1.24\n[He]\n1s = 1.7\n")
+    code, stdout, err = _bench(tmp_path, capsys, *args[:-1])
+    assert code == 0 and _counts(stdout) == (6, 0, 6, 0), stdout
+
+
+
+# ---------------------------------------------------------------------------- given twice
+
+
+def test_a_structure_file_given_twice_is_refused(tmp_path, capsys, threads, monkeypatch):
+    write(tmp_path / "lih.xyz", molecule("LiH"))
+    monkeypatch.chdir(tmp_path)
+    for twice in (["lih.xyz", "lih.xyz"], ["lih.xyz", "./lih.xyz"], ["lih.xyz", str(tmp_path / "lih.xyz")]):
+        code, stdout, err = _bench(tmp_path, capsys, *twice)
+        assert_one_line_error(code, err)
+        assert "given twice" in err
+    assert not (tmp_path / "out").exists()
+
+
+def test_a_set_molecule_given_twice_is_refused(tmp_path, capsys, threads):
+    code, stdout, err = _bench(tmp_path, capsys, "--set", "g2-1", "LiH", "CH4", "LiH")
+    assert_one_line_error(code, err)
+    assert "'LiH'" in err and "given twice" in err
+    assert not (tmp_path / "out").exists()
+

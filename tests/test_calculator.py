@@ -1,6 +1,9 @@
 """STOCalculator (ASE calculator) and pyscf_mole against outside references: published STO-3G
 geometries, PySCF's stored sto-3g, central finite differences of the energy, PySCF's own
-dip_moment; and the bad-input contract."""
+dip_moment; and the bad-input contract: errors name the calculator's parameters, a zeta file is a
+library (its elements apply where they occur; one naming none of the molecule's is refused), a
+molecule too big for the memory limit is refused before its SCF, and any change of atoms.info
+gives what a fresh calculator gives."""
 
 import numpy as np
 import pytest
@@ -9,10 +12,13 @@ from ase.build import molecule
 from ase.calculators.calculator import Calculator, SCFError, all_changes
 from ase.optimize import BFGS
 from ase.units import Bohr, Debye, Hartree
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
 
 import stobuilder
 from stobuilder import InputError
 from stobuilder.calculator import STOCalculator
+from support import zeta_file
 
 @pytest.fixture(autouse=True)
 def _one_thread():
@@ -304,7 +310,7 @@ def fresh_energy(atoms, **params):
 
 
 def test_a_change_of_charge_or_spin_in_atoms_info_is_recomputed():
-    # issue 21: after a first energy, info.update(charge=1, spin=1) returned the neutral energy
+    # the bug: after a first energy, info.update(charge=1, spin=1) returned the neutral energy
     nh3 = molecule("NH3")
     nh3.calc = STOCalculator(gaussians=2)
     neutral = nh3.get_potential_energy()
@@ -347,7 +353,7 @@ def test_info_the_parameters_override_is_no_change_and_bad_info_is_an_error():
 
 
 def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(monkeypatch):
-    # issue 21: 4 threads on one calculator got another molecule's energy, or none
+    # the bug: 4 threads on one calculator got another molecule's energy, or none
     import sys
     import threading
     import time
@@ -433,3 +439,112 @@ def test_the_lock_does_not_stop_copying_or_pickling_a_calculator():
         atoms.calc = twin
         assert twin._lock is not h2.calc._lock
         assert abs(atoms.get_potential_energy() - energy) > 1e-4
+
+
+# ---------------------------------------------------------------------------- zeta files and parameters
+
+
+def test_the_calculator_takes_a_zeta_file_as_a_library(tmp_path):
+    from stobuilder.calculator import STOCalculator
+
+    library = zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n[H]\n1s = 1.24\n")  # C and N: not in H2O
+    atoms = molecule("H2O")  # ASE G2 geometry
+    atoms.calc = STOCalculator(zeta_file=library, zeta={"O": {"2p": 2.3}})
+    atoms.get_potential_energy()
+    stos = {(e.symbol, s.label): s.zeta for e in atoms.calc.basis.elements for s in e.stos}
+    assert stos[("H", "1s")] == 1.24 and stos[("O", "2p")] == 2.3 and atoms.calc.basis.symbols == ("H", "O")
+    mol = stobuilder.pyscf_mole(molecule("H2"), zeta_file=library)
+    assert mol._basis["H"] == stobuilder.build_basis(["H"], zeta={"H": {"1s": 1.24}})["H"].to_pyscf()
+
+
+def test_the_calculator_refuses_zeta_that_applies_to_nothing(tmp_path):
+    from stobuilder.calculator import STOCalculator
+
+    library = zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n")
+    for calc, words in ((STOCalculator(zeta_file=library), f"H2O: zeta_file {library}: it names none of the "
+                                                           "structures' elements (it names C, N; the structures have H, O)"),
+                        (STOCalculator(zeta={"C": {"2p": 1.7}}), "H2O: zeta names elements in no structure: C")):
+        atoms = molecule("H2O")
+        atoms.calc = calc
+        with pytest.raises(InputError) as info:
+            atoms.get_potential_energy()
+        assert str(info.value) == words
+    with pytest.raises(InputError) as info:
+        stobuilder.pyscf_mole(molecule("H2O"), zeta_file=library)
+    assert "it names none of the structures' elements" in str(info.value)
+
+
+@pytest.mark.parametrize("kwargs, words", [
+    ({"fit": "l3"}, "fit 'l3': unknown fitting norm"),
+    ({"gaussians": 13}, "gaussians must be <= 12"),
+    ({"zeta": {"H": {"1s": -1.0}}}, "zeta H:1s"),
+])
+def test_calculator_errors_name_the_calculator_parameters(kwargs, words):
+    from stobuilder.calculator import STOCalculator
+
+    with pytest.raises(InputError) as info:
+        STOCalculator(**kwargs)
+    assert str(info.value).startswith(words) and "--" not in str(info.value)
+    with pytest.raises(InputError) as info:
+        stobuilder.pyscf_mole(molecule("H2"), **kwargs)
+    assert str(info.value).startswith(words)
+
+
+
+# ---------------------------------------------------------------------------- the size guard
+
+
+def test_the_calculator_refuses_a_5000_atom_molecule_before_its_scf(big, no_scf, monkeypatch):
+    from ase.io import read
+
+    from stobuilder.calculator import STOCalculator
+
+    monkeypatch.delenv("STOBUILDER_MAX_MEMORY", raising=False)
+    atoms = read(str(big))
+    atoms.calc = STOCalculator()
+    with pytest.raises(InputError, match="5000 basis functions"):
+        atoms.get_potential_energy()
+
+
+
+# ---------------------------------------------------------------------------- atoms.info under fuzzing
+
+
+info_values = st.one_of(
+    st.none(), st.integers(-3, 4), st.floats(allow_nan=True, allow_infinity=True), st.booleans(),
+    st.sampled_from(["1", "two", "", "1.0", 10**40]),
+)
+
+
+@pytest.mark.slow
+@settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(charge=info_values, spin=info_values, multiplicity=info_values)
+def test_calculator_info_changes_give_a_fresh_calculators_answer(charge, spin, multiplicity):
+    """After a first energy, any change of atoms.info charge/spin/multiplicity gives
+    what a new calculator gives for the same atoms: the same energy, or the same InputError;
+    never the earlier molecule's energy. (common practice, no source)"""
+    from stobuilder import InputError
+    from stobuilder.calculator import STOCalculator
+
+    def answer(atoms, calc):
+        atoms.calc = calc
+        try:
+            return atoms.get_potential_energy()
+        except InputError as exc:
+            assert "\n" not in str(exc)
+            return "InputError"
+
+    h2 = molecule("H2")
+    calc = STOCalculator(gaussians=2)
+    answer(h2, calc)
+    for key, value in (("charge", charge), ("spin", spin), ("multiplicity", multiplicity)):
+        if value is not None:
+            h2.info[key] = value
+    got = answer(h2, calc)
+    event(f"calculator info {'error' if got == 'InputError' else 'energy'}")
+    fresh = answer(h2.copy(), STOCalculator(gaussians=2))
+    if "InputError" in (got, fresh):
+        assert got == fresh
+    else:  # eV; two SCFs converged to 1e-10 hartree agree far closer than this
+        assert abs(got - fresh) <= 1e-6
+

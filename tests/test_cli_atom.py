@@ -1,22 +1,17 @@
-"""`stobuilder atom`, user exponents on `build`, and the exact-STO atoms of `build --check`."""
+"""`stobuilder atom` (its JSON says whether each SCF converged), user exponents on `build`, and the
+exact-STO atoms of `build --check`."""
 
 import json
 
 import pytest
 
-from stobuilder.cli import main
+from support import run_cli
 
 BOHR = 0.52917721092  # ångström per bohr (CODATA 2010, as PySCF uses)
 
 
-def run(argv, capsys):
-    code = main(argv)
-    out, err = capsys.readouterr()
-    return code, out, err
-
-
 def test_atom_he_exact_variational_result(capsys):
-    code, out, err = run(["atom", "He", "--zeta", "1s=1.6875", "--gaussians", "3", "6", "--json"], capsys)
+    code, out, err = run_cli(["atom", "He", "--zeta", "1s=1.6875", "--gaussians", "3", "6", "--json"], capsys)
     assert code == 0, err
     doc = json.loads(out)
     # He with one 1s STO of ζ = 27/16: E = −(27/16)² = −2.84765625 hartree (textbook variational result).
@@ -28,7 +23,7 @@ def test_atom_he_exact_variational_result(capsys):
 
 
 def test_atom_optimize_carbon_clementi_raimondi(capsys):
-    code, out, err = run(["atom", "C", "--optimize", "--json"], capsys)
+    code, out, err = run_cli(["atom", "C", "--optimize", "--json"], capsys)
     assert code == 0, err
     doc = json.loads(out)
     # Clementi & Raimondi, J. Chem. Phys. 38, 2686 (1963): C 1s 5.6727, 2s 1.6083, 2p 1.5679,
@@ -40,7 +35,7 @@ def test_atom_optimize_carbon_clementi_raimondi(capsys):
 
 
 def test_atom_text_names_the_element_and_configuration_once(capsys):
-    code, out, err = run(["atom", "C"], capsys)
+    code, out, err = run_cli(["atom", "C"], capsys)
     assert code == 0, err
     first = out.splitlines()[0]
     # C ground configuration [He] 2s2 2p2 and its Hund's-rule ground term 3P (common practice, no source)
@@ -58,7 +53,7 @@ def test_atom_text_names_the_element_and_configuration_once(capsys):
     ],
 )
 def test_atom_bad_input(argv, named, capsys):
-    code, out, err = run(argv, capsys)
+    code, out, err = run_cli(argv, capsys)
     assert code == 2 and len(err.strip().splitlines()) == 1 and named in err and "Traceback" not in err
 
 
@@ -73,7 +68,7 @@ def test_build_with_zeta_file_gives_szabo_ostlund_h2(tmp_path, capsys):
     # Quantum Chemistry, 1989, §3.5.2).
     zfile = tmp_path / "zeta.toml"
     zfile.write_text("[H]\n1s = 1.24\n")
-    code, out, err = run(["build", str(_h2(tmp_path)), "--zeta-file", str(zfile), "--check", "--json", "--out", str(tmp_path / "o")], capsys)
+    code, out, err = run_cli(["build", str(_h2(tmp_path)), "--zeta-file", str(zfile), "--check", "--json", "--out", str(tmp_path / "o")], capsys)
     assert code == 0, err
     check = json.loads(out)["structures"][0]["check"]
     assert check["energy_hartree"] == pytest.approx(-1.1167, abs=5e-5)
@@ -86,7 +81,7 @@ def test_build_with_zeta_file_gives_szabo_ostlund_h2(tmp_path, capsys):
 def test_build_zeta_option_overrides_the_file(tmp_path, capsys):
     zfile = tmp_path / "zeta.toml"
     zfile.write_text("[H]\n1s = 1.0\n")
-    code, out, err = run(
+    code, out, err = run_cli(
         ["build", str(_h2(tmp_path)), "--zeta-file", str(zfile), "--zeta", "H:1s=1.24", "--json", "--out", str(tmp_path / "o")],
         capsys,
     )
@@ -106,7 +101,7 @@ def test_build_zeta_option_overrides_the_file(tmp_path, capsys):
 )
 def test_build_bad_zeta(tmp_path, capsys, extra, named):
     out_dir = tmp_path / "never"
-    code, out, err = run(["build", str(_h2(tmp_path)), "--out", str(out_dir), *extra], capsys)
+    code, out, err = run_cli(["build", str(_h2(tmp_path)), "--out", str(out_dir), *extra], capsys)
     assert code == 2 and named in err and len(err.strip().splitlines()) == 1
     assert not out_dir.exists()
 
@@ -121,3 +116,14 @@ def test_exact_atoms_leave_out_effective_n_stos():
     assert [a.symbol for a in exact_sto_atoms(effective, ["H", "K"])] == ["H"]
     integer = stobuilder.build_basis(["H", "K"])
     assert [a.symbol for a in exact_sto_atoms(integer, ["H", "K"])] == ["H", "K"]
+
+
+def test_atom_json_says_whether_the_scf_converged(capsys):
+    code, out, err = run_cli(["atom", "He", "--zeta", "1s=1.6875", "--gaussians", "3", "--json"], capsys)
+    assert code == 0, err
+    doc = json.loads(out)
+    assert doc["converged"] is True and doc["gaussian"][0]["converged"] is True
+    # He 1s² with ζ = 27/16: E = −(27/16)² = −2.84765625 hartree (the variational textbook result,
+    # e.g. I. N. Levine, Quantum Chemistry, 7th ed., 2014, sec. 9.4)
+    assert doc["energy_exact_hartree"] == pytest.approx(-(27 / 16) ** 2, abs=1e-10)
+

@@ -1,5 +1,6 @@
 """Gaussian expansions beyond STO-6G: N ≤ 12, the H¹ norm, unequal ζ in one exponent set, effective n*,
-the user fit cache, the build options and the fit command.
+the user fit cache (a tampered entry is never used: the build gives a clean cache's bytes), the
+build options and the fit command.
 
 References:
   [HSP69] W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969)
@@ -33,6 +34,8 @@ from stobuilder.expansion import fit_sto, library_families, lookup
 from stobuilder.expansion import library as L
 from sampled_residual import Problem, Target, gaussian_blocks
 from scalar_integrals import sto_gaussian_overlap
+from stored_tables import analyse
+from support import child_env
 from stobuilder.expansion.analytic import gaussian_overlap
 
 H_EXACT = -0.5  # hartree, exact non-relativistic H atom (physical law)
@@ -146,9 +149,6 @@ def test_error_falls_strictly_with_n_up_to_12(norm):
 def test_stored_stewart_errors_fall_with_n_and_ours_are_not_larger():
     """[S70]/[HSP69] as stored in PySCF (sto-3g.dat, sto-6g.dat): for every element and family in
     both files, ε(STO-6G) < ε(STO-3G), and our N = 3, 6 and N = 12 errors lie at or below them."""
-    sys.path.insert(0, os.path.dirname(__file__))
-    from test_expansion import analyse
-
     r3 = {(r["symbol"], r["fam"], r["ls"]): r for r in analyse("sto-3g.dat", 3) if not r["items"]}
     r6 = {(r["symbol"], r["fam"], r["ls"]): r for r in analyse("sto-6g.dat", 6) if not r["items"]}
     both = sorted(set(r3) & set(r6))
@@ -351,8 +351,7 @@ def test_on_demand_fits_go_to_the_cache_folder(tmp_path, monkeypatch):
 @pytest.mark.parametrize("part", ["exponents", "coefficients", "error", "all"])
 @pytest.mark.parametrize("checksum", ["kept", "recomputed"])
 def test_tampered_cache_entry_is_refitted(part, checksum, tmp_path, monkeypatch):
-    """Issue #21 §4: a cache entry whose numbers were scaled ×1.5 was used as it stood. Now the
-    entry carries a SHA-256 of itself and its numbers are re-evaluated on reading (normalised
+    """A cache entry whose numbers were scaled ×1.5 is not used as it stands: the entry carries a SHA-256 of itself and its numbers are re-evaluated on reading (normalised
     contraction, the optimum at its exponents, its error the objective there): a tampered entry
     is refitted and rewritten, with the checksum left as it was or recomputed to match."""
     monkeypatch.setenv(L.CACHE_ENV, str(tmp_path))
@@ -428,7 +427,7 @@ def test_cli_fit_table_json_and_plot(tmp_path):
     out = run_cli("fit", "2s,2p", "--gaussians", "3", "--zeta", "1.95")
     assert out.returncode == 0, out.stderr
     # [HSP69] 2s coefficient; the 2s term 2(1 − √q) of the objective measured (the 2s and 2p terms
-    # sum to 1.002649306e-3, which an independent quadrature fit of issue #22 found too)
+    # sum to 1.002649306e-3, which an independent quadrature fit found too, measured once)
     assert "-0.0999672" in out.stdout and "6.422900e-04" in out.stdout and "3.603593e-04" in out.stdout
     out = run_cli("fit", "1s", "--gaussians", "12", "--fit", "h1", "--json", "--plot", str(tmp_path / "f.png"))
     assert out.returncode == 0, out.stderr
@@ -456,3 +455,45 @@ def test_cli_build_fit_options(tmp_path):
     assert errors == {label: lookup(label, 3).error[label] for label in ("1s", "2s", "2p")}
     both = run_cli("build", str(xyz), "--shared-exponents", "--separate-fits", "--out", str(tmp_path / "c"))
     assert both.returncode == 2
+
+
+def _scaled_exponents(doc):
+    """Every exponent ×1.5 and the checksum made to match the edited entry."""
+    from stobuilder.expansion import library
+
+    doc["fit"]["exponents"] = [1.5 * a for a in doc["fit"]["exponents"]]
+    doc["sha256"] = library._entry_digest(doc["key"], doc["fit"])
+    return json.dumps(doc)
+
+
+def _edited_coefficient(doc):
+    """One coefficient changed, the checksum left as it was."""
+    doc["fit"]["coefficients"]["4s"][0] *= 1.01
+    return json.dumps(doc)
+
+
+@pytest.mark.parametrize("tamper", [_scaled_exponents, _edited_coefficient, lambda doc: "{ not json"])
+def test_a_tampered_fit_cache_gives_the_same_bytes_as_a_clean_one(tmp_path, tamper):
+    """K with --radial effective-n needs the 4s,4p fit at n* = 3.7 (Slater, Phys. Rev. 36, 57
+    (1930): n* = 3.7 for n = 4; value from memory), which no shipped library holds: it is fitted
+    on demand and cached in $STOBUILDER_CACHE_DIR/fits. Each build runs in a fresh process (no
+    fit memoised). A cache file edited after it was written is not used: the build gives the
+    bytes of a clean cache, and the file is rewritten as it was."""
+    structure = tmp_path / "k.xyz"
+    structure.write_text("1\n\nK 0 0 0\n")
+    env = child_env(STOBUILDER_CACHE_DIR=str(tmp_path / "cache"))
+
+    def build(out):
+        run = subprocess.run([sys.executable, "-m", "stobuilder.cli", "build", str(structure), "--radial", "effective-n",
+                              "--out", str(tmp_path / out)], capture_output=True, text=True, env=env, timeout=120)
+        assert run.returncode == 0, run.stderr
+        return (tmp_path / out / "k.nw").read_bytes()
+
+    clean = build("clean")
+    (entry,) = (tmp_path / "cache" / "fits").iterdir()
+    written = entry.read_bytes()
+    assert json.loads(written)["fit"]["n_eff"] == {"4s": 3.7, "4p": 3.7}
+    entry.write_text(tamper(json.loads(written)))
+    assert build("again") == clean
+    assert entry.read_bytes() == written
+

@@ -10,6 +10,10 @@ them, by readers the project did not write:
 - qcelemental's ``BasisSet`` model for the QCSchema JSON;
 - for Dalton and OpenMolcas, which no package reads, the layout readers in tests/layout_readers.py
   (written from the codes' manuals, sharing nothing with the package).
+
+Text from inputs that goes into a file's header (a rule name, a configuration, a note, a
+structure's file name) passes through stobuilder.core.limits.one_line: it cannot end the comment and
+become live content, and every reader above reads the file as if the text were plain.
 """
 
 import os
@@ -24,11 +28,14 @@ from gbasis.parsers import parse_gbs, parse_nwchem
 from hypothesis import HealthCheck, assume, given, settings
 from hypothesis import strategies as st
 from pyscf import gto, scf
+from ase.build import molecule
+from ase.io import write
 from pyscf.gto.basis import parse_gaussian
 from qcelemental.models import BasisSet
 
 import stobuilder
 import stobuilder.model.elements
+from stobuilder.cli import main
 from layout_readers import read_dalton, read_openmolcas
 from stobuilder.core.errors import InputError
 from stobuilder.pipeline.path import format_for_path
@@ -446,3 +453,66 @@ def test_random_bases_survive_our_reader(b, sp, code):
     back = stobuilder.read_basis(stobuilder.write_basis(b, code, sp), code)
     for e in b.elements:
         _same(back[e.symbol].to_pyscf(), e.to_pyscf(), rel=1e-15)
+
+
+# ---------------------------------------------------------------------------- text from inputs in file headers
+
+
+HOSTILE = "x\nEND\n****\nH S\n  1.0  1.0\r\nBASIS \"ao basis\"\u2028a 1\x85* Basis set\x1c$ \"q\"\\"
+
+
+def _hostile_basis():
+    from dataclasses import replace
+
+    import stobuilder
+
+    clean = replace(stobuilder.build_basis(["H", "O"]), notes=("a plain note",))
+    elements = tuple(replace(e, configuration=e.configuration + HOSTILE) for e in clean.elements)
+    return clean, replace(clean, elements=elements, rule="slater" + HOSTILE, notes=(HOSTILE,))
+
+
+@pytest.mark.parametrize("code", ["nwchem", "gaussian", "psi4", "cp2k", "pyscf", "dalton", "openmolcas", "qcschema"])
+def test_header_text_from_inputs_cannot_break_out_of_its_comment(code):
+    import stobuilder
+
+    clean, hostile = _hostile_basis()
+    text = stobuilder.write_basis(hostile, code)
+    # every line of the file is either a line of the clean file or a comment line of it, with the
+    # hostile text escaped inside (one line each: the same number of lines as the clean file)
+    assert len(text.splitlines()) == len(stobuilder.write_basis(clean, code).splitlines())
+    back = stobuilder.read_basis(text, code)
+    assert [e.shells for e in back.elements] == [e.shells for e in stobuilder.read_basis(
+        stobuilder.write_basis(clean, code), code).elements]
+
+
+@pytest.mark.parametrize("code", ["nwchem", "gaussian", "psi4", "cp2k", "pyscf", "dalton", "openmolcas", "qcschema"])
+def test_a_hostile_header_file_reads_the_same_in_the_host_and_second_readers(tmp_path, code):
+    # the host code's reader (PySCF's path loaders where it has one) and the independent second
+    # reader (above) read the whole file with the hostile header as the clean one
+    clean, hostile = _hostile_basis()
+    good, bad = write_file(tmp_path, clean, code, stem="clean"), write_file(tmp_path, hostile, code, stem="hostile")
+    for reader in (lambda path: host_reader(code, path, ["H", "O"]), lambda path: second_reader(code, path)):
+        want, got = reader(good), reader(bad)
+        assert sorted(got) == sorted(want) == ["H", "O"]
+        for symbol in want:
+            _same(got[symbol], want[symbol], rel=0)
+
+
+def test_a_structure_file_name_with_line_ends_and_terminators_builds_files_that_load(tmp_path, capsys):
+    import shutil
+
+    from pyscf import gto
+
+    name = "w\nEND\n****\r.xyz"
+    path = tmp_path / name
+    write(path, molecule("H2O"), format="xyz")  # ASE G2 water
+    out = tmp_path / "out"
+    code = main(["build", str(path), "--out", str(out)])
+    assert code == 0, capsys.readouterr().err
+    (written,) = os.listdir(out)
+    assert written == "w\nEND\n****\r.nw"
+    plain = tmp_path / "plain.nw"  # PySCF takes a text with line ends for basis text, not a path
+    shutil.copy(out / written, plain)
+    mol = gto.M(atom="O 0 0 0; H 0 0.76 0.59; H 0 -0.76 0.59", basis=str(plain), verbose=0)
+    assert sorted(mol._basis) == ["H", "O"]
+

@@ -14,7 +14,7 @@ except Zr–Cd, where the stored side carries named transcription defects
 - Zr: the exponents of its 5SP and valence D blocks are swapped
   (test_sto3g_zirconium_swapped_exponents).
 - Y: its blocks mix fits (test_sto3g_yttrium_mixed_fits); the molecular rule leaves Y out.
-Before issue #22 (our fits minimised Σ(1 − q), the unnormalised errors) every element from Li on
+When our fits minimised Σ(1 − q) (the unnormalised errors) every element from Li on
 differed by up to 5e-6 hartree, and the stored 2sp, [3s,3p,3d] and [4s,4p,4d] fits were wrongly
 taken for unconverged ones. The test proves that the named blocks, and nothing else, carry the
 Zr–Cd differences: with exactly those stored blocks put in place of ours the energies agree to
@@ -118,9 +118,9 @@ def _molecule_delta(name, gaussians):
     return energies[0] - energies[1]
 
 
-# Molecules with 2sp and 3sp shells, the ones most off before issue #22 (measured then: H2O
+# Molecules with 2sp and 3sp shells, the ones most off when our fits minimised Σ(1 − q) (measured then: H2O
 # +1.95e-6, O2 +3.8e-6, SH2 +5.4e-6, P2/Si2/S2 +1.1e-5, SiCl4 +2.7e-5 hartree). All 162 of g2,
-# measured once (issue #22): median |ΔE| 1.5e-8, max 2.9e-7 hartree (C2F4).
+# measured once: median |ΔE| 1.5e-8, max 2.9e-7 hartree (C2F4).
 STO3G_SAMPLE = ["H2O", "O2", "SH2", "P2", "Si2", "S2", "SiCl4", "CO", "LiF"]
 
 
@@ -130,7 +130,7 @@ def test_molecule_energy_against_stored_sto3g(name):
 
 
 # With N = 6 against PySCF's sto-6g: a sample with every element H–Ar that g2 holds (He, Ne, Mg,
-# Ar as free atoms below). All 162 of g2, measured once (issue #22): median |ΔE| 2.3e-10, the
+# Ar as free atoms below). All 162 of g2, measured once: median |ΔE| 2.3e-10, the
 # largest BF3 1.2e-6 and BCl3 1.1e-6 (boron, whose stored exponents scatter:
 # tests/test_expansion.py::test_sto6g_matches_stewart_closely), every other within 2e-9.
 STO6G_SAMPLE = ["LiF", "BeH", "CO", "N2", "NaCl", "AlF3", "SiH4", "PH3", "SH2"]

@@ -1,16 +1,15 @@
 """stobuilder relax end to end: the files by path (relaxed extxyz read back by ASE and by
 stobuilder, basis files identical to build's), strict JSON, exit status 1 when out of steps,
-and the bad-input contract (exit 2, one line, nothing written)."""
+and the bad-input contract (exit 2, one line, nothing written); output locations checked before
+the first SCF, an interrupted run keeps the finished structures, a zeta file applies as a library."""
 
-import json
 import os
-from pathlib import Path
 
 import numpy as np
 import pytest
 from ase.units import Hartree
 
-from cli_run import assert_one_line_error, read_only_folder, run_cli
+from support import assert_one_line_error, child_env, read_only_folder, run_cli, strict_json
 
 EXAMPLES = os.path.join(os.path.dirname(__file__), "..", "examples", "structures")
 AMMONIA = os.path.join(EXAMPLES, "ammonia.xyz")
@@ -24,13 +23,6 @@ def _one_thread():
 
     with lib.with_omp_threads(1):
         yield
-
-
-def strict_json(text):
-    def reject(name):
-        raise ValueError(f"non-finite number {name} in JSON")
-
-    return json.loads(text, parse_constant=reject)
 
 
 def test_relax_writes_relaxed_structures_and_basis_files(tmp_path, capsys):
@@ -177,7 +169,7 @@ def _listing(folder):
 
 @pytest.mark.parametrize("case", ["input file", "input file, --force", "under a file", "read-only"])
 def test_relax_refuses_a_bad_output_location_before_the_first_scf(tmp_path, capsys, no_scf, case):
-    # issue 21: each of these ran the whole relaxation, then exited 2
+    # the bug: each of these ran the whole relaxation, then exited 2
     h2 = tmp_path / "h2.xyz"
     h2.write_text(H2_TEXT)
     out = {"input file": h2, "input file, --force": h2, "under a file": h2 / "sub"}.get(case)
@@ -241,8 +233,9 @@ sys.exit(main(sys.argv[1:]))
 """
 
 
+@pytest.mark.slow
 def test_an_interrupted_relax_keeps_the_finished_structures_and_says_so(tmp_path):
-    # issue 21: SIGINT in the second of two molecules lost the converged first one
+    # the bug: SIGINT in the second of two molecules lost the converged first one
     import signal
     import subprocess
     import sys
@@ -255,8 +248,7 @@ def test_an_interrupted_relax_keeps_the_finished_structures_and_says_so(tmp_path
     second.write_text("3\n\nO 0 0 0\nH 0 0.80 0.55\nH 0 -0.75 0.62\n")
     out = tmp_path / "out"
     kept = out / "a_h2.relaxed.extxyz"
-    root = os.path.dirname(os.path.dirname(os.path.abspath(__file__)))
-    env = dict(os.environ, PYTHONPATH=root, OMP_NUM_THREADS="1")
+    env = child_env()
     proc = subprocess.Popen([sys.executable, "-c", INTERRUPTED_RUN, "relax", str(first), str(second), "--gaussians",
                              "2", "--out", str(out)], cwd=str(tmp_path), env=env, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True)
@@ -311,7 +303,7 @@ def test_text_from_the_input_cannot_break_out_of_the_extxyz_or_the_progress_line
      ("1e999999999", "out of range")],
 )
 def test_relax_steps_flag_says_the_range_or_not_a_whole_number(tmp_path, capsys, value, needle):
-    # issue 21: --steps 1e9 said "not a whole number"; it is one, out of range
+    # the bug: --steps 1e9 said "not a whole number"; it is one, out of range
     out = tmp_path / "out"
     code, _, err = run_cli(["relax", AMMONIA, "--steps", value, "--out", str(out)], capsys)
     assert_one_line_error(code, err)
@@ -375,3 +367,15 @@ def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_pa
         worker.join(30)  # the worker ends at its next step and writes nothing more
         assert not worker.is_alive()
     assert sorted(os.listdir(out)) == ["a.nw", "a.relaxed.extxyz"]
+
+
+def test_relax_applies_a_zeta_library_file(tmp_path, capsys):
+    h2 = tmp_path / "h2.xyz"
+    h2.write_text("2\n\nH 0 0 0\nH 0 0 0.74\n")
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[H]\n1s = 1.24\n")
+    code, out, err = run_cli(["relax", str(h2), "--zeta-file", str(library), "--out", str(tmp_path / "out"), "--json"],
+                          capsys)
+    assert code == 0, err
+    assert "1s 1.240000" in (tmp_path / "out" / "h2.nw").read_text()
+

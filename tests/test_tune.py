@@ -1,27 +1,46 @@
 """stobuilder tune: ζ that minimise SCF energies, checked against published exponents, against
 independent scalar minimisations on PySCF's own stored STO-3G, and against the scaling identity
-of the molecular virial theorem (for the central-difference gradients)."""
+of the molecular virial theorem (for the central-difference gradients); and tune at its edges:
+weights that differ by a common factor, a ζ held by a bound of the search, file names that try to
+become TOML, output locations checked before the first SCF, a structure given twice, an
+interrupted run, and hostile names, weights, starts and targets under fuzzing. H2 with two
+Gaussians per STO keeps the edge cases fast."""
 
 import json
 import os
+import signal
+import subprocess
+import sys
+import tempfile
+import time
+import tomllib
+from unittest import mock
 
 import numpy as np
 import pytest
+from hypothesis import HealthCheck, event, given, settings
+from hypothesis import strategies as st
 from pyscf import gto, scf
 from pyscf.gto.basis import load
 from pyscf.data.nist import BOHR
 from scipy.optimize import minimize_scalar
 
-from cli_run import assert_one_line_error, run_cli
 from stobuilder.checks import structure as checks
 from stobuilder.builder.construct import build_basis
 from stobuilder.pipeline.options import BuildOptions, load_zeta_file
-from stobuilder.tune import default_variables, energy_gradient, parse_vary
+from stobuilder.core.errors import InputError
+from stobuilder.tune import default_variables, energy_gradient, parse_vary, tune
+from support import assert_one_line_error, child_env, run_cli, run_in_threads
 
 # Standard molecular valence ζ(2s) = ζ(2p) of the published STO-3G, bohr⁻¹
 # (W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969), Table I).
 PUBLISHED = {"C": 1.72, "N": 1.95, "O": 2.25, "F": 2.55}
 MOLECULES = {"C": "CH4", "N": "NH3", "O": "H2O", "F": "HF"}
+N = ["--gaussians", "2", "--threads", "1"]
+# GRADIENT_TOL = 1e-5 hartree at a curvature d²E/d(ln ζ)² ≳ 0.5 hartree (H2, the estimate in
+# test below) puts each search within ~2e-5 of the optimum in ln ζ: two searches agree to 1e-4
+# (estimate, common practice, no source)
+SAME = 1e-4
 
 
 @pytest.fixture(autouse=True)
@@ -45,11 +64,17 @@ def _write_molecule(folder, name):
     return path
 
 
-def _write_h2(folder, r_bohr=1.4):
-    path = os.path.join(folder, "h2.xyz")
+def _h2(folder, name="h2.xyz", r_bohr=1.4):
+    path = os.path.join(folder, name)
     with open(path, "w") as fh:
         fh.write(f"2\n\nH 0 0 0\nH 0 0 {r_bohr * BOHR:.12f}\n")
     return path
+
+
+def _tune(capsys, *argv, status=0):
+    code, out, err = run_cli(["tune", *argv, *N, "--json"], capsys)
+    assert code == status, err
+    return json.loads(out, parse_constant=lambda c: pytest.fail(f"non-finite JSON number {c}")), err
 
 
 def _pyscf_energy(atoms, basis):
@@ -95,7 +120,7 @@ def _tune_json(capsys, *argv):
 
 
 def test_h2_zeta_is_the_minimal_basis_optimum_and_the_file_is_deterministic(tmp_path, capsys):
-    h2 = _write_h2(tmp_path)
+    h2 = _h2(tmp_path)
     ch4 = _write_molecule(tmp_path, "CH4")
     out = str(tmp_path / "h.toml")
     doc = _tune_json(capsys, h2, "--rule", "molecular", "--gaussians", "3", "--vary", "H:1s", "--out", out,
@@ -225,7 +250,7 @@ def test_weight_two_is_the_structure_counted_twice(tmp_path, capsys):
     """Σ w E with w = 2 for one structure is the same sum with a copy of that structure in a
     second file (the definition of the weighted objective; common practice, no source). The
     same file given twice is refused (test_tune_edges.py)."""
-    h2, hf = _write_h2(tmp_path), _write_molecule(tmp_path, "HF")
+    h2, hf = _h2(tmp_path), _write_molecule(tmp_path, "HF")
     copy = tmp_path / "h2-copy.xyz"
     copy.write_bytes(open(h2, "rb").read())
     weights = tmp_path / "w.toml"
@@ -338,3 +363,368 @@ def test_free_atom_with_every_zeta_free_obeys_the_virial_theorem(tmp_path, capsy
     # 2T + V = Σ dE/d ln ζ: each |component| ≤ 1e-5 hartree at the end of the search, plus
     # ≲ 1e-5 from rounding ζ to 6 decimals (E'' ≈ 2T₁ₛ ≈ 100 hartree times Δ ln ζ₁ₛ ≈ 7e-8)
     assert 2 * kinetic + (energy - kinetic) == pytest.approx(0.0, abs=3e-5)
+
+
+# ---------------------------------------------------------------------------- weights that differ by a common factor
+
+
+@pytest.mark.parametrize("scale", [1e-6, 1e6])
+def test_a_common_factor_of_the_weights_changes_nothing(tmp_path, capsys, scale):
+    """argmin c·f = argmin f for c > 0 (the definition of a minimum): weights ×1e-6 and ×1e6 give
+    the ζ of weights ×1, converged, with the same weights (scaled to mean 1) reported."""
+    a, b = _h2(tmp_path, "short.xyz", 1.4), _h2(tmp_path, "long.xyz", 2.0)
+
+    def run(factor, name):
+        w = tmp_path / f"{name}.w.toml"
+        w.write_text(f"short = {1.0 * factor!r}\nlong = {3.0 * factor!r}\n")
+        doc, _ = _tune(capsys, a, b, "--weights", str(w), "--out", str(tmp_path / f"{name}.toml"))
+        return doc
+
+    ref, scaled = run(1.0, "one"), run(scale, "scaled")
+    assert ref["converged"] is True and scaled["converged"] is True, scaled["message"]
+    assert scaled["zeta"]["H"]["1s"] == pytest.approx(ref["zeta"]["H"]["1s"], abs=SAME)
+    assert [r["weight"] for r in scaled["energies"]] == pytest.approx([0.5, 1.5], rel=1e-12)
+
+
+def test_one_structure_with_a_tiny_weight_is_still_tuned(tmp_path, capsys):
+    """A weight of 1e-6 on the only structure: the search still runs (it used to stop at once at the start ζ)."""
+    h2 = _h2(tmp_path)
+    w = tmp_path / "w.toml"
+    w.write_text("h2 = 1e-6\n")
+    plain, _ = _tune(capsys, h2, "--out", str(tmp_path / "a.toml"))
+    tiny, _ = _tune(capsys, h2, "--weights", str(w), "--out", str(tmp_path / "b.toml"))
+    assert tiny["converged"] is True and tiny["iterations"] > 0
+    assert tiny["zeta"]["H"]["1s"] == pytest.approx(plain["zeta"]["H"]["1s"], abs=SAME)
+    # one structure: its weight scaled to mean 1 is 1, so the two files agree byte for byte
+    assert (tmp_path / "a.toml").read_bytes() == (tmp_path / "b.toml").read_bytes()
+    # the single-ζ minimal-basis optimum of H2 at R = 1.4 bohr, 1.197 for the true STO
+    # (C. A. Coulson, Trans. Faraday Soc. 33, 1479 (1937)); two Gaussians shift it a little
+    assert abs(plain["zeta"]["H"]["1s"] - 1.197) < 0.01
+
+
+# ---------------------------------------------------------------------------- a ζ held by a bound of the search
+
+
+def test_a_start_far_from_the_optimum_recentres_the_search(tmp_path, capsys):
+    """--zeta H:1s=0.4: the optimum (≈ 1.2) lies beyond the first round's range [0.2, 0.8]; the
+    search goes on from 0.8 and reaches it, and only then calls the run converged."""
+    h2 = _h2(tmp_path)
+    ref, _ = _tune(capsys, h2, "--out", str(tmp_path / "ref.toml"))
+    far, err = _tune(capsys, h2, "--zeta", "H:1s=0.4", "--out", str(tmp_path / "far.toml"))
+    assert far["start_zeta"] == {"H": {"1s": 0.4}}
+    assert far["zeta"]["H"]["1s"] == pytest.approx(ref["zeta"]["H"]["1s"], abs=SAME)
+    assert far["converged"] is True and far["at_bound"] == {"H": {"1s": False}}
+    assert "re-centred" in err
+
+
+def test_a_zeta_held_by_the_global_limit_is_not_converged(tmp_path, capsys, monkeypatch):
+    """With the largest ζ allowed lowered to 0.9 bohr⁻¹, below H2's optimum (≈ 1.2, Coulson
+    1937), the search ends on that limit: reported per ζ in the JSON, in the file's header, in
+    the table and by exit status 1."""
+    import stobuilder.tune as tune_module
+
+    monkeypatch.setattr(tune_module, "ZETA_MAX", 0.9)
+    h2 = _h2(tmp_path)
+    out = tmp_path / "z.toml"
+    doc, _ = _tune(capsys, h2, "--zeta", "H:1s=0.6", "--out", str(out), status=1)
+    assert doc["converged"] is False and doc["at_bound"] == {"H": {"1s": True}}
+    assert doc["zeta"] == {"H": {"1s": 0.9}} and "held by a bound" in doc["message"]
+    text = out.read_text(encoding="utf-8")
+    assert "converged: NO" in text and "# held by a bound of the search range (not an optimum): H:1s" in text
+    assert load_zeta_file(str(out)) == doc["zeta"]
+    code, table, _ = run_cli(["tune", h2, "--zeta", "H:1s=0.6", "--out", str(out), "--force", *N], capsys)
+    assert code == 1 and "NOT CONVERGED" in table and "held by a bound" in table
+    # the Python API says the same
+    result = tune([h2], tune_module.BuildOptions(gaussians=2, zeta={"H": {"1s": 0.6}}))
+    assert result.at_bounds == ("H:1s",) and not result.converged
+
+
+def test_iterations_running_out_on_a_bound_is_not_converged(tmp_path):
+    """One iteration from ζ = 0.4 ends on the first round's bound 0.8, below the optimum (≈ 1.2,
+    Coulson 1937): held by a bound, not converged, and the message says why."""
+    from stobuilder.pipeline.options import BuildOptions
+
+    result = tune([_h2(tmp_path)], BuildOptions(gaussians=2, zeta={"H": {"1s": 0.4}}), max_iterations=1)
+    assert result.final == (0.8,) and result.at_bounds == ("H:1s",) and not result.converged
+    assert "iteration limit" in result.message
+    with pytest.raises(InputError, match="max_iterations"):
+        tune([_h2(tmp_path)], max_iterations=-1)
+
+
+# ---------------------------------------------------------------------------- file names that try to become TOML
+
+
+def test_a_file_name_cannot_become_toml_entries(tmp_path, capsys):
+    """A structure file named "h2\\n[He]\\n1s = 5.0\\n.xyz": its name goes into the zeta file's
+    comment as one line; the file holds H only and build --zeta-file applies nothing to He."""
+    hostile = _h2(tmp_path, "h2\n[He]\n1s = 5.0\n.xyz")
+    out = tmp_path / "z.toml"
+    code, table, err = run_cli(["tune", hostile, "--out", str(out), *N], capsys)
+    assert code == 0, err
+    doc = tomllib.loads(out.read_text(encoding="utf-8"))
+    assert set(doc) == {"H"} and set(doc["H"]) == {"1s"}
+    assert all(line.startswith("#") for line in out.read_text(encoding="utf-8").split("\n[H]\n")[0].splitlines())
+    assert "[He]" not in table.splitlines() and "1s = 5.0" not in table.splitlines()
+    he = tmp_path / "he.xyz"
+    he.write_text("1\n\nHe 0 0 0\n")
+    plain, tuned = tmp_path / "plain", tmp_path / "tuned"
+    for folder, extra in ((plain, []), (tuned, ["--zeta-file", str(out)])):
+        code, _, err = run_cli(["build", _h2(tmp_path), str(he), "--out", str(folder), *extra], capsys)
+        assert code == 0, err
+    assert (plain / "he.nw").read_bytes() == (tuned / "he.nw").read_bytes()
+    assert (plain / "h2.nw").read_bytes() != (tuned / "h2.nw").read_bytes()  # H's tuned ζ is applied
+
+
+# ---------------------------------------------------------------------------- output locations, checked before the first SCF
+
+
+def _sys_target():
+    if not os.path.isdir("/sys/kernel"):
+        pytest.skip("no /sys: a location no one may create a file in")
+    return "/sys/kernel/tuned-zeta.toml"
+
+
+@pytest.mark.parametrize(
+    "where, needle",
+    [
+        ("nodir/sub/x.toml", "does not exist"),
+        ("existing.toml", "use --force"),
+        ("afile/x.toml", "is not a folder"),
+        ("folder", "is a folder"),
+        ("SYS", "cannot write there"),
+    ],
+)
+def test_the_output_location_is_checked_before_any_scf(tmp_path, capsys, where, needle, no_scf):
+    h2 = _h2(tmp_path)
+    (tmp_path / "existing.toml").write_text("# mine\n")
+    (tmp_path / "afile").write_text("x\n")
+    (tmp_path / "folder").mkdir()
+    target = _sys_target() if where == "SYS" else str(tmp_path / where)
+    before = sorted(os.listdir(tmp_path))
+    code, _, err = run_cli(["tune", h2, "--out", target, *N], capsys)
+    assert_one_line_error(code, err)
+    assert "--out" in err and needle in err
+    assert sorted(os.listdir(tmp_path)) == before and (tmp_path / "existing.toml").read_text() == "# mine\n"
+
+
+def test_an_input_is_never_the_output_even_with_force(tmp_path, capsys, no_scf):
+    h2 = _h2(tmp_path)
+    weights = tmp_path / "w.toml"
+    weights.write_text("h2 = 1\n")
+    before = {p: open(p, "rb").read() for p in (h2, str(weights))}
+    for target in before:
+        code, _, err = run_cli(["tune", h2, "--weights", str(weights), "--out", target, "--force", *N], capsys)
+        assert_one_line_error(code, err)
+        assert "is the input" in err
+    assert {p: open(p, "rb").read() for p in before} == before
+
+
+@pytest.mark.skipif(os.geteuid() == 0, reason="root may write into a read-only folder")
+def test_a_read_only_folder_is_refused_before_any_scf(tmp_path, capsys, no_scf):
+    h2 = _h2(tmp_path)
+    locked = tmp_path / "locked"
+    locked.mkdir()
+    locked.chmod(0o555)
+    try:
+        code, _, err = run_cli(["tune", h2, "--out", str(locked / "z.toml"), *N], capsys)
+    finally:
+        locked.chmod(0o755)
+    assert_one_line_error(code, err)
+    assert "cannot write there" in err and os.listdir(locked) == []
+
+
+# ---------------------------------------------------------------------------- a structure given twice
+
+
+def test_a_structure_given_twice_is_refused(tmp_path, capsys, no_scf):
+    """As bench ("given twice") and relax (two structures writing one file) refuse it; a weight
+    of 2 is the way to count a structure twice."""
+    h2 = _h2(tmp_path)
+    link = tmp_path / "link.xyz"
+    link.symlink_to(h2)
+    for second in (h2, os.path.join(str(tmp_path), ".", "h2.xyz"), str(link)):
+        code, _, err = run_cli(["tune", h2, second, "--out", str(tmp_path / "z.toml"), *N], capsys)
+        assert_one_line_error(code, err)
+        assert "given twice as a training structure" in err and "weight of 2" in err
+    code, _, err = run_cli(["tune", h2, "--validate", str(link), str(link), "--out", str(tmp_path / "z.toml"), *N],
+                           capsys)
+    assert_one_line_error(code, err)
+    assert "given twice as a held-out structure" in err
+    with pytest.raises(InputError, match="given twice"):
+        tune([h2, h2])
+    assert not (tmp_path / "z.toml").exists()
+
+
+# ---------------------------------------------------------------------------- ζ of the options
+
+
+@pytest.mark.parametrize("argv, words", [
+    (["--zeta", "C:2p=1.0"], "--zeta names elements in no structure: C"),
+    (["--zeta-file", "LIB"], "--zeta-file LIB: it names none of the structures' elements (it names C, O;"),
+])
+def test_zeta_naming_no_training_element_is_refused_before_any_scf(tmp_path, capsys, argv, words, no_scf):
+    """The typo guard of build and relax (``pipeline.check_zeta_elements``): tune ignored them."""
+    h2 = _h2(tmp_path)
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[O]\n2p = 2.3\n")
+    argv = [a.replace("LIB", str(library)) for a in argv]
+    code, _, err = run_cli(["tune", h2, *argv, "--out", str(tmp_path / "z.toml"), *N], capsys)
+    assert_one_line_error(code, err)
+    assert words.replace("LIB", str(library)) in err, err
+    assert not (tmp_path / "z.toml").exists()
+
+
+def test_the_zeta_file_keeps_the_fixed_zeta_and_gives_the_energies_it_reports(tmp_path, capsys):
+    """Li (1s² 2s, ROHF) with its 1s fixed by --zeta and a library from --zeta-file: the file tune
+    writes holds the tuned 2s,2p, the fixed 1s and the library's unused [C], and build --check
+    with that file alone gives the tuned energy tune reports (the same basis, the same SCF)."""
+    li = tmp_path / "li.xyz"
+    li.write_text("1\n\nLi 0 0 0\n")
+    library = tmp_path / "lib.toml"
+    library.write_text("[C]\n2p = 1.7\n[Li]\n2s = 0.9\n")
+    out = tmp_path / "z.toml"
+    doc, _ = _tune(capsys, str(li), "--zeta", "Li:1s=2.6", "--zeta-file", str(library), "--vary", "Li:2s,2p",
+                   "--out", str(out))
+    tuned = doc["zeta"]["Li"]
+    assert doc["fixed_zeta"] == {"Li": {"1s": 2.6}, "C": {"2p": 1.7}}
+    assert load_zeta_file(str(out)) == {"Li": {**tuned, "1s": 2.6}, "C": {"2p": 1.7}}
+    text = out.read_text(encoding="utf-8")
+    assert "1s = 2.6  # fixed: your own ζ" in text and "2p = 1.7  # fixed: zeta file" in text and str(library) in text
+    code, report, err = run_cli(["build", str(li), "--gaussians", "2", "--zeta-file", str(out), "--check", "--json",
+                                 "--out", str(tmp_path / "basis")], capsys)
+    assert code == 0, err
+    check = json.loads(report)["structures"][0]["check"]
+    # both SCFs converged to 1e-9 hartree or better (PySCF's default conv_tol; tune's 1e-11)
+    assert check["energy_hartree"] == pytest.approx(doc["energies"][0]["final_hartree"], abs=1e-8)
+
+
+# ---------------------------------------------------------------------------- an interrupted run
+
+
+@pytest.mark.slow
+def test_sigint_is_one_line_exit_130_and_leaves_nothing(tmp_path):
+    """SIGINT during the search: "stobuilder: interrupted", exit 130 (128 + SIGINT, the shell's
+    convention), no zeta file and no temporary file (nothing finished: a search is one result)."""
+    import ase.build
+    import ase.io
+
+    path = str(tmp_path / "h2o.xyz")
+    ase.io.write(path, ase.build.molecule("H2O"))
+    env = child_env()
+    code = "import sys; from stobuilder.cli import main; sys.exit(main(sys.argv[1:]))"
+    proc = subprocess.Popen([sys.executable, "-c", code, "tune", path, "--out", "z.toml", "--threads", "1"],
+                            cwd=str(tmp_path), env=env, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    seen = []
+    deadline = time.monotonic() + 120
+    while time.monotonic() < deadline:  # wait for the first progress line: the search has begun
+        line = proc.stderr.readline()
+        if not line:
+            break
+        seen.append(line)
+        if "iteration 0" in line:
+            proc.send_signal(signal.SIGINT)
+            break
+    out, rest = proc.communicate(timeout=120)
+    err = "".join(seen) + rest
+    assert "iteration 0" in err, err
+    assert proc.returncode == 130, err
+    assert err.splitlines()[-1] == "stobuilder: interrupted" and "Traceback" not in err
+    assert os.listdir(tmp_path) == ["h2o.xyz"]
+
+
+# ---------------------------------------------------------------------------- hostile names, weights, starts and targets under fuzzing
+
+
+_TUNE_H2 = "2\n\nH 0 0 0\nH 0 0 0.7408\n"  # R = 1.4 bohr (0.7408 Å; value from memory)
+
+
+def _toml_key(text):
+    """``text`` as a TOML basic-string key: every character TOML forbids raw (controls, DEL) and
+    the quote and backslash as \\uXXXX (TOML 1.0, basic strings)."""
+    return '"' + "".join(f"\\u{ord(c):04x}" if ord(c) < 0x20 or c in '\x7f"\\' else c for c in text) + '"'
+
+
+def _tune_reference_zeta():
+    """H2's tuned ζ with unit weights, the rule's start and a plain file name (computed once)."""
+    import tomllib
+
+    if not hasattr(_tune_reference_zeta, "value"):
+        with tempfile.TemporaryDirectory() as folder:
+            path = os.path.join(folder, "h2.xyz")
+            with open(path, "w") as handle:
+                handle.write(_TUNE_H2)
+            out = os.path.join(folder, "z.toml")
+            code, message = run_in_threads(["tune", path, "--gaussians", "1", "--threads", "1", "--out", out])
+            assert code == 0, message
+            with open(out, "rb") as handle:
+                _tune_reference_zeta.value = tomllib.load(handle)["H"]["1s"]
+    return _tune_reference_zeta.value
+
+
+@pytest.mark.slow
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(
+    name=st.text(st.characters(blacklist_characters="/\x00", blacklist_categories=("Cs",)), min_size=1, max_size=16),
+    scale=st.one_of(st.just(None), st.integers(-300, 300).map(lambda k: 10.0**k)),
+    start=st.one_of(st.just(None), st.floats(min_value=0.002, max_value=900)),
+    where=st.sampled_from(["plain"] * 4 + ["missing-folder", "file-as-folder", "existing", "twice"]),
+)
+def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name, scale, start, where):
+    """tune on H2 under a hostile file name, a common factor of the weights from 1e-300 to
+    1e300, a start ζ anywhere in the allowed range and bad --out targets: exit 0 with a zeta file
+    that holds H only (no name becomes an entry) and the ζ of the plain run (argmin c·f = argmin f;
+    the search re-centres until the optimum is reached), or exit 2 with one error line, no SCF
+    run and nothing written. (common practice, no source)"""
+    import tomllib
+
+    from stobuilder.checks import structure as checks
+
+    reference = _tune_reference_zeta()
+    with tempfile.TemporaryDirectory() as folder:
+        inputs = os.path.join(folder, "in")
+        os.mkdir(inputs)
+        path = os.path.join(inputs, name + ".xyz")
+        try:
+            with open(path, "w") as handle:
+                handle.write(_TUNE_H2)
+        except OSError:  # a name the file system refuses (too long in bytes)
+            return
+        out_dir = os.path.join(folder, "out")
+        os.mkdir(out_dir)
+        out = {"missing-folder": os.path.join(out_dir, "no", "z.toml"),
+               "file-as-folder": os.path.join(inputs, name + ".xyz", "z.toml")}.get(where, os.path.join(out_dir, "z.toml"))
+        if where == "existing":
+            with open(out, "w") as handle:
+                handle.write("# mine\n")
+        argv = ["tune", path] + ([path] if where == "twice" else []) + ["--gaussians", "1", "--threads", "1", "--out", out]
+        if scale is not None:
+            weights = os.path.join(folder, "w.toml")
+            with open(weights, "w", encoding="utf-8") as handle:
+                handle.write(f"{_toml_key(name + '.xyz')} = {scale!r}\n")
+            argv += ["--weights", weights]
+        if start is not None:
+            argv.append(f"--zeta=H:1s={start!r}")
+        scf_runs = {"n": 0}
+        real_solve = checks.solve
+
+        def counting_solve(*args, **kwargs):
+            scf_runs["n"] += 1
+            return real_solve(*args, **kwargs)
+
+        with mock.patch.object(checks, "solve", counting_solve):
+            code, message = run_in_threads(argv)
+        event(f"tune {where} exit {code}")
+        assert "Traceback" not in message
+        if where == "plain":
+            assert code == 0, (argv, message)
+            with open(out, "rb") as handle:
+                doc = tomllib.load(handle)
+            assert set(doc) == {"H"} and set(doc["H"]) == {"1s"}, doc
+            # each search stops within ~1e-4 of the optimum in ln ζ (SAME, above)
+            assert abs(doc["H"]["1s"] - reference) <= 1e-4 * reference, (argv, doc)
+        else:
+            assert code == 2 and scf_runs["n"] == 0, (argv, message)
+            errors = [line for line in message.splitlines() if line.startswith("stobuilder: error: ")]
+            assert len(errors) == 1 and message.endswith(errors[0] + "\n"), message
+            assert os.listdir(out_dir) == (["z.toml"] if where == "existing" else []), os.listdir(out_dir)
+

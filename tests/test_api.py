@@ -1,24 +1,16 @@
-"""The Python API's arguments (issue 16, class 6): every public function checks them at its entry.
+"""The Python API's argument contract: every public function checks its arguments at its entry.
 A wrong type raises TypeError naming the argument; a value of the right type that cannot be
 meant (a fractional charge) raises InputError naming it; a string is never read as the sequence
-of its characters. Nothing is silently coerced or truncated.
+of its characters. Nothing is silently coerced or truncated, and the Python door's errors name
+Python arguments, never command-line flags.
 """
 
 import os
 
 import pytest
-from ase.build import molecule
-from ase.io import write
 
 import stobuilder
 from stobuilder import InputError
-
-
-@pytest.fixture()
-def water(tmp_path):
-    path = tmp_path / "water.xyz"
-    write(path, molecule("H2O"))  # ASE G2 geometry
-    return str(path)
 
 
 @pytest.fixture(scope="module")
@@ -150,7 +142,8 @@ def test_valid_calls_give_what_they_did_before(h_basis):
     assert stobuilder.parse_zeta_overrides("1s=1.6875") == {"1s": 1.6875}  # one item, not its characters
 
 
-# ---------------------------------------------------------------------------- each door speaks its own language (issue 21)
+
+# ---------------------------------------------------------------------------- the Python door speaks of Python arguments
 
 
 @pytest.mark.parametrize("kwargs, words", [
@@ -172,47 +165,6 @@ def test_python_errors_name_the_python_argument(water, tmp_path, kwargs, words):
     assert words in message and "--" not in message, message
 
 
-# ---------------------------------------------------------------------------- a zeta file is a library (issue 21)
-
-
-def _zeta_file(tmp_path, text, name="lib.toml"):
-    path = tmp_path / name
-    path.write_text(text)
-    return str(path)
-
-
-def test_a_zeta_file_applies_its_elements_where_they_occur(water, tmp_path):
-    # tune writes one file for its whole training set: C and N do not occur in water
-    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n[O]\n2p = 2.3\n[H]\n1s = 1.24\n")
-    (report,) = stobuilder.build_structures([water], zeta_file=library, write=False)
-    assert {s.label: s.zeta for s in report.basis["O"].stos}["2p"] == 2.3
-    assert {s.label: s.zeta for s in report.basis["H"].stos}["1s"] == 1.24
-    assert report.basis.symbols == ("H", "O")
-    # zeta= goes on top of the file, and stays a typo guard
-    (report,) = stobuilder.build_structures([water], zeta_file=library, zeta={"O": {"2p": 2.0}}, write=False)
-    assert {s.label: s.zeta for s in report.basis["O"].stos}["2p"] == 2.0
-    with pytest.raises(InputError, match="zeta names elements in no structure: C"):
-        stobuilder.build_structures([water], zeta_file=library, zeta={"C": {"2p": 1.0}}, write=False)
-
-
-def test_a_zeta_file_naming_none_of_the_elements_is_refused(water, tmp_path):
-    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n")
-    with pytest.raises(InputError) as info:
-        stobuilder.build_structures([water], zeta_file=library, write=False)
-    message = str(info.value)
-    assert message.startswith(f"zeta_file {library}:") and "C, N" in message and "H, O" in message, message
-    assert "\n" not in message and "--" not in message
-
-
-def test_the_options_remember_which_zeta_came_from_a_file(tmp_path):
-    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[H]\n1s = 1.24\n")
-    options = stobuilder.BuildOptions(zeta_file=library, zeta={"H": {"1s": 1.3}})
-    assert options.zeta_map == {"H": {"1s": 1.3}}
-    assert options.zeta_for(["H"]) == {"H": {"1s": 1.3}} and options.zeta_for(["C", "O"]) == {"C": {"2p": 1.7}}
-    back = stobuilder.BuildOptions.from_json(options.to_json())
-    assert back == options and "zeta_file" not in options.to_json()  # the numbers, not the file's name
-
-
 def test_merge_errors_name_the_python_arguments(water, tmp_path):
     target = tmp_path / "b.nw"
     target.write_text('BASIS "ao basis" SPHERICAL\nEND\n')
@@ -222,51 +174,3 @@ def test_merge_errors_name_the_python_arguments(water, tmp_path):
     with pytest.raises(InputError, match="^merge_into .*: no such file$"):
         stobuilder.build_structures([water], merge_into=str(tmp_path / "none.nw"), write=False)
 
-
-# ---------------------------------------------------------------------------- the calculator's door (issue 21)
-
-
-def test_the_calculator_takes_a_zeta_file_as_a_library(tmp_path):
-    from stobuilder.calculator import STOCalculator
-
-    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n[H]\n1s = 1.24\n")  # C and N: not in H2O
-    atoms = molecule("H2O")  # ASE G2 geometry
-    atoms.calc = STOCalculator(zeta_file=library, zeta={"O": {"2p": 2.3}})
-    atoms.get_potential_energy()
-    stos = {(e.symbol, s.label): s.zeta for e in atoms.calc.basis.elements for s in e.stos}
-    assert stos[("H", "1s")] == 1.24 and stos[("O", "2p")] == 2.3 and atoms.calc.basis.symbols == ("H", "O")
-    mol = stobuilder.pyscf_mole(molecule("H2"), zeta_file=library)
-    assert mol._basis["H"] == stobuilder.build_basis(["H"], zeta={"H": {"1s": 1.24}})["H"].to_pyscf()
-
-
-def test_the_calculator_refuses_zeta_that_applies_to_nothing(tmp_path):
-    from stobuilder.calculator import STOCalculator
-
-    library = _zeta_file(tmp_path, "[C]\n2p = 1.7\n[N]\n2p = 1.9\n")
-    for calc, words in ((STOCalculator(zeta_file=library), f"H2O: zeta_file {library}: it names none of the "
-                                                           "structures' elements (it names C, N; the structures have H, O)"),
-                        (STOCalculator(zeta={"C": {"2p": 1.7}}), "H2O: zeta names elements in no structure: C")):
-        atoms = molecule("H2O")
-        atoms.calc = calc
-        with pytest.raises(InputError) as info:
-            atoms.get_potential_energy()
-        assert str(info.value) == words
-    with pytest.raises(InputError) as info:
-        stobuilder.pyscf_mole(molecule("H2O"), zeta_file=library)
-    assert "it names none of the structures' elements" in str(info.value)
-
-
-@pytest.mark.parametrize("kwargs, words", [
-    ({"fit": "l3"}, "fit 'l3': unknown fitting norm"),
-    ({"gaussians": 13}, "gaussians must be <= 12"),
-    ({"zeta": {"H": {"1s": -1.0}}}, "zeta H:1s"),
-])
-def test_calculator_errors_name_the_calculator_parameters(kwargs, words):
-    from stobuilder.calculator import STOCalculator
-
-    with pytest.raises(InputError) as info:
-        STOCalculator(**kwargs)
-    assert str(info.value).startswith(words) and "--" not in str(info.value)
-    with pytest.raises(InputError) as info:
-        stobuilder.pyscf_mole(molecule("H2"), **kwargs)
-    assert str(info.value).startswith(words)
