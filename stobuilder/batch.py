@@ -328,7 +328,7 @@ def sha256_file(path: str) -> str:
 # ---------------------------------------------------------------------------- the worker
 
 
-_PREPARE_CACHE: dict = {}  # one basis and one text per content key and worker process (pipeline.prepare)
+_PREPARE_CACHE: dict = {}  # one text per content key and worker process (pipeline.prepare; the basis: builder.basis_of)
 
 
 def _named(path: str, message: str) -> str:

@@ -143,7 +143,7 @@ def load_weights(path, structures: Sequence[str]) -> tuple[float, ...]:
     a structure as given, its file name, or its name without extension (e.g. ``water = 2``);
     structures not named weigh 1. Every key must name a training structure and every weight
     be a positive finite number."""
-    from stobuilder.pipeline.options import read_toml
+    from stobuilder.core.files import read_toml
 
     doc, where = read_toml(path, "weights file")
     if not doc:
@@ -285,11 +285,11 @@ class TuneResult:
         from stobuilder.model.elements import atomic_number
         from stobuilder.core.limits import one_line
 
-        o = self.options
+        o, b = self.options, self.options.basis
         notes = [
             "ζ (bohr^-1) tuned by stobuilder tune: minimised SCF energy of the training set",
-            f"rule {o.rule}, N = {o.gaussians} Gaussians per STO, fit {o.norm}, exponents {o.exponents}, "
-            f"radial {o.radial}",
+            f"rule {b.rule}, N = {b.gaussians} Gaussians per STO, norm {b.norm}, sharing {b.sharing}, "
+            f"radial {b.radial}",
             f"free ζ: {' '.join(v.label for v in self.variables)}; every other ζ as the rule, the zeta file or your own ζ gives",
             f"converged: {'yes' if self.converged else 'NO'} ({self.message}), {self.iterations} iterations, "
             f"{self.scf_count} SCF calculations",

@@ -23,6 +23,16 @@ def _fit_cache_in_tmp(tmp_path_factory):
         os.environ["STOBUILDER_CACHE_DIR"] = old
 
 
+@pytest.fixture(autouse=True)
+def _fresh_basis_cache():
+    """Every test starts with an empty basis cache (``builder.basis_of``): a test that patches what a
+    basis is made from must see a new build, not a basis an earlier test left behind."""
+    from stobuilder.builder.construct import basis_of
+
+    basis_of.cache_clear()
+    yield
+
+
 @pytest.fixture()
 def no_scf(monkeypatch):
     """Any SCF fails the test if it starts (stobuilder's driver and PySCF's own kernel): for the

@@ -181,12 +181,13 @@ def test_batch_files_equal_build_output_byte_for_byte(tmp_path):
 
 
 def test_one_basis_construction_per_element_set(tmp_path, monkeypatch):
-    """Items with the same element set and options share one basis (the worker's cache)."""
-    import stobuilder.pipeline.path as pipeline
+    """Items with the same element set and options share one basis (``builder.basis_of``, the one
+    basis cache) and one text (the worker's cache)."""
+    import stobuilder.builder.construct as construct
 
     calls = []
-    real = pipeline.basis_for
-    monkeypatch.setattr(pipeline, "basis_for", lambda *a, **k: calls.append(a[0][0].elements) or real(*a, **k))
+    real = construct.build_basis
+    monkeypatch.setattr(construct, "build_basis", lambda *a, **k: calls.append(a[0]) or real(*a, **k))
     monkeypatch.setattr(batch, "_PREPARE_CACHE", {})
     paths = make_library(tmp_path, ["C2H6", "C3H8", "CH4", "H2O", "C2H6"], split=False)
     options = BuildOptions()

@@ -35,7 +35,7 @@ from support import assert_bad_input, assert_one_line_error, child_env, kill_whe
 SUBSET = ["CH4", "NH3", "H2O", "HF", "OH", "NH", "O2", "HCl", "SiH3", "PH2", "LiH", "CO"]
 
 # The row layout of --json
-ROW_KEYS = ["structure", "formula", "variant", "rule", "gaussians", "fit", "zeta_file", "spin", "energy_hartree",
+ROW_KEYS = ["structure", "formula", "variant", "rule", "gaussians", "norm", "zeta_file", "spin", "energy_hartree",
             "converged", "atomization_kcal_mol", "experiment_atomization_kcal_mol", "reference_energy_hartree",
             "wall_seconds"]
 
@@ -294,7 +294,8 @@ def test_variants_product_and_zeta_files(tmp_path):
     assert [v.label for v in variants] == [
         "molecular N=3 l2", "molecular N=6 l2", "slater N=3 l2", "slater N=6 l2",
         "molecular N=3 l2 +h.toml", "molecular N=6 l2 +h.toml", "slater N=3 l2 +h.toml", "slater N=6 l2 +h.toml"]
-    assert variants[-1].options.zeta_for(["H"]) == {"H": {"1s": 1.2}} and variants[-1].options.zeta_map is None  # a library
+    last = variants[-1].options
+    assert last.spec_for(["H"]).zeta.as_dict() == {"H": {"1s": 1.2}} and not last.basis.zeta  # a library
 
 
 def _bad_zeta(tmp_path):

@@ -189,21 +189,22 @@ def test_pyscf_mole_gives_the_calculators_basis_and_energy():
 
 
 def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypatch):
+    from stobuilder.builder import construct
     from stobuilder.checks import structure as checks
-    from stobuilder.pipeline import path as pipeline
 
     built, starts = [], []
-    real_basis_for, real_solve = pipeline.basis_for, checks.solve
+    real_build_basis, real_solve = construct.build_basis, checks.solve
 
-    def counting_basis_for(frames, options):
-        built.append(options.rule)
-        return real_basis_for(frames, options)
+    def counting_build_basis(elements, spec=None, **kw):
+        built.append(spec.rule)  # basis_of, the one basis cache, builds through build_basis
+        return real_build_basis(elements, spec, **kw)
 
     def recording_solve(mol, method, max_cycle=100, dm0=None, **kw):
         starts.append(dm0 is not None)
         return real_solve(mol, method, max_cycle, dm0=dm0, **kw)
 
-    monkeypatch.setattr(pipeline, "basis_for", counting_basis_for)
+    construct.basis_of.cache_clear()
+    monkeypatch.setattr(construct, "build_basis", counting_build_basis)
     monkeypatch.setattr(checks, "solve", recording_solve)
     atoms = distorted_water()
     calc = STOCalculator(rule="clementi")
@@ -474,8 +475,22 @@ def test_the_calculator_refuses_zeta_that_applies_to_nothing(tmp_path):
     assert "it names none of the structures' elements" in str(info.value)
 
 
+def test_the_parameter_names_of_earlier_versions_still_work():
+    # fit and exponents were the calculator's names for norm and sharing: a DeprecationWarning, same options
+    from stobuilder.calculator import STOCalculator
+
+    with pytest.warns(DeprecationWarning, match="use norm"):
+        old = STOCalculator(fit="h1", rule="clementi")
+    with pytest.warns(DeprecationWarning, match="use sharing"):
+        older = STOCalculator(exponents="separate")
+    assert old._options == STOCalculator(norm="h1", rule="clementi")._options
+    assert older._options == STOCalculator(sharing="separate")._options
+    with pytest.raises(TypeError, match="not both"):
+        STOCalculator(fit="h1", norm="l2")
+
+
 @pytest.mark.parametrize("kwargs, words", [
-    ({"fit": "l3"}, "fit 'l3': unknown fitting norm"),
+    ({"norm": "l3"}, "norm 'l3': choose one of l2, h1"),
     ({"gaussians": 13}, "gaussians must be <= 12"),
     ({"zeta": {"H": {"1s": -1.0}}}, "zeta H:1s"),
 ])

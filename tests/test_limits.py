@@ -81,7 +81,7 @@ def test_limits_reject_subnormal_and_overflowing_exponents():
 
 def test_the_python_api_goes_through_the_same_checks():
     for bad in (1e-200, 1e200, float("inf"), -2.0):
-        with pytest.raises(InputError, match="zeta override 2p"):
+        with pytest.raises(InputError, match="zeta O:2p"):
             element_basis("O", zeta={"2p": bad})
     with pytest.raises(InputError, match="needs a positive ζ"):
         build_basis(["H"], charge=-5)

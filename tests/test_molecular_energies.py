@@ -27,7 +27,7 @@ from pyscf.gto.basis import load
 import stobuilder
 from stobuilder.checks.structure import check_free_atom, make_mole, run_scf
 from stobuilder.checks.structure import _atom_solver, irrep_occupations, pick_method
-from stobuilder.model.elements import atomic_number, element_symbol, parse_configuration
+from stobuilder.model.elements import atomic_number, element_symbol
 from stobuilder.core.errors import InputError
 from stobuilder.screening.molecular import table
 
@@ -77,7 +77,7 @@ def test_free_atom_energy_against_stored_sto3g(symbol):
         return
     # Put the stored blocks of the documented families in place of ours; the rest stays ours.
     element = basis[symbol]
-    conf = parse_configuration(element.configuration, symbol)
+    conf = element.configuration
     ours = element.to_pyscf()
     labels = [s.label for s in sorted(element.shells, key=lambda s: s.l)]
     stored = sorted(load("sto-3g", symbol), key=lambda s: s[0])

@@ -30,7 +30,6 @@ from support import zeta_file
         ({"codes": ("nope",)}, "nope"),
         ({"zeta": {"O": {"2p": float("nan")}}}, "zeta O:2p"),
         ({"zeta": {"Xx": {"1s": 1.0}}}, "Xx"),
-        ({"check": "yes"}, "check must be True or False"),
         ({"max_check_frames": 0}, "max_check_frames must be >= 1"),
     ],
 )
@@ -41,14 +40,27 @@ def test_build_options_validate_once_with_one_line(kwargs, words):
     assert words in str(info.value) and "\n" not in str(info.value) and "--" not in str(info.value)
 
 
+@pytest.mark.parametrize("kwargs, words", [
+    ({"check": "yes"}, "check must be True or False"),
+    ({"codes": (3,)}, "codes must be format names"),
+    ({"sp_shells": 1}, "sp_shells must be True or False"),
+    ({"rule": 5}, "rule must be one of"),
+])
+def test_a_wrong_type_is_a_type_error_naming_the_argument(kwargs, words):
+    # wrong type → TypeError, wrong value → InputError (the one contract of the Python API)
+    with pytest.raises(TypeError) as info:
+        BuildOptions(**kwargs)
+    assert words in str(info.value) and "--" not in str(info.value)
+
+
 def test_build_options_round_trip_through_json():
     options = BuildOptions(rule="molecular", gaussians=6, codes=("all",), zeta={"fe": {"3d": 2.1}, "O": {"2p": 2.2}},
                            charge=-1, spin=1, check=True, method="uhf", sharing="shared")
     text = json.dumps(options.to_json(), allow_nan=False)
     back = BuildOptions.from_json(text)
     assert back == options and hash(back) == hash(options)
-    assert back.zeta_map == {"Fe": {"3d": 2.1}, "O": {"2p": 2.2}}
-    assert len(back.codes) > 5  # "all" expanded once, when made
+    assert back.basis.zeta.as_dict() == {"Fe": {"3d": 2.1}, "O": {"2p": 2.2}}
+    assert len(back.output.codes) > 5  # "all" expanded once, when made
     with pytest.raises(InputError, match="unknown option colour"):
         BuildOptions.from_json({"colour": "red"})
 
@@ -94,8 +106,9 @@ def test_a_zeta_file_naming_none_of_the_elements_is_refused(water, tmp_path):
 def test_the_options_remember_which_zeta_came_from_a_file(tmp_path):
     library = zeta_file(tmp_path, "[C]\n2p = 1.7\n[H]\n1s = 1.24\n")
     options = stobuilder.BuildOptions(zeta_file=library, zeta={"H": {"1s": 1.3}})
-    assert options.zeta_map == {"H": {"1s": 1.3}}
-    assert options.zeta_for(["H"]) == {"H": {"1s": 1.3}} and options.zeta_for(["C", "O"]) == {"C": {"2p": 1.7}}
+    assert options.basis.zeta.as_dict() == {"H": {"1s": 1.3}}
+    assert options.spec_for(["H"]).zeta.as_dict() == {"H": {"1s": 1.3}}
+    assert options.spec_for(["C", "O"]).zeta.as_dict() == {"C": {"2p": 1.7}}
     back = stobuilder.BuildOptions.from_json(options.to_json())
     assert back == options and "zeta_file" not in options.to_json()  # the numbers, not the file's name
 

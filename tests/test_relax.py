@@ -91,18 +91,18 @@ def test_relax_out_of_steps_exits_1_and_says_so(tmp_path, capsys):
 
 
 def test_relax_builds_the_basis_once_per_structure(tmp_path, monkeypatch):
-    from stobuilder.pipeline import path as pipeline
+    from stobuilder.builder import construct
     from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
     calls = []
-    real = pipeline.basis_for
+    real = construct.build_basis
 
-    def counting(frames, options):
-        calls.append(frames[0].path)
-        return real(frames, options)
+    def counting(elements, spec=None, **kw):
+        calls.append(elements)  # basis_of, the one basis cache, builds through build_basis
+        return real(elements, spec, **kw)
 
-    monkeypatch.setattr(pipeline, "basis_for", counting)
+    monkeypatch.setattr(construct, "build_basis", counting)
     (result,) = relax_structures([AMMONIA], BuildOptions(), out_dir=str(tmp_path), fmax=0.05)
     assert result.converged and result.steps >= 2
     assert len(calls) == 1  # prepare's build, handed to the calculator; no rebuild per step
@@ -333,7 +333,7 @@ def test_the_python_door_names_python_arguments(tmp_path, kwargs, needle):
     assert needle in str(e.value) and "--" not in str(e.value)
     with pytest.raises(InputError) as e:
         relax_structures([AMMONIA], BuildOptions(check=True), out_dir=str(tmp_path / "out"))
-    assert "options.check" in str(e.value) and "--" not in str(e.value)
+    assert "options.checks.run" in str(e.value) and "--" not in str(e.value)
 
 
 def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_path, monkeypatch):

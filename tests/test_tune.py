@@ -149,7 +149,7 @@ def test_h2_zeta_is_the_minimal_basis_optimum_and_the_file_is_deterministic(tmp_
     # the file: what build --zeta-file reads, with its comment block; byte-identical on a rerun
     assert load_zeta_file(out) == doc["zeta"]
     text = open(out, encoding="utf-8").read()
-    assert "# rule molecular, N = 3 Gaussians per STO, fit l2" in text and h2 in text and "converged: yes" in text
+    assert "# rule molecular, N = 3 Gaussians per STO, norm l2" in text and h2 in text and "converged: yes" in text
     before = open(out, "rb").read()
     code, _, err = run_cli(["tune", h2, "--rule", "molecular", "--vary", "H:1s", "--out", out, "--threads", "1",
                             "--validate", ch4], capsys)

@@ -36,7 +36,7 @@ from stobuilder.core.errors import InputError
 from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
 from stobuilder.expansion import lookup
 from stobuilder.model.basis import Basis, ElementBasis, Shell
-from stobuilder.model.elements import Configuration, looks_like_configuration, normalise_symbol, resolve
+from stobuilder.model.elements import Configuration, atomic_number, looks_like_configuration, normalise_symbol, resolve
 from stobuilder.model.shells import ShellExponent
 from stobuilder.screening import shell_exponents
 
@@ -251,7 +251,7 @@ def basis_of(symbols: Iterable[str], spec: BasisSpec, charge: int | None = None)
     memoised: the one basis cache of the package, keyed by the element set, the spec restricted to
     those elements (its own equality: a field added to BasisSpec is part of the key) and the charge.
     Bases are immutable, so a cached one is the same value a new build gives."""
-    symbols = tuple(sorted(set(symbols)))
+    symbols = tuple(sorted(set(symbols), key=atomic_number))
     return _basis_of(symbols, spec.restricted(symbols), charge)
 
 
