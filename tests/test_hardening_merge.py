@@ -19,7 +19,7 @@ from ase.io import write
 import stobuilder
 from cli_run import assert_one_line_error as _one_line_error
 from cli_run import run_cli as _run
-from stobuilder.pipeline.path import merge_file
+from stobuilder.pipeline.merge import merge_file
 
 
 @pytest.fixture(scope="module")
