@@ -32,6 +32,7 @@ from stobuilder.cli import main
 from stobuilder.core.errors import InputError
 from stobuilder.pipeline.options import BuildOptions
 from stobuilder.core.files import sha256_text
+from stobuilder.jobs import progress as jobs_progress
 from stobuilder.pipeline.path import build_structures
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -309,7 +310,7 @@ def test_progress_lines_count_rate_and_estimate():
 
     now = [0.0]
     stream = io.StringIO()
-    progress = batch.LineProgress(10, stream, interval=5.0, clock=lambda: now[0])
+    progress = jobs_progress.LineProgress(10, stream, interval=5.0, clock=lambda: now[0])
     for i, status in enumerate(["skipped", "done", "done", "failed", "done"]):
         now[0] = 2.0 * (i + 1)
         progress.update(status)
@@ -322,7 +323,7 @@ def test_progress_lines_count_rate_and_estimate():
     assert lines[0] == "stobuilder batch: 3/10 (done 2, skipped 1, failed 0), 0.3 items/s, about 21 s left"
     assert lines[1] == "stobuilder batch: 5/10 (done 3, skipped 1, failed 1), 0.4 items/s, about 12 s left"
     assert len(lines) == 2
-    assert batch.make_progress(3, "auto", io.StringIO()).__class__ is batch.LineProgress  # not a terminal
+    assert jobs_progress.make_progress(3, "auto", io.StringIO()).__class__ is jobs_progress.LineProgress  # not a terminal
 
 
 # ---------------------------------------------------------------------------- Dask

@@ -24,8 +24,8 @@ from ase.collections import g2
 from ase.data import g2_1
 
 from cli_run import assert_one_line_error, kill_when_done, run_cli
-from stobuilder import batch
 from stobuilder.bench import run as bench
+from stobuilder.jobs import executors
 
 # Open and closed shells, first and second row, RHF and ROHF (spins from ASE's magnetic moments)
 SUBSET = ["CH4", "NH3", "H2O", "HF", "OH", "NH", "O2", "HCl", "SiH3", "PH2", "LiH", "CO"]
@@ -258,7 +258,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
     # the calculations run in this process (a one-thread pool), so the fault can be injected
     from stobuilder.checks import structure as checks
 
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+    monkeypatch.setattr(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
     real = checks.solve
 
     def failing(mol, method, *args, **kwargs):

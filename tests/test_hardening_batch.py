@@ -28,6 +28,7 @@ from stobuilder import batch
 from stobuilder.pipeline.options import BuildOptions
 from stobuilder.batch import discover, read_manifest, run_batch
 from stobuilder.cli import main
+from stobuilder.jobs import executors
 from stobuilder.core.errors import InputError
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -208,13 +209,13 @@ def test_our_own_outputs_are_never_inputs(library, tmp_path):
 
 
 def test_workers_are_capped_at_the_usable_cores_with_a_note(library, tmp_path):
-    cores = batch.default_workers()
-    assert batch.worker_count(None) == (cores, None)
-    assert batch.worker_count(1) == (1, None)
-    count, note = batch.worker_count(1000)
+    cores = executors.default_workers()
+    assert executors.worker_count(None) == (cores, None)
+    assert executors.worker_count(1) == (1, None)
+    count, note = executors.worker_count(1000)
     assert count == cores and "1000" in note
     with pytest.raises(InputError):
-        batch.worker_count(0)
+        executors.worker_count(0)
     run = _cli(["batch", str(library), "--out", str(tmp_path / "out"), "--workers", "1000"])
     assert run.returncode == 0, run.stderr
     assert f"using {cores}" in run.stderr
@@ -272,7 +273,7 @@ def test_workers_exit_when_the_batch_process_is_killed(tmp_path):
         proc.wait(timeout=30)
         # an item takes seconds here (benzene, STO-6G, SCF checks); without the watch a busy
         # worker would finish its item first. The watch polls every PARENT_POLL_SECONDS.
-        deadline = time.monotonic() + 4 * batch.PARENT_POLL_SECONDS + 1.0
+        deadline = time.monotonic() + 4 * executors.PARENT_POLL_SECONDS + 1.0
         while time.monotonic() < deadline and any(_alive(w) for w in workers):
             time.sleep(0.1)
         survivors = [w for w in workers if _alive(w)]
@@ -300,7 +301,7 @@ def test_bad_scheduler_addresses_are_errors_before_anything_starts(library, tmp_
                                      "tcp://[::1]:8786", "ws://h:1", "inproc://10.0.0.1/1/2"])
 def test_scheduler_addresses_of_dask_form_pass_the_check(address):
     # forms of distributed's comm addresses (distributed docs, "Communications"; value from memory)
-    assert batch.check_scheduler_address(address) == address
+    assert executors.check_scheduler_address(address) == address
 
 
 # ---------------------------------------------------------------------------- ζ of the options (issue 21)

@@ -30,12 +30,14 @@ from cli_run import assert_one_line_error, run_cli
 from stobuilder import batch
 from stobuilder.bench import run as bench, report as bench_report
 from stobuilder.core.limits import one_line
+from stobuilder.jobs import executors
+from stobuilder.jobs.manifest import Manifest
 
 
 @pytest.fixture()
 def threads(monkeypatch):
     """The bench's calculations on one thread of this process (fast, no spawned interpreter)."""
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+    monkeypatch.setattr(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
 
 
 def _counts(stdout):
@@ -203,7 +205,7 @@ def test_a_batch_manifest_that_is_a_symbolic_link_is_refused(tmp_path, capsys):
     assert outside.read_text() == "not yours\n"
     assert sorted(os.listdir(out)) == [batch.MANIFEST_NAME]
     with pytest.raises(batch.InputError, match="symbolic link"):
-        batch.Manifest(str(out / batch.MANIFEST_NAME))
+        Manifest(str(out / batch.MANIFEST_NAME))
 
 
 # ---------------------------------------------------------------------------- zeta files

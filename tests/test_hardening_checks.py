@@ -331,9 +331,9 @@ def bench_threads(monkeypatch):
     """The bench's calculations in a thread of this process, where ``no_scf`` reaches them."""
     import concurrent.futures as cf
 
-    from stobuilder import batch
+    from stobuilder.jobs import executors
 
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+    monkeypatch.setattr(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
 
 
 def test_bench_refuses_a_molecule_too_big_for_memory_before_any_scf(big, tmp_path, capsys, no_scf, bench_threads,

@@ -20,7 +20,7 @@ from ase.io import write
 from hypothesis import HealthCheck, event, given, settings
 from hypothesis import strategies as st
 
-from stobuilder import batch
+from stobuilder.jobs import executors
 from stobuilder.cli import main
 
 EXAMPLES = 150
@@ -57,7 +57,7 @@ def _run(argv):
     """(exit status, stderr) of ``stobuilder ARGV`` in this process; the batch engine's process
     pool is not under test here: threads keep each example fast."""
     err, out = io.StringIO(), io.StringIO()
-    threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
+    threads = mock.patch.object(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
     with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
         code = main(argv)
     return code, err.getvalue()

@@ -6,7 +6,7 @@ The flow::
         ──plan──▶ BenchTask per calculation: each molecule per variant, each free atom per
                   element and variant (never per molecule), and with a reference basis each
                   molecule and atom once more in that basis
-        ──batch.run_tasks (process pool or Dask; the bench manifest; resume)──▶ Calculation
+        ──jobs.run_tasks (process pool or Dask; the bench manifest; resume)──▶ Calculation
         ──assemble──▶ BenchRow per structure × variant, VariantSummary per variant
         ──render (bench_report)──▶ bench.tsv, bench.json, report.html and its PNG plots
 
@@ -692,9 +692,9 @@ def bench_document(plan: BenchPlan, rows, summary, atoms, files: Mapping[str, st
 
 @lru_cache(maxsize=1)
 def _layouts():
-    """The bench manifest record (batch.layout_problem's form): task, fingerprint, status, the
+    """The bench manifest record (jobs.manifest.layout_problem's form): task, fingerprint, status, the
     Calculation's fields with their types and ranges, the time it finished."""
-    from stobuilder.batch import is_count, is_finite, is_seconds, is_sha256, is_text, layout_problem, one_of, optional
+    from stobuilder.jobs.manifest import is_count, is_finite, is_seconds, is_sha256, is_text, layout_problem, one_of, optional
 
     result = {
         "method": (is_text, "a text", True),
@@ -730,7 +730,7 @@ def _record_problem(record) -> str | None:
 
 
 def _record(task: BenchTask, calc: Calculation) -> dict:
-    from stobuilder.batch import utc_now
+    from stobuilder.jobs.manifest import utc_now
 
     return {"task": task.key, "fingerprint": task.fingerprint(), "status": "done" if calc.ok else "failed",
             "result": calc.to_json(), "finished_utc": utc_now()}
@@ -744,27 +744,29 @@ def run_bench(
     force: bool = False,
     progress=None,
 ) -> BenchResult:
-    """Run a bench planned by ``plan`` into ``out_dir`` through the batch engine
-    (``batch.run_tasks``): calculations the manifest ``MANIFEST_NAME`` records as done with the
+    """Run a bench planned by ``plan`` into ``out_dir`` through the job engine
+    (``jobs.run_tasks``): calculations the manifest ``MANIFEST_NAME`` records as done with the
     same fingerprint are taken from it, the rest computed (``executor``: any concurrent.futures
     Executor such as a Dask client's; else a local pool of ``workers`` processes), each recorded
     (appended, fsynced) as it ends. Then the outputs (``OUTPUT_NAMES``) are written all or none.
     ``force`` recomputes everything and starts a fresh manifest (the old one kept as a backup)."""
-    from stobuilder import batch
     from stobuilder.bench.report import render_outputs
     from stobuilder.core.files import check_targets, write_all
+    from stobuilder.jobs.executors import run_tasks
+    from stobuilder.jobs.manifest import Manifest, prepare_out_dir, read_manifest
+    from stobuilder.jobs.progress import NoProgress
 
     start = time.perf_counter()
-    batch.prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
+    prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
     check_targets({os.path.join(out_dir, base): "" for base in OUTPUT_NAMES.values()}, force=True)  # before any SCF
     path = os.path.join(out_dir, MANIFEST_NAME)
-    manifest = batch.Manifest(path, fresh=force, what="bench")
+    manifest = Manifest(path, fresh=force, what="bench")
     notes = list(manifest.notes)
-    progress = progress or batch.NoProgress()
+    progress = progress or NoProgress()
     results: dict[str, Calculation] = {}
     computed = resumed = 0
     try:
-        previous = {} if force else batch.read_manifest(path, notes, key="task", problem=_record_problem)
+        previous = {} if force else read_manifest(path, notes, key="task", problem=_record_problem)
         todo = []
         for task in plan.tasks:
             record = previous.get(task.key)
@@ -783,7 +785,7 @@ def run_bench(
             computed += 1
             progress.update("done" if calc.ok else "failed")
 
-        batch.run_tasks(todo, run_calculation, finish, _failure, executor=executor, workers=workers)
+        run_tasks(todo, run_calculation, finish, _failure, executor=executor, workers=workers)
     finally:
         manifest.close()
         progress.close()
