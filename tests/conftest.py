@@ -29,11 +29,11 @@ def no_scf(monkeypatch):
     checks that must refuse a bad input or output location before the first SCF."""
     from pyscf.scf import hf
 
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
 
     def refuse(*args, **kwargs):
         pytest.fail("an SCF ran before the input and output checks refused")
 
-    monkeypatch.setattr(checks, "solve", refuse)
+    monkeypatch.setattr(scf_run, "solve_scf", refuse)
     monkeypatch.setattr(hf.SCF, "kernel", refuse)
     monkeypatch.setattr(hf.SCF, "scf", refuse)

@@ -256,10 +256,10 @@ def test_resume_after_a_kill(tmp_path, capsys):
 
 def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
     # the calculations run in this process (a one-thread pool), so the fault can be injected
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
 
     monkeypatch.setattr(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
-    real = checks.solve
+    real = scf_run.solve_scf
 
     def failing(mol, method, *args, **kwargs):
         mf, iterations = real(mol, method, *args, **kwargs)
@@ -267,7 +267,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
             mf.converged = False
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", failing)
+    monkeypatch.setattr(scf_run, "solve_scf", failing)
     out = tmp_path / "run"
     argv = ["bench", "--set", "g2-1", "CH4", "H2O", "--rule", "molecular", "--out", str(out), "--progress", "off"]
     code, stdout, err = run_cli(argv + ["--json"], capsys)
@@ -280,7 +280,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch):
     page = (out / "report.html").read_text()
     assert "H2O (molecular N=3 l2): SCF not converged" in page
     # the next run recomputes only the failed calculation
-    monkeypatch.setattr(checks, "solve", real)
+    monkeypatch.setattr(scf_run, "solve_scf", real)
     code, stdout, err = run_cli(argv, capsys)
     assert code == 0, err
     assert _counts(stdout) == (5, 1, 4, 0)

@@ -183,11 +183,11 @@ def test_pyscf_mole_gives_the_calculators_basis_and_energy():
 
 
 def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypatch):
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
     from stobuilder.pipeline import path as pipeline
 
     built, starts = [], []
-    real_basis_for, real_solve = pipeline.basis_for, checks.solve
+    real_basis_for, real_solve = pipeline.basis_for, scf_run.solve_scf
 
     def counting_basis_for(frames, options):
         built.append(options.rule)
@@ -198,7 +198,7 @@ def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypat
         return real_solve(mol, method, max_cycle, dm0=dm0, **kw)
 
     monkeypatch.setattr(pipeline, "basis_for", counting_basis_for)
-    monkeypatch.setattr(checks, "solve", recording_solve)
+    monkeypatch.setattr(scf_run, "solve_scf", recording_solve)
     atoms = distorted_water()
     calc = STOCalculator(rule="clementi")
     atoms.calc = calc
@@ -352,7 +352,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
     import threading
     import time
 
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
 
     names = ("H2", "H2O", "H2", "H2O")
 
@@ -368,7 +368,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
         reference.append(atoms.get_potential_energy())
         reference_dipole.append(atoms.get_dipole_moment())
     assert np.linalg.norm(reference_dipole[1]) > 0.1  # water's dipole (some 0.2 e·Å), not a zero
-    real_solve = checks.solve
+    real_solve = scf_run.solve_scf
 
     def slow_solve(*args, **kwargs):
         # a slower SCF and a slower analysis after it (the energy is stored by then): the
@@ -384,7 +384,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
         mf.mulliken_pop = slow_population
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", slow_solve)
+    monkeypatch.setattr(scf_run, "solve_scf", slow_solve)
     # threads switch every microsecond instead of every 5 ms: any unguarded window between
     # setting calc.atoms, computing and reading calc.results is hit within a few calls
     old_interval = sys.getswitchinterval()

@@ -4,7 +4,9 @@ import pytest
 from ase import Atoms
 
 import stobuilder
-from stobuilder.checks.structure import check_free_atom, check_structure, make_mole, run_scf
+from stobuilder.checks.structure import check_free_atom, check_structure
+from stobuilder.scf.mole import make_mole
+from stobuilder.scf.run import run_scf
 from stobuilder.model.structures import Structure
 
 BOHR = 0.52917721092  # ångström per bohr (CODATA 2010, as PySCF uses)

@@ -262,7 +262,7 @@ def test_a_5000_atom_structure_is_refused_before_any_scf(big, tmp_path, capsys, 
     target = ["--out", str(out)] if command == ["relax"] else ["--out", str(tmp_path / "z.toml")]
     code, _, err = run([*command, str(big), *target], capsys)
     # 5000 basis functions: in-core integrals 5000⁴/1e6 MB would not fit, so direct SCF,
-    # 40·8·5000² bytes = 8000 MB of matrices + 250 MB buffers (stobuilder.checks.structure.scf_size)
+    # 40·8·5000² bytes = 8000 MB of matrices + 250 MB buffers (stobuilder.scf.size.scf_size)
     assert_bad_input(code, err, out, str(big), "5000 basis functions", "8,250 MB", "4,000 MB", "STOBUILDER_MAX_MEMORY")
     assert not (tmp_path / "z.toml").exists()
 
@@ -314,9 +314,9 @@ def test_a_small_molecule_passes_the_guard(tmp_path, capsys, monkeypatch):
 
 
 def test_a_long_scf_prints_its_cycles_on_stderr(tmp_path, capsys, monkeypatch):
-    import stobuilder.checks.structure as checks
+    import stobuilder.scf.run as scf_run
 
-    monkeypatch.setattr(checks, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
+    monkeypatch.setattr(scf_run, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
     path = tmp_path / "water.xyz"
     write(path, molecule("H2O"))  # ASE G2 geometry
     code, _, err = run(["build", str(path), "--check", "--out", str(tmp_path / "out")], capsys)
@@ -349,9 +349,9 @@ def test_bench_refuses_a_reference_basis_too_big_for_memory_before_any_scf(tmp_p
                                                                            monkeypatch):
     # CH4 in cc-pVTZ: C 4s3p2d1f = 30 and H 3s2p1d = 14 spherical functions (Dunning, J. Chem. Phys. 90,
     # 1007 (1989); value from memory), 86 in all: its integrals, 86⁴/1e6 = 54.7 MB, do not fit in
-    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.structure.scf_size);
+    # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.scf.size.scf_size);
     # the minimal basis, 9 functions, fits (about 0.03 MB)
-    from stobuilder.checks.structure import scf_size
+    from stobuilder.scf.size import scf_size
 
     monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "20")
     expected = scf_size(86, "RHF", 20.0)

@@ -252,7 +252,7 @@ def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name,
     run and nothing written. (common practice, no source)"""
     import tomllib
 
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
 
     reference = _tune_reference_zeta()
     with tempfile.TemporaryDirectory() as folder:
@@ -280,13 +280,13 @@ def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name,
         if start is not None:
             argv.append(f"--zeta=H:1s={start!r}")
         scf_runs = {"n": 0}
-        real_solve = checks.solve
+        real_solve = scf_run.solve_scf
 
         def counting_solve(*args, **kwargs):
             scf_runs["n"] += 1
             return real_solve(*args, **kwargs)
 
-        with mock.patch.object(checks, "solve", counting_solve):
+        with mock.patch.object(scf_run, "solve_scf", counting_solve):
             code, message = _run(argv)
         event(f"tune {where} exit {code}")
         assert "Traceback" not in message

@@ -13,7 +13,8 @@ from pyscf.data.nist import BOHR
 from scipy.optimize import minimize_scalar
 
 from cli_run import assert_one_line_error, run_cli
-from stobuilder.checks import structure as checks
+from stobuilder.scf import run as scf_run
+from stobuilder.scf.mole import structure_mole
 from stobuilder.builder.construct import build_basis
 from stobuilder.pipeline.options import BuildOptions, load_zeta_file
 from stobuilder.tune import default_variables, energy_gradient, parse_vary
@@ -179,13 +180,13 @@ def test_central_differences_obey_the_scaling_identity(tmp_path, name, vary):
     energy, gradient = energy_gradient([path], options, vary)
     assert set(gradient) == set(vary) and all(abs(g) > 1e-3 for g in gradient.values())
     frames = read_structures(path)
-    mol = checks.structure_mole(frames[0], basis_for(frames, options))
+    mol = structure_mole(frames[0], basis_for(frames, options))
 
     def tight(mf):
         mf.conv_tol_grad = 1e-9
         return mf
 
-    mf, _ = checks.solve(mol, "RHF", conv_tol=1e-12, configure=tight)
+    mf, _ = scf_run.solve_scf(mol, "RHF", conv_tol=1e-12, configure=tight)
     assert energy == pytest.approx(mf.e_tot, abs=1e-9)
     kinetic = float(np.einsum("ij,ji", mf.make_rdm1(), mol.intor("int1e_kin")))
     virial = 2 * kinetic + (mf.e_tot - kinetic) + float(np.sum(mol.atom_coords() * mf.nuc_grad_method().kernel()))
@@ -279,8 +280,8 @@ def test_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, extra, weigh
 
 
 def _solve_failing(monkeypatch, after):
-    """checks.solve, with every SCF from call number ``after`` on reported as not converged."""
-    real, calls = checks.solve, {"n": 0}
+    """scf_run.solve_scf, with every SCF from call number ``after`` on reported as not converged."""
+    real, calls = scf_run.solve_scf, {"n": 0}
 
     def solve(*args, **kwargs):
         calls["n"] += 1
@@ -289,7 +290,7 @@ def _solve_failing(monkeypatch, after):
             mf.converged = False
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", solve)
+    monkeypatch.setattr(scf_run, "solve_scf", solve)
 
 
 def test_scf_not_converging_at_the_start_is_bad_input(tmp_path, capsys, monkeypatch):

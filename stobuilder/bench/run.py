@@ -10,7 +10,7 @@ The flow::
         ──assemble──▶ BenchRow per structure × variant, VariantSummary per variant
         ──render (bench_report)──▶ bench.tsv, bench.json, report.html and its PNG plots
 
-Every SCF goes through ``checks.solve`` with the method ``build --check`` picks
+Every SCF goes through ``scf.solve_scf`` with the method ``build --check`` picks
 (``methods.pick_method``: RHF for closed shells, ROHF for open ones). Free atoms are the
 fixed-occupation ground-state atoms of ``checks.check_free_atom`` (``elements.ground_state``,
 the high-spin determinant held by PySCF's SO3 symmetry): RHF for closed-shell atoms (Be here),
@@ -321,9 +321,12 @@ def _energy(mf) -> float | None:
 
 
 def _compute(task: BenchTask) -> tuple[str, float | None, bool, int]:
-    from stobuilder.checks.structure import check_free_atom, free_atom_setup, make_mole, solve, structure_mole
+    from stobuilder.checks.structure import check_free_atom
     from stobuilder.model.elements import ground_state
     from stobuilder.model.methods import pick_method
+    from stobuilder.scf.free_atom import free_atom_setup
+    from stobuilder.scf.mole import make_mole, structure_mole
+    from stobuilder.scf.run import solve_scf
 
     s = task.structure
     if task.kind == "atom":
@@ -335,14 +338,14 @@ def _compute(task: BenchTask) -> tuple[str, float | None, bool, int]:
         conf = ground_state(symbol)
         method = pick_method("auto", conf.unpaired, f"(free atom {symbol})")
         mol, configure = free_atom_setup(symbol, conf, task.reference, method)
-        mf, iterations = solve(mol, method, configure=configure)
+        mf, iterations = solve_scf(mol, method, configure=configure)
         return method, _energy(mf), bool(mf.converged), iterations
     method = pick_method("auto", s.spin, f"({s.formula})")
     if task.options is not None:
         mol = structure_mole(s, _basis(s, task.options))
     else:
         mol = make_mole(list(zip(s.symbols, s.positions)), task.reference, s.charge, s.spin)
-    mf, iterations = solve(mol, method)
+    mf, iterations = solve_scf(mol, method)
     return method, _energy(mf), bool(mf.converged), iterations
 
 
@@ -423,12 +426,13 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     names none of the structures' elements (its variant would repeat its rule's numbers; the rule
     of every door, ``pipeline.check_zeta_elements``), a molecule whose electrons do not fit its
     basis or whose SCF would not fit in memory, in a variant (``pipeline.check_electrons``) or in
-    the reference basis (``checks.check_mole_size``). A zeta file is a library: its ζ apply to the
+    the reference basis (``scf.check_mole_size``). A zeta file is a library: its ζ apply to the
     elements it names wherever they occur, the rest of it is unused."""
-    from stobuilder.checks.structure import check_mole_size, make_mole
     from stobuilder.model.elements import atomic_number
     from stobuilder.model.methods import pick_method
     from stobuilder.pipeline.path import basis_for, check_electrons, check_zeta_elements
+    from stobuilder.scf.mole import make_mole
+    from stobuilder.scf.size import check_mole_size
 
     if not structures:
         raise InputError("no structures: give structure files or --set NAME")

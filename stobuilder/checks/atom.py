@@ -13,7 +13,7 @@ import numbers
 from collections.abc import Iterable
 
 
-from stobuilder.exact.atoms import _conf, numerical_guard, optimize_zeta, pick_method, solve
+from stobuilder.exact.atoms import _conf, numerical_guard, optimize_zeta, pick_method, solve_atom
 from stobuilder.model.basis import Basis
 from stobuilder.builder.construct import element_basis, sto_exponents
 from stobuilder.checks.structure import check_free_atom
@@ -56,7 +56,7 @@ def atom_report(element: str, rule: str = "slater", configuration=None, charge: 
         used = dict(result.zeta)
     else:
         exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-        result = solve(conf, exps, m)
+        result = solve_atom(conf, exps, m)
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]
     return {

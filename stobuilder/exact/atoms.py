@@ -18,7 +18,7 @@ import numpy as np
 from stobuilder.builder.construct import sto_exponents
 from stobuilder.model.elements import Configuration, resolve
 from stobuilder.core.errors import InputError
-from stobuilder.exact.solver import AtomResult, OrbitalEnergy, _solve, describe_state, optimize_exponents, pick_method
+from stobuilder.exact.solver import AtomResult, OrbitalEnergy, describe_state, optimize_exponents, pick_method, solve_sto_scf
 
 # ---------------------------------------------------------------- inputs
 def _conf(element, charge, configuration) -> Configuration:
@@ -49,7 +49,7 @@ def atom_energy(element: str, rule: str = "slater", charge: int = 0, configurati
     conf = _conf(element, charge, configuration)
     m = pick_method(conf, method)
     exps = sto_exponents(conf.symbol, rule, configuration=conf, zeta=zeta)[1]
-    return solve(conf, exps, m)
+    return solve_atom(conf, exps, m)
 
 
 def numerical_guard(conf, what: str, run, hint: str = ""):
@@ -75,10 +75,10 @@ def _numerically(conf, what: str, run):
     return result
 
 
-def solve(conf: Configuration, exps, method: str) -> AtomResult:
-    """The exact-STO SCF of ``conf`` on the STOs ``exps`` (``sto_scf._solve``), numerical failures
-    as InputError."""
-    return _numerically(conf, "SCF", lambda: _solve(conf, exps, method).result)
+def solve_atom(conf: Configuration, exps, method: str) -> AtomResult:
+    """The exact-STO SCF of the atom ``conf`` on the STOs ``exps`` (``solver.solve_sto_scf``),
+    numerical failures as InputError."""
+    return _numerically(conf, "SCF", lambda: solve_sto_scf(conf, exps, method).result)
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = "slater",

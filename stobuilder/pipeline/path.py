@@ -190,11 +190,12 @@ def _where(frame: Structure) -> str:
 
 def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = False) -> None:
     """Before any SCF: the method suits the structure, the basis has room for its electrons
-    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``checks.check_scf_size``).
+    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``scf.check_scf_size``).
     Periodic structures are checked on free atoms instead; so, with ``checks`` (the path of
     ``run_checks``), is a structure of more than ``checks.MAX_BASIS_FUNCTIONS`` functions."""
-    from stobuilder.checks.structure import MAX_BASIS_FUNCTIONS, check_scf_size
+    from stobuilder.checks.structure import MAX_BASIS_FUNCTIONS
     from stobuilder.model.methods import free_atom_method
+    from stobuilder.scf.size import check_scf_size
 
     def functions_of(symbols) -> int:
         return sum(2 * s.l + 1 for symbol in symbols for s in basis[symbol].shells)
