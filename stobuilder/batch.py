@@ -13,7 +13,9 @@ worker that dies leaves nothing on disk, and a record is appended (flushed and f
 its files are in place. Any ``concurrent.futures.Executor`` runs the tasks: a local process pool
 by default, or ``distributed.Client(address).get_executor()`` on a Dask cluster (Rocklin, "Dask:
 parallel computation with blocked algorithms and task scheduling", Proc. SciPy 2015); cluster
-workers need to see the input paths (a shared file system), nothing else.
+workers need to see the input paths (a shared file system), nothing else. The engine (executors,
+manifest, progress) is ``stobuilder.jobs``; this module brings what is the batch's: its items, the
+worker ``run_item``, the record layout ``BATCH_RECORD`` and the manifest name.
 
 Output names mirror the input layout: every item is named by its path relative to the common
 folder of the inputs (a folder argument counts as itself, a file as its parent folder), without
@@ -25,32 +27,31 @@ from __future__ import annotations
 
 import concurrent.futures as cf
 import fnmatch
-import hashlib
-import json
-import math
 import os
 import socket
 import stat
-import sys
 import time
-from collections.abc import Callable, Iterable, Mapping, Sequence
+from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field, replace
-from datetime import datetime, timezone
 from functools import lru_cache
 
 from stobuilder.core.errors import InputError
-from stobuilder.core.files import TEMP_PREFIX
+from stobuilder.jobs import manifest as _jobs_manifest
+from stobuilder.jobs.executors import run_tasks
+from stobuilder.jobs.manifest import (
+    STATUSES, Manifest, is_count, is_seconds, is_sha256, is_text, is_whole, layout_problem, list_of, one_of,
+    optional, prepare_out_dir, remove_stale_temporaries, sha256_file, utc_now,
+)
+from stobuilder.jobs.progress import NoProgress
 from stobuilder.pipeline.naming import COMPRESSIONS as _COMPRESSIONS, structure_name
 from stobuilder.pipeline.options import BuildOptions
 
 MANIFEST_NAME = "stobuilder-batch.jsonl"
-STATUSES = ("done", "failed", "skipped")
 # Extensions ASE reads that, in a folder of structures, are almost always something else:
 # Markdown (ASE: CASTEP .md trajectories). Name such files explicitly to read them.
 SKIPPED_EXTENSIONS = frozenset({"md"})
 # ASE format names that are not file extensions (servers, folder formats).
 _NOT_EXTENSIONS = frozenset({"mysql", "postgresql", "bundletrajectory"})
-MAX_POOL_RESTARTS = 2  # a local pool whose worker process died is rebuilt this often
 
 
 # ---------------------------------------------------------------------------- data
@@ -316,14 +317,6 @@ def discover(inputs: Sequence[str], exclude: str | None = None, notes: list[str]
     return tuple(items)
 
 
-def sha256_file(path: str) -> str:
-    """SHA-256 of a file's bytes (hex)."""
-    digest = hashlib.sha256()
-    with open(path, "rb") as handle:
-        for block in iter(lambda: handle.read(1 << 20), b""):
-            digest.update(block)
-    return digest.hexdigest()
-
 
 # ---------------------------------------------------------------------------- the worker
 
@@ -402,69 +395,7 @@ def manifest_path(out_dir: str) -> str:
     return os.path.join(out_dir, MANIFEST_NAME)
 
 
-# Record layouts: key → (test, what the value must be, required). A record is usable when it is a
-# JSON object with every required key, no unknown key, and every value passing its test; a nested
-# layout (a dict in place of the test) is checked the same way. One layout per record kind: the
-# batch's here (BATCH_RECORD), the bench's in bench.py; ``layout_problem`` checks either.
-
-
-def is_text(v) -> bool:
-    return isinstance(v, str)
-
-
-def is_whole(v) -> bool:
-    return isinstance(v, int) and not isinstance(v, bool)
-
-
-def is_count(v) -> bool:
-    return is_whole(v) and v >= 0
-
-
-def is_finite(v) -> bool:
-    """A JSON number (not a bool) that is finite."""
-    return isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v)
-
-
-def is_seconds(v) -> bool:
-    return is_finite(v) and v >= 0
-
-
-def is_sha256(v) -> bool:
-    return isinstance(v, str) and len(v) == 64 and all(c in "0123456789abcdef" for c in v)
-
-
-def optional(test: Callable[[object], bool]) -> Callable[[object], bool]:
-    return lambda v: v is None or test(v)
-
-
-def list_of(test: Callable[[object], bool]) -> Callable[[object], bool]:
-    return lambda v: isinstance(v, list) and all(test(x) for x in v)
-
-
-def one_of(*values) -> Callable[[object], bool]:
-    return lambda v: isinstance(v, str) and v in values
-
-
-def layout_problem(doc, layout: Mapping, where: str = "") -> str | None:
-    """Why ``doc`` (decoded JSON) does not follow ``layout`` (key → (test or nested layout,
-    what, required)), or None. The reason names the key, never the value (it goes on stderr)."""
-    if not isinstance(doc, dict):
-        return f"{where.rstrip('.') or 'the line'} is not a JSON object"
-    for key in doc:
-        if key not in layout:
-            return f"unknown key {where}{str(key)[:40]!r}"
-    for key, (test, what, required) in layout.items():
-        if key not in doc:
-            if required:
-                return f"no {where}{key}"
-            continue
-        if isinstance(test, Mapping):
-            problem = layout_problem(doc[key], test, f"{where}{key}.")
-            if problem:
-                return problem
-        elif not test(doc[key]):
-            return f"{where}{key} is not {what}"
-    return None
+# The batch's record layout (``jobs.manifest.layout_problem``'s form; the bench has its own).
 
 
 def _is_files(v) -> bool:
@@ -508,48 +439,10 @@ def _record_problem(record) -> str | None:
     return None
 
 
-def read_manifest(path: str, notes: list[str] | None = None, key: str = "input",
-                  problem: Callable[[object], str | None] | None = None) -> dict[str, dict]:
-    """The last record of every input in a manifest (``record[key]`` → record; for a batch the
-    input path). ``problem`` says why a decoded line is not a usable record (default: the batch
-    record layout, ``_record_problem``); the bench passes its own.
-
-    A line that is not a usable record (not UTF-8, not JSON, nested too deeply, not a record of
-    this layout) is skipped, and ``notes`` (if given) gets one line naming the line number and the
-    problem; a torn last line (the run was killed while appending) is dropped without a note. The
-    item of a skipped record is simply computed again. Never raises for the file's contents."""
-    last: dict[str, dict] = {}
-    if not os.path.exists(path):
-        return last
-    with open(path, "rb") as handle:
-        lines = handle.read().split(b"\n")
-    bad: list[tuple[int, str]] = []
-    for number, raw in enumerate(lines, 1):
-        if not raw.strip():
-            continue
-        try:
-            record = json.loads(raw.decode("utf-8"))
-        except UnicodeDecodeError:
-            bad.append((number, "not UTF-8 text"))
-            continue
-        except RecursionError:
-            bad.append((number, "JSON nested too deeply"))
-            continue
-        except ValueError:
-            if number == len(lines):  # no newline after it: a torn final append
-                continue
-            bad.append((number, "not JSON"))
-            continue
-        why = (problem or _record_problem)(record)
-        if why:
-            bad.append((number, why))
-            continue
-        last[record[key]] = record
-    if bad and notes is not None:
-        shown = "; ".join(f"line {n}: {why}" for n, why in bad[:5]) + (f"; and {len(bad) - 5} more" if len(bad) > 5 else "")
-        notes.append(f"{path}: skipped {len(bad)} unusable line(s) ({shown}); their items are computed again "
-                     f"(--force starts a fresh manifest, keeping this one as a backup)")
-    return last
+def read_manifest(path: str, notes: list[str] | None = None) -> dict[str, dict]:
+    """The last usable batch record of every input path in the batch manifest ``path``
+    (``jobs.manifest.read_manifest`` with the batch record layout, ``_record_problem``)."""
+    return _jobs_manifest.read_manifest(path, notes, key="input", problem=_record_problem)
 
 
 def same_options(recorded, options: BuildOptions) -> bool:
@@ -620,215 +513,8 @@ def skipped_record(previous: Mapping) -> dict:
     return record
 
 
-def utc_now() -> str:
-    return datetime.now(timezone.utc).isoformat(timespec="milliseconds")
-
-
-class Manifest:
-    """An open manifest (JSON lines): an exclusive lock (one run per folder), appends flushed and
-    fsynced. The batch and the bench keep theirs with it."""
-
-    def __init__(self, path: str, fresh: bool = False, what: str = "batch"):
-        """Open (creating) and lock the manifest ``path``. With ``fresh`` (``--force``) an existing
-        manifest is first copied byte for byte to a new backup (``MANIFEST.bak``, ``.bak2``, …;
-        named in ``notes``) and emptied, under the lock. InputError when another batch holds
-        the lock or ``path`` is not a regular file (a FIFO would block the open) or is a
-        symbolic link (our records would be appended to whatever file it names, outside the
-        output folder: never written through, the link is refused)."""
-        self.path = path
-        self.notes: list[str] = []
-        if os.path.islink(path):
-            raise InputError(f"{path}: the {what} manifest is a symbolic link; it must be a regular file of the "
-                             "output folder (remove the link)")
-        if os.path.lexists(path) and not os.path.isfile(path):
-            raise InputError(f"{path}: the {what} manifest is not a regular file")
-        try:
-            # O_NOFOLLOW: a link made after the check above is refused too (ELOOP), never followed
-            fd = os.open(path, os.O_WRONLY | os.O_APPEND | os.O_CREAT | getattr(os, "O_NOFOLLOW", 0), 0o666)
-            self.handle = open(fd, "a", encoding="utf-8", newline="\n")
-        except OSError as exc:
-            raise InputError(f"{path}: cannot open the {what} manifest ({exc.strerror})") from None
-        try:
-            import fcntl
-
-            fcntl.flock(self.handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except ImportError:  # no fcntl (Windows): no lock
-            pass
-        except OSError:
-            self.handle.close()
-            raise InputError(f"{path}: another {what} is running on this output folder") from None
-        if fresh:
-            self._start_fresh()
-        self._drop_torn_line()
-
-    def _start_fresh(self) -> None:
-        from stobuilder.core.files import create_bytes
-
-        with open(self.path, "rb") as old:
-            data = old.read()
-        if not data:
-            return
-        k = 1
-        while True:
-            backup = f"{self.path}.bak" + (str(k) if k > 1 else "")
-            if not os.path.lexists(backup) and create_bytes(backup, data, stat.S_IMODE(os.stat(self.path).st_mode)):
-                break
-            k += 1
-        self.handle.truncate(0)
-        self.handle.seek(0)
-        self.handle.flush()
-        os.fsync(self.handle.fileno())
-        self.notes.append(f"--force: started a fresh manifest; the former one is kept as {backup}")
-
-    def _drop_torn_line(self) -> None:
-        """A run killed while appending leaves a last line without its newline: an unfinished
-        record, dropped (we hold the lock, so nobody else is writing)."""
-        end = os.path.getsize(self.path)
-        with open(self.path, "rb") as check:
-            if end == 0 or (check.seek(end - 1), check.read(1))[1] == b"\n":
-                return
-            keep, position = 0, end
-            while position > 0:  # back, block by block, to the last newline
-                start = max(0, position - 65536)
-                check.seek(start)
-                found = check.read(position - start).rfind(b"\n")
-                if found >= 0:
-                    keep = start + found + 1
-                    break
-                position = start
-        self.handle.truncate(keep)
-        self.handle.seek(0, os.SEEK_END)
-
-    def append(self, records: Sequence[dict]) -> None:
-        if not records:
-            return
-        self.handle.write("".join(json.dumps(r, sort_keys=False) + "\n" for r in records))
-        self.handle.flush()
-        os.fsync(self.handle.fileno())
-
-    def close(self) -> None:
-        self.handle.close()
-
-
-# ---------------------------------------------------------------------------- progress
-
-
-class LineProgress:
-    """Plain progress lines, at most one per ``interval`` seconds and one at the end, for logs."""
-
-    def __init__(self, total: int, stream=None, interval: float = 10.0, clock: Callable[[], float] = time.monotonic,
-                 label: str = "stobuilder batch", unit: str = "items"):
-        self.total, self.stream, self.interval, self.clock = total, stream or sys.stderr, interval, clock
-        self.label, self.unit = label, unit
-        self.counts = dict.fromkeys(STATUSES, 0)
-        self.start = self.clock()
-        self.last = self.start
-        self.computed = 0
-
-    def update(self, status: str) -> None:
-        self.counts[status] += 1
-        if status != "skipped":
-            self.computed += 1
-        now = self.clock()
-        if now - self.last >= self.interval:
-            self.last = now
-            self._line(now)
-
-    def _line(self, now: float) -> None:
-        finished = sum(self.counts.values())
-        elapsed = max(now - self.start, 1e-9)
-        rate = self.computed / elapsed
-        left = self.total - finished
-        eta = f", about {left / rate:.0f} s left" if rate > 0 and left else ""
-        print(
-            f"{self.label}: {finished}/{self.total} (done {self.counts['done']}, skipped "
-            f"{self.counts['skipped']}, failed {self.counts['failed']}), {rate:.1f} {self.unit}/s{eta}",
-            file=self.stream,
-            flush=True,
-        )
-
-    def close(self) -> None:
-        self._line(self.clock())
-
-
-class BarProgress:
-    """A tqdm progress bar (count, rate, estimate) with the done/skipped/failed counts."""
-
-    def __init__(self, total: int, stream=None, label: str = "stobuilder batch", unit: str = "items"):
-        from tqdm import tqdm
-
-        self.counts = dict.fromkeys(STATUSES, 0)
-        self.bar = tqdm(total=total, file=stream or sys.stderr, unit=unit.rstrip("s"), desc=label, dynamic_ncols=True)
-
-    def update(self, status: str) -> None:
-        self.counts[status] += 1
-        self.bar.set_postfix(self.counts, refresh=False)
-        self.bar.update(1)
-
-    def close(self) -> None:
-        self.bar.close()
-
-
-class NoProgress:
-    def update(self, status: str) -> None:
-        pass
-
-    def close(self) -> None:
-        pass
-
-
-PROGRESS_MODES = ("auto", "bar", "lines", "off")
-
-
-def make_progress(total: int, mode: str = "auto", stream=None, interval: float = 10.0,
-                  label: str = "stobuilder batch", unit: str = "items"):
-    """"bar" (tqdm), "lines" (LineProgress), "off", or "auto": a bar when ``stream`` (stderr) is a
-    terminal and tqdm is installed, plain lines otherwise. ``label`` and ``unit`` name the run
-    and what it counts ("stobuilder bench", "calculations")."""
-    stream = stream or sys.stderr
-    if mode == "auto":
-        tty = hasattr(stream, "isatty") and stream.isatty()
-        try:
-            import tqdm  # noqa: F401
-        except ImportError:
-            tty = False
-        mode = "bar" if tty else "lines"
-    if mode == "bar":
-        try:
-            return BarProgress(total, stream, label, unit)
-        except ImportError:
-            raise InputError("--progress bar needs tqdm: pip install tqdm") from None
-    if mode == "lines":
-        return LineProgress(total, stream, interval, label=label, unit=unit)
-    if mode == "off":
-        return NoProgress()
-    raise InputError(f"unknown progress mode {mode!r}; choose auto, bar, lines or off")
-
 
 # ---------------------------------------------------------------------------- running a batch
-
-
-def prepare_out_dir(out_dir: str, force: bool, manifest_name: str = MANIFEST_NAME, what: str = "batch") -> None:
-    """Create the output folder. A folder that holds files but no manifest ``manifest_name`` is
-    refused unless ``force`` (the run would overwrite files it does not own)."""
-    from stobuilder.core.files import check_folder
-
-    check_folder(out_dir)  # a folder, or one that can be made, that takes new files
-    if os.path.isdir(out_dir) and not force and not os.path.exists(os.path.join(out_dir, manifest_name)):
-        if any(not e.startswith(".") for e in os.listdir(out_dir)):
-            raise InputError(f"{out_dir}: the folder holds files but no {what} manifest; use --force to write into it")
-    try:
-        os.makedirs(out_dir, exist_ok=True)
-    except OSError as exc:
-        raise InputError(f"{out_dir}: cannot create the output folder ({exc.strerror})") from None
-
-
-def _remove_stale_temporaries(out_dir: str) -> None:
-    """Temporary files of atomic writes cut short by a killed run (we hold the folder's lock)."""
-    for root, _, files in os.walk(out_dir):
-        for f in files:
-            if f.startswith(TEMP_PREFIX) and f.endswith(".tmp"):
-                os.unlink(os.path.join(root, f))
 
 
 def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str]]:
@@ -847,72 +533,6 @@ def write_outcome(outcome: ItemOutcome, out_dir: str) -> dict[str, dict[str, str
         files[code] = {"path": rel, "sha256": sha256_text(text)}
     write_all(contents)
     return files
-
-
-def default_workers() -> int:
-    """The cores this process may use."""
-    try:
-        return len(os.sched_getaffinity(0))
-    except AttributeError:
-        return os.cpu_count() or 1
-
-
-PARENT_POLL_SECONDS = 0.5  # how often a worker looks whether the batch's main process still lives
-
-
-def worker_count(requested: int | None) -> tuple[int, str | None]:
-    """The local workers for a request: the usable cores when None, else ``requested`` capped
-    at the usable cores (more processes than cores only contend for them), with a note saying
-    so. InputError for a count below 1."""
-    cores = default_workers()
-    if requested is None:
-        return cores, None
-    if isinstance(requested, bool) or not isinstance(requested, int) or requested < 1:
-        raise InputError(f"--workers must be a whole number >= 1, got {requested!r}")
-    if requested > cores:
-        return cores, f"--workers {requested} is more than the {cores} usable core(s); using {cores}"
-    return requested, None
-
-
-def _watch_parent(parent: int) -> None:
-    """Pool initializer: a daemon thread that ends this worker as soon as the process that
-    started it is gone (its parent id changes: the orphan is adopted by init or a subreaper), so
-    that a batch killed with SIGKILL leaves no worker computing for nobody. On Linux the kernel
-    is also asked to send SIGKILL on the parent's death (prctl PR_SET_PDEATHSIG; the poll covers
-    the other systems and the window before the call)."""
-    import threading
-
-    if sys.platform.startswith("linux"):
-        try:
-            import ctypes
-            import signal
-
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)  # PR_SET_PDEATHSIG = 1 (linux/prctl.h)
-        except (OSError, AttributeError):
-            pass
-
-    def watch():
-        while os.getppid() == parent:
-            time.sleep(PARENT_POLL_SECONDS)
-        os._exit(1)
-
-    if os.getppid() != parent:
-        os._exit(1)
-    threading.Thread(target=watch, name="stobuilder-parent-watch", daemon=True).start()
-
-
-def local_executor(workers: int) -> cf.Executor:
-    """A process pool of ``workers`` processes (capped at the usable cores, ``worker_count``),
-    started by spawn (no inherited threads or state); every worker exits when the process that
-    made the pool dies (``_watch_parent``)."""
-    import multiprocessing
-
-    count, _ = worker_count(workers)
-    return cf.ProcessPoolExecutor(
-        max_workers=count, mp_context=multiprocessing.get_context("spawn"),
-        initializer=_watch_parent, initargs=(os.getpid(),),
-    )
 
 
 def check_zeta(items: Sequence[BatchItem], options: BuildOptions) -> None:
@@ -955,9 +575,9 @@ def run_batch(
     out_dir : output folder; holds the files and the manifest ``MANIFEST_NAME``.
     executor : any concurrent.futures Executor, e.g. ``distributed.Client(addr).get_executor()``;
         None runs a local process pool of ``workers`` processes (default: the usable cores),
-        rebuilt (at most MAX_POOL_RESTARTS times) if one of its processes dies.
+        rebuilt (at most ``jobs.executors.MAX_POOL_RESTARTS`` times) if one of its processes dies.
     force : recompute every item, whatever the manifest says.
-    progress : an object with update(status) and close(), e.g. ``make_progress(len(items))``.
+    progress : an object with update(status) and close(), e.g. ``jobs.make_progress(len(items))``.
     threads : OpenMP threads per item for the SCF checks.
 
     Every finished item gets one record, appended and fsynced after its files are written; an
@@ -968,14 +588,14 @@ def run_batch(
     if not isinstance(options, BuildOptions):
         raise TypeError(f"options must be a BuildOptions, got {type(options).__name__}")
     check_zeta(items, options)
-    prepare_out_dir(out_dir, force)
+    prepare_out_dir(out_dir, force, MANIFEST_NAME, "batch")
     path = manifest_path(out_dir)
     manifest = Manifest(path, fresh=force)
     notes = manifest.notes
     progress = progress or NoProgress()
     final: dict[str, dict] = {}
     try:
-        _remove_stale_temporaries(out_dir)
+        remove_stale_temporaries(out_dir)
         previous = {} if force else read_manifest(path, notes)
         todo, skipped = [], []
         for item in items:
@@ -1019,139 +639,19 @@ def _worker_failure(task: Task, exc: BaseException) -> ItemOutcome:
     return ItemOutcome(task.item, None, error=f"{task.item.path}: the worker failed ({type(exc).__name__}: {reason})")
 
 
-def run_tasks(tasks: Sequence, function: Callable, finish: Callable, failure: Callable,
-              executor: cf.Executor | None = None, workers: int | None = None) -> None:
-    """The engine under ``run_batch`` and the bench: run ``function(task)`` for every task on
-    ``executor`` (any concurrent.futures Executor, e.g. a Dask client's) or else on our own
-    spawn process pool of ``workers`` processes (default: the usable cores; rebuilt when a worker
-    process dies, ``_run_local``), and call ``finish(outcome)`` in this process as each one ends,
-    in the order they end. A task that raises becomes ``failure(task, exception)``, which is
-    finished like any outcome. ``function`` must be a picklable top-level function."""
-    if not tasks:
-        return
-    if executor is not None:
-        _run_on(executor, tasks, finish, function, failure)
-    else:
-        _run_local(tasks, workers or default_workers(), finish, function, failure)
-
-
-def _run_on(executor: cf.Executor, tasks: Sequence, finish, function=run_item, failure=_worker_failure) -> None:
-    """Run the tasks on a caller's executor; a task that raises (a worker lost for good) is a
-    failure."""
-    futures = {executor.submit(function, t): t for t in tasks}
-    try:
-        for future in cf.as_completed(futures):
-            try:
-                outcome = future.result()
-            except Exception as exc:
-                outcome = failure(futures[future], exc)
-            finish(outcome)
-    except BaseException:
-        for future in futures:
-            future.cancel()
-        raise
-
-
-def _run_local(tasks: Sequence, workers: int, finish, function=run_item, failure=_worker_failure) -> None:
-    """Run the tasks on our own process pool; when a worker process dies the pool breaks, and the
-    unfinished tasks go to a new pool (MAX_POOL_RESTARTS times, then they fail)."""
-    from concurrent.futures.process import BrokenProcessPool
-
-    pending = list(tasks)
-    for attempt in range(MAX_POOL_RESTARTS + 1):
-        broken: list = []
-        pool = local_executor(min(workers, len(pending)))
-        completed = False
-        try:
-            futures = {pool.submit(function, t): t for t in pending}
-            for future in cf.as_completed(futures):
-                try:
-                    outcome = future.result()
-                except BrokenProcessPool as exc:
-                    if attempt < MAX_POOL_RESTARTS:
-                        broken.append(futures[future])
-                        continue
-                    outcome = failure(futures[future], exc)
-                except Exception as exc:
-                    outcome = failure(futures[future], exc)
-                finish(outcome)
-            completed = True
-        finally:
-            # on Ctrl-C or an error, do not wait for the queued tasks
-            pool.shutdown(wait=completed, cancel_futures=not completed)
-        if not broken:
-            return
-        pending = broken
-
-
-SCHEDULER_PROTOCOLS = ("tcp", "tls", "ucx", "ws", "wss", "inproc")  # distributed's comm back-ends
-
-
-def check_scheduler_address(address: str) -> str:
-    """``address`` when it has the form of a Dask scheduler address, ``PROTOCOL://HOST:PORT``
-    (protocols of SCHEDULER_PROTOCOLS; tcp:// may be left out) with a port 1–65535; InputError
-    otherwise. Checked before anything starts, and before dask is imported."""
-    from urllib.parse import urlsplit
-
-    text = address.strip() if isinstance(address, str) else ""
-    problem = None
-    if not text or any(c.isspace() for c in text):
-        problem = "not an address"
-    else:
-        parts = urlsplit(text if "://" in text else "tcp://" + text)
-        if parts.scheme not in SCHEDULER_PROTOCOLS:
-            problem = f"unknown protocol {parts.scheme!r} (use {', '.join(p + '://' for p in SCHEDULER_PROTOCOLS)})"
-        elif parts.scheme != "inproc":
-            try:
-                port = parts.port
-            except ValueError:
-                port = -1
-            if not parts.hostname:
-                problem = "no host"
-            elif port is None or not 1 <= port <= 65535:
-                problem = "no port 1-65535"
-            elif parts.path not in ("", "/") or parts.query or parts.fragment:
-                problem = "extra text after HOST:PORT"
-    if problem:
-        raise InputError(f"--scheduler {address!r}: {problem}; expected an address such as tcp://host:8786")
-    return text
-
-
-def dask_executor(address: str):
-    """A Client connected to the Dask scheduler at ``address`` and its Executor (pure=False:
-    every submission runs). Needs dask.distributed (``pip install stobuilder[cluster]``)."""
-    address = check_scheduler_address(address)
-    try:
-        from distributed import Client
-    except ImportError:
-        raise InputError("--scheduler needs dask.distributed: pip install 'stobuilder[cluster]'") from None
-    try:
-        client = Client(address, timeout="10s")
-    except (OSError, TimeoutError, ValueError, TypeError) as exc:
-        reason = " ".join(str(exc).split()) or type(exc).__name__
-        raise InputError(f"{address}: cannot reach the Dask scheduler ({reason})") from None
-    return client, client.get_executor(pure=False)
-
-
 __all__ = [
     "BatchItem",
     "BuildOptions",
     "BatchSummary",
     "ItemOutcome",
     "MANIFEST_NAME",
-    "Manifest",
     "Task",
-    "check_scheduler_address",
-    "dask_executor",
     "discover",
     "is_structure_name",
     "is_up_to_date",
-    "make_progress",
     "read_list",
     "read_manifest",
     "run_batch",
     "run_item",
-    "run_tasks",
     "structure_extensions",
-    "worker_count",
 ]

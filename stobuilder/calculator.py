@@ -2,7 +2,7 @@
 
 ``STOCalculator`` is an ASE calculator (ASE's conventions: eV, Å, e·Å; ``implemented_properties``;
 results dropped when the atoms change) that builds our basis for the atoms it is given and runs
-PySCF's SCF through ``checks.solve``, the one SCF driver:
+PySCF's SCF through ``scf.solve_scf``, the one SCF driver:
 
     energy, free_energy   the SCF total energy (eV; the two are equal, there is no smearing)
     forces                −∇E from PySCF's analytic SCF gradients (eV/Å)
@@ -135,8 +135,8 @@ def pyscf_mole(atoms_or_path, **options):
     ``spin`` = 2S, ``multiplicity``) or the file's. Molecules only; InputError for bad input.
     The options' ζ are checked as the calculator checks them; no size guard (no SCF runs here:
     what the caller runs on the Mole, and with what memory, is the caller's)."""
-    from stobuilder.checks.structure import structure_mole
     from stobuilder.model.structures import check_geometry, read_structures
+    from stobuilder.scf.mole import structure_mole
 
     options = renamed_parameters(options, "pyscf_mole")
     _check_names(options, BASIS_PARAMETERS, "pyscf_mole")
@@ -276,9 +276,10 @@ class STOCalculator(Calculator):
     def _calculate(self, atoms, properties, system_changes):
         from ase.units import Bohr, Hartree
 
-        from stobuilder.checks.structure import solve, structure_mole
         from stobuilder.model.methods import pick_method
         from stobuilder.pipeline.path import check_electrons
+        from stobuilder.scf.mole import structure_mole
+        from stobuilder.scf.run import solve_scf
 
         if not system_changes and self.scf is not None and "energy" in self.results:
             # same atoms and parameters (ASE keeps the results): only the forces are missing
@@ -294,7 +295,7 @@ class STOCalculator(Calculator):
         signature = (key, structure.symbols, structure.charge, structure.spin, method)
         dm0 = self._density[1] if self._density is not None and self._density[0] == signature else None
         p = self.parameters
-        mf, iterations = solve(mol, method, int(p["max_cycle"]), dm0=dm0, conv_tol=float(p["conv_tol"]))
+        mf, iterations = solve_scf(mol, method, int(p["max_cycle"]), dm0=dm0, conv_tol=float(p["conv_tol"]))
         self.scf, self.mol, self.basis, self.iterations = mf, mol, basis, iterations
         if not mf.converged:
             self._density = None

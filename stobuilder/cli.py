@@ -69,7 +69,7 @@ def _print_json(doc) -> None:
 
 def _parser() -> argparse.ArgumentParser:
     from stobuilder import relax
-    from stobuilder.batch import PROGRESS_MODES
+    from stobuilder.jobs.progress import PROGRESS_MODES
     from stobuilder.expansion.fit import NORMS
     from stobuilder.model.methods import METHODS
     from stobuilder.pipeline.options import add_arguments
@@ -317,28 +317,28 @@ def _cmd_relax(args) -> int:
 def _workers(args) -> tuple[int | None, str | None]:
     """``--workers`` / ``--scheduler`` checked (batch and bench): (local worker count, or None on
     a Dask cluster; a note when the count was capped)."""
-    from stobuilder import batch
+    from stobuilder import jobs
 
     if args.scheduler is not None and args.workers is not None:
         raise InputError("--workers is for local runs; a Dask cluster brings its own workers")
     if args.workers is not None and args.workers < 1:
         raise InputError(f"--workers must be >= 1, got {args.workers}")
     if args.scheduler is not None:
-        batch.check_scheduler_address(args.scheduler)
+        jobs.check_scheduler_address(args.scheduler)
         return None, None
-    return batch.worker_count(args.workers)
+    return jobs.worker_count(args.workers)
 
 
 @contextlib.contextmanager
 def _executor(args):
     """The Dask cluster's executor for ``--scheduler`` (its client closed afterwards), else None:
     the engine's own process pool."""
-    from stobuilder import batch
+    from stobuilder import jobs
 
     if args.scheduler is None:
         yield None
         return
-    client, executor = batch.dask_executor(args.scheduler)
+    client, executor = jobs.dask_executor(args.scheduler)
     try:
         yield executor
     finally:
@@ -346,7 +346,7 @@ def _executor(args):
 
 
 def _cmd_batch(args) -> int:
-    from stobuilder import batch
+    from stobuilder import batch, jobs
     from stobuilder.core.limits import one_line  # a path with a line end in a note stays one line
 
     workers, note = _workers(args)
@@ -360,7 +360,7 @@ def _cmd_batch(args) -> int:
     with _executor(args) as executor:
         summary = batch.run_batch(
             items, options, args.out, executor=executor, workers=workers, force=args.force,
-            progress=batch.make_progress(len(items), args.progress),
+            progress=jobs.make_progress(len(items), args.progress),
         )
     for note in summary.notes:
         print(f"stobuilder: note: {one_line(note)}", file=sys.stderr)
@@ -380,7 +380,7 @@ def _cmd_batch(args) -> int:
 
 
 def _cmd_bench(args) -> int:
-    from stobuilder import batch
+    from stobuilder import jobs
     from stobuilder.bench import run as bench
     from stobuilder.core.limits import one_line
 
@@ -398,7 +398,7 @@ def _cmd_bench(args) -> int:
     plan = bench.plan(structures, variants, args.reference)
     with _executor(args) as executor:
         result = bench.run_bench(plan, args.out, executor=executor, workers=workers, force=args.force,
-                                 progress=batch.make_progress(len(plan.tasks), args.progress, label="stobuilder bench",
+                                 progress=jobs.make_progress(len(plan.tasks), args.progress, label="stobuilder bench",
                                                               unit="calculations"))
     for note in result.notes:
         print(f"stobuilder: note: {one_line(note)}", file=sys.stderr)

@@ -366,11 +366,14 @@ def _items(paths: Sequence[str], options: BuildOptions, weights=None, role: str 
 
 def _scf(item: _Item, options: BuildOptions, zeta: dict, dm0):
     """(energy or None, density) of ``item`` with the ζ overrides ``zeta`` on top of the options'."""
-    from stobuilder.checks.structure import atom_configuration, free_atom_setup, solve, structure_mole
+    from stobuilder.checks.structure import atom_configuration
+    from stobuilder.scf.free_atom import free_atom_setup
+    from stobuilder.scf.mole import structure_mole
     from stobuilder.pipeline.path import basis_for
+    from stobuilder.scf.run import solve_scf
 
     basis = basis_for([item.structure], options, ZetaTable.of(zeta))
-    if item.atom:  # the fixed-occupation free atom of build --check (checks.free_atom_setup)
+    if item.atom:  # the fixed-occupation free atom of build --check (scf.free_atom_setup)
         symbol = item.structure.symbols[0]
         mol, configure = free_atom_setup(symbol, atom_configuration(basis, symbol), basis[symbol].to_pyscf(), item.method)
     else:
@@ -378,7 +381,7 @@ def _scf(item: _Item, options: BuildOptions, zeta: dict, dm0):
     if dm0 is not None and np.shape(dm0)[-1] != mol.nao:
         dm0 = None
     try:
-        mf, _ = solve(mol, item.method, dm0=dm0, configure=configure, conv_tol=SCF_CONV_TOL)
+        mf, _ = solve_scf(mol, item.method, dm0=dm0, configure=configure, conv_tol=SCF_CONV_TOL)
     except Exception as exc:  # a numerical failure of the SCF counts as not converged
         log.info("tune: %s: the SCF failed (%s)", item.label, type(exc).__name__)
         return None, None

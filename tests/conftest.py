@@ -6,6 +6,7 @@ import warnings
 warnings.filterwarnings("ignore", category=UserWarning, module=r"pyscf.*")
 
 import pytest  # noqa: E402
+from stobuilder.jobs import executors
 
 
 @pytest.fixture(autouse=True, scope="session")
@@ -39,12 +40,12 @@ def no_scf(monkeypatch):
     checks that must refuse a bad input or output location before the first SCF."""
     from pyscf.scf import hf
 
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
 
     def refuse(*args, **kwargs):
         pytest.fail("an SCF ran before the input and output checks refused")
 
-    monkeypatch.setattr(checks, "solve", refuse)
+    monkeypatch.setattr(scf_run, "solve_scf", refuse)
     monkeypatch.setattr(hf.SCF, "kernel", refuse)
     monkeypatch.setattr(hf.SCF, "scf", refuse)
 
@@ -57,7 +58,7 @@ def threads(monkeypatch):
 
     from stobuilder import batch
 
-    monkeypatch.setattr(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
+    monkeypatch.setattr(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(1))
 
 
 @pytest.fixture()

@@ -6,6 +6,7 @@ import os
 from pathlib import Path
 
 from stobuilder.cli import main
+from stobuilder.jobs import executors
 
 ROOT = Path(__file__).resolve().parents[1]  # the checkout whose code the tests run
 
@@ -29,7 +30,7 @@ def run_in_threads(argv):
     from stobuilder import batch
 
     err, out = io.StringIO(), io.StringIO()
-    threads = mock.patch.object(batch, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
+    threads = mock.patch.object(executors, "local_executor", lambda workers: cf.ThreadPoolExecutor(workers))
     with contextlib.redirect_stderr(err), contextlib.redirect_stdout(out), threads:
         code = main(argv)
     return code, err.getvalue()

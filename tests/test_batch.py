@@ -45,6 +45,9 @@ from stobuilder.core.files import sha256_text
 from stobuilder.core.limits import one_line
 from stobuilder.pipeline.path import build_structures
 from support import ROOT, assert_one_line_error, child_env, kill_when_done, run_cli
+from stobuilder.jobs import executors
+from stobuilder.jobs import progress as jobs_progress
+from stobuilder.jobs import manifest as jobs_manifest
 
 EXAMPLES = ROOT / "examples" / "structures"
 # Closed-shell G2 molecules of 7 or more atoms: their SCF checks take a noticeable fraction of a
@@ -313,7 +316,7 @@ def test_progress_lines_count_rate_and_estimate():
 
     now = [0.0]
     stream = io.StringIO()
-    progress = batch.LineProgress(10, stream, interval=5.0, clock=lambda: now[0])
+    progress = jobs_progress.LineProgress(10, stream, interval=5.0, clock=lambda: now[0])
     for i, status in enumerate(["skipped", "done", "done", "failed", "done"]):
         now[0] = 2.0 * (i + 1)
         progress.update(status)
@@ -326,7 +329,7 @@ def test_progress_lines_count_rate_and_estimate():
     assert lines[0] == "stobuilder batch: 3/10 (done 2, skipped 1, failed 0), 0.3 items/s, about 21 s left"
     assert lines[1] == "stobuilder batch: 5/10 (done 3, skipped 1, failed 1), 0.4 items/s, about 12 s left"
     assert len(lines) == 2
-    assert batch.make_progress(3, "auto", io.StringIO()).__class__ is batch.LineProgress  # not a terminal
+    assert jobs_progress.make_progress(3, "auto", io.StringIO()).__class__ is jobs_progress.LineProgress  # not a terminal
 
 
 # ---------------------------------------------------------------------------- Dask
@@ -695,7 +698,7 @@ def test_a_batch_manifest_that_is_a_symbolic_link_is_refused(tmp_path, capsys):
     assert outside.read_text() == "not yours\n"
     assert sorted(os.listdir(out)) == [batch.MANIFEST_NAME]
     with pytest.raises(batch.InputError, match="symbolic link"):
-        batch.Manifest(str(out / batch.MANIFEST_NAME))
+        jobs_manifest.Manifest(str(out / batch.MANIFEST_NAME))
 
 
 
@@ -762,13 +765,13 @@ def test_batch_prints_a_failure_from_a_hostile_file_name_on_one_line(tmp_path, c
 
 
 def test_workers_are_capped_at_the_usable_cores_with_a_note(library, tmp_path):
-    cores = batch.default_workers()
-    assert batch.worker_count(None) == (cores, None)
-    assert batch.worker_count(1) == (1, None)
-    count, note = batch.worker_count(1000)
+    cores = executors.default_workers()
+    assert executors.worker_count(None) == (cores, None)
+    assert executors.worker_count(1) == (1, None)
+    count, note = executors.worker_count(1000)
     assert count == cores and "1000" in note
     with pytest.raises(InputError):
-        batch.worker_count(0)
+        executors.worker_count(0)
     run = _cli(["batch", str(library), "--out", str(tmp_path / "out"), "--workers", "1000"])
     assert run.returncode == 0, run.stderr
     assert f"using {cores}" in run.stderr
@@ -827,7 +830,7 @@ def test_workers_exit_when_the_batch_process_is_killed(tmp_path):
         proc.wait(timeout=30)
         # an item takes seconds here (benzene, STO-6G, SCF checks); without the watch a busy
         # worker would finish its item first. The watch polls every PARENT_POLL_SECONDS.
-        deadline = time.monotonic() + 4 * batch.PARENT_POLL_SECONDS + 1.0
+        deadline = time.monotonic() + 4 * executors.PARENT_POLL_SECONDS + 1.0
         while time.monotonic() < deadline and any(_alive(w) for w in workers):
             time.sleep(0.1)
         survivors = [w for w in workers if _alive(w)]
@@ -856,7 +859,7 @@ def test_bad_scheduler_addresses_are_errors_before_anything_starts(library, tmp_
                                      "tcp://[::1]:8786", "ws://h:1", "inproc://10.0.0.1/1/2"])
 def test_scheduler_addresses_of_dask_form_pass_the_check(address):
     # forms of distributed's comm addresses (distributed docs, "Communications"; value from memory)
-    assert batch.check_scheduler_address(address) == address
+    assert executors.check_scheduler_address(address) == address
 
 
 

@@ -30,6 +30,7 @@ from ase.io import write
 
 from stobuilder.bench import run as bench
 from support import assert_bad_input, assert_one_line_error, child_env, kill_when_done, run_cli, strict_json
+from stobuilder.scf import run as scf_run
 
 # Open and closed shells, first and second row, RHF and ROHF (spins from ASE's magnetic moments)
 SUBSET = ["CH4", "NH3", "H2O", "HF", "OH", "NH", "O2", "HCl", "SiH3", "PH2", "LiH", "CO"]
@@ -255,7 +256,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch, th
     # the calculations run in this process (a one-thread pool), so the fault can be injected
     from stobuilder.checks import structure as checks
 
-    real = checks.solve
+    real = scf_run.solve_scf
 
     def failing(mol, method, *args, **kwargs):
         mf, iterations = real(mol, method, *args, **kwargs)
@@ -263,7 +264,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch, th
             mf.converged = False
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", failing)
+    monkeypatch.setattr(scf_run, "solve_scf", failing)
     out = tmp_path / "run"
     argv = ["bench", "--set", "g2-1", "CH4", "H2O", "--rule", "molecular", "--out", str(out), "--progress", "off"]
     code, stdout, err = run_cli(argv + ["--json"], capsys)
@@ -276,7 +277,7 @@ def test_failed_scf_is_a_failed_row_and_exit_1(tmp_path, capsys, monkeypatch, th
     page = (out / "report.html").read_text()
     assert "H2O (molecular N=3 l2): SCF not converged" in page
     # the next run recomputes only the failed calculation
-    monkeypatch.setattr(checks, "solve", real)
+    monkeypatch.setattr(scf_run, "solve_scf", real)
     code, stdout, err = run_cli(argv, capsys)
     assert code == 0, err
     assert _counts(stdout) == (5, 1, 4, 0)
@@ -430,7 +431,7 @@ def test_bench_refuses_a_reference_basis_too_big_for_memory_before_any_scf(tmp_p
     # 1007 (1989); value from memory), 86 in all: its integrals, 86⁴/1e6 = 54.7 MB, do not fit in
     # 0.95 × 20 MB, so direct SCF, 250 MB of buffers + 40·8·86² bytes (stobuilder.checks.structure.scf_size);
     # the minimal basis, 9 functions, fits (about 0.03 MB)
-    from stobuilder.checks.structure import scf_size
+    from stobuilder.scf.size import scf_size
 
     monkeypatch.setenv("STOBUILDER_MAX_MEMORY", "20")
     expected = scf_size(86, "RHF", 20.0)

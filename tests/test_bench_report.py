@@ -129,7 +129,7 @@ def test_the_page_is_byte_identical_and_embeds_deterministic_pngs(two_variants, 
     assert [base64.b64decode(s.split(",", 1)[1]) for s in parser.images] == [first[files["energy_plot"]],
                                                                              first[files["atomization_plot"]]]
     # another process draws the same bytes (the PNG carries no time and no software tag)
-    code = ("import sys, json; from stobuilder import bench_report as r; "
+    code = ("import sys, json; from stobuilder.bench import report as r; "
             "sys.stdout.buffer.write(r._png(r._figure(2, 2)[0]))")
     env = child_env()
     a = subprocess.run([sys.executable, "-c", code], capture_output=True, env=env, timeout=120).stdout

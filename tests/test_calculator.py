@@ -19,6 +19,7 @@ import stobuilder
 from stobuilder import InputError
 from stobuilder.calculator import STOCalculator
 from support import zeta_file
+from stobuilder.scf import run as scf_run
 
 @pytest.fixture(autouse=True)
 def _one_thread():
@@ -193,7 +194,7 @@ def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypat
     from stobuilder.checks import structure as checks
 
     built, starts = [], []
-    real_build_basis, real_solve = construct.build_basis, checks.solve
+    real_build_basis, real_solve = construct.build_basis, scf_run.solve_scf
 
     def counting_build_basis(elements, spec=None, **kw):
         built.append(spec.rule)  # basis_of, the one basis cache, builds through build_basis
@@ -205,7 +206,7 @@ def test_basis_is_built_once_and_each_scf_starts_from_the_last_density(monkeypat
 
     construct.basis_of.cache_clear()
     monkeypatch.setattr(construct, "build_basis", counting_build_basis)
-    monkeypatch.setattr(checks, "solve", recording_solve)
+    monkeypatch.setattr(scf_run, "solve_scf", recording_solve)
     atoms = distorted_water()
     calc = STOCalculator(rule="clementi")
     atoms.calc = calc
@@ -375,7 +376,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
         reference.append(atoms.get_potential_energy())
         reference_dipole.append(atoms.get_dipole_moment())
     assert np.linalg.norm(reference_dipole[1]) > 0.1  # water's dipole (some 0.2 e·Å), not a zero
-    real_solve = checks.solve
+    real_solve = scf_run.solve_scf
 
     def slow_solve(*args, **kwargs):
         # a slower SCF and a slower analysis after it (the energy is stored by then): the
@@ -391,7 +392,7 @@ def test_one_calculator_shared_by_threads_returns_each_its_own_molecules_result(
         mf.mulliken_pop = slow_population
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", slow_solve)
+    monkeypatch.setattr(scf_run, "solve_scf", slow_solve)
     # threads switch every microsecond instead of every 5 ms: any unguarded window between
     # setting calc.atoms, computing and reading calc.results is hit within a few calls
     old_interval = sys.getswitchinterval()
@@ -482,7 +483,7 @@ def test_the_parameter_names_of_earlier_versions_still_work():
     with pytest.warns(DeprecationWarning, match="use norm"):
         old = STOCalculator(fit="h1", rule="clementi")
     with pytest.warns(DeprecationWarning, match="use sharing"):
-        older = STOCalculator(exponents="separate")
+        older = STOCalculator(exponents="separate")  # deprecated name
     assert old._options == STOCalculator(norm="h1", rule="clementi")._options
     assert older._options == STOCalculator(sharing="separate")._options
     with pytest.raises(TypeError, match="not both"):

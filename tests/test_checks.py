@@ -17,10 +17,13 @@ from ase.build import molecule
 from ase.io import write
 
 import stobuilder
-from stobuilder.checks.structure import check_free_atom, check_structure, make_mole, run_scf
+from stobuilder.checks.structure import check_free_atom, check_structure
+from stobuilder.scf.mole import make_mole
+from stobuilder.scf.run import run_scf
 from stobuilder.core.errors import InputError
 from stobuilder.model.structures import Structure
 from support import assert_bad_input, run_cli, strict_json, xyz
+from stobuilder.scf import run as scf_run
 
 BOHR = 0.52917721092  # ångström per bohr (CODATA 2010, as PySCF uses)
 
@@ -294,7 +297,7 @@ def test_a_small_molecule_passes_the_guard(tmp_path, capsys, monkeypatch):
 def test_a_long_scf_prints_its_cycles_on_stderr(tmp_path, capsys, monkeypatch):
     import stobuilder.checks.structure as checks
 
-    monkeypatch.setattr(checks, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
+    monkeypatch.setattr(scf_run, "PROGRESS_SECONDS", 0.0)  # every SCF counts as long
     path = tmp_path / "water.xyz"
     write(path, molecule("H2O"))  # ASE G2 geometry
     code, _, err = run_cli(["build", str(path), "--check", "--out", str(tmp_path / "out")], capsys)

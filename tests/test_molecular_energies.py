@@ -25,8 +25,11 @@ import pytest
 from pyscf.gto.basis import load
 
 import stobuilder
-from stobuilder.checks.structure import check_free_atom, make_mole, run_scf
-from stobuilder.checks.structure import _atom_solver, irrep_occupations, pick_method
+from stobuilder.checks.structure import check_free_atom
+from stobuilder.scf.mole import make_mole
+from stobuilder.scf.run import run_scf
+from stobuilder.checks.structure import pick_method
+from stobuilder.scf.free_atom import irrep_configurer, irrep_occupations
 from stobuilder.model.elements import atomic_number, element_symbol
 from stobuilder.core.errors import InputError
 from stobuilder.screening.molecular import table
@@ -61,7 +64,7 @@ def _energy(symbol, shells, conf):
     spin = conf.unpaired
     method = pick_method("auto", spin)
     mol = make_mole([(symbol, (0, 0, 0))], {symbol: shells}, conf.charge, spin, symmetry=True)
-    result = run_scf(mol, method, configure=_atom_solver(irrep_occupations(conf), method))
+    result = run_scf(mol, method, configure=irrep_configurer(irrep_occupations(conf), method))
     assert result.converged
     return result.energy_hartree
 

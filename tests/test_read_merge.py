@@ -19,7 +19,7 @@ import pytest
 
 import stobuilder
 from stobuilder.formats.common import number
-from stobuilder.pipeline.path import merge_file
+from stobuilder.pipeline.merge import merge_file
 from support import assert_one_line_error, run_cli
 
 ALL = tuple(stobuilder.formats())
@@ -187,7 +187,7 @@ def test_merge_into_cp2k_keeps_other_names_of_our_elements(basis):
     theirs = stobuilder.write_basis(other, "cp2k").replace("STO-6G-slater", "THEIR-O")
     merged = stobuilder.merge_basis(theirs, basis, "cp2k")
     assert "O  THEIR-O" in merged and "O  STO-3G-slater" in merged
-    from stobuilder.pipeline.path import merge_text
+    from stobuilder.pipeline.merge import merge_text
 
     assert merge_text(theirs, basis, "cp2k") == merged  # the entry check passes with two O entries
 

@@ -192,7 +192,7 @@ def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones
     from ase.calculators.calculator import SCFError
 
     from stobuilder import InputError
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
     from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import relax_structures
 
@@ -200,7 +200,7 @@ def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones
     first.write_text(H2_TEXT)
     second.write_text("3\n\nO 0 0 0\nH 0 0.76 0.59\nH 0 -0.76 0.59\n")
     out = tmp_path / "out"
-    real = checks.solve
+    real = scf_run.solve_scf
     seen = []
 
     def solve(mol, *args, **kwargs):
@@ -209,7 +209,7 @@ def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones
             raise SCFError("a simulated SCF failure")
         return real(mol, *args, **kwargs)
 
-    monkeypatch.setattr(checks, "solve", solve)
+    monkeypatch.setattr(scf_run, "solve_scf", solve)
     with pytest.raises(InputError) as e:
         relax_structures([str(first), str(second)], BuildOptions(gaussians=2), out_dir=str(out))
     text = str(e.value)
@@ -221,13 +221,13 @@ def test_relax_writes_each_structure_when_done_and_an_scf_failure_keeps_the_ones
 
 INTERRUPTED_RUN = """
 import sys, time
-from stobuilder import checks
-real = checks.solve
+from stobuilder.scf import run as scf_run
+real = scf_run.solve_scf
 def slow(mol, *args, **kwargs):
     if mol.natm == 3:  # the second structure (water): a slow SCF at every step
         time.sleep(0.2)
     return real(mol, *args, **kwargs)
-checks.solve = slow
+scf_run.solve_scf = slow
 from stobuilder.cli import main
 sys.exit(main(sys.argv[1:]))
 """
@@ -341,7 +341,7 @@ def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_pa
     import threading
     import time
 
-    from stobuilder.checks import structure as checks
+    from stobuilder.scf import run as scf_run
     from stobuilder.pipeline.options import BuildOptions
     from stobuilder.relax import RelaxInterrupted, relax_structures
 
@@ -349,7 +349,7 @@ def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_pa
     first.write_text(H2_TEXT)
     second.write_text("3\n\nO 0 0 0\nH 0 0.80 0.55\nH 0 -0.75 0.62\n")
     out = tmp_path / "out"
-    real = checks.solve
+    real = scf_run.solve_scf
 
     def solve(mol, *args, **kwargs):
         if mol.natm == 3:  # the water, in the worker thread: Ctrl-C in the waiting thread
@@ -357,7 +357,7 @@ def test_the_python_door_raises_relaxinterrupted_with_the_results_written(tmp_pa
             time.sleep(0.2)  # an SCF still running after the interrupt
         return real(mol, *args, **kwargs)
 
-    monkeypatch.setattr(checks, "solve", solve)
+    monkeypatch.setattr(scf_run, "solve_scf", solve)
     with pytest.raises(RelaxInterrupted) as e:
         relax_structures([str(first), str(second)], BuildOptions(gaussians=2), out_dir=str(out))
     assert isinstance(e.value, KeyboardInterrupt)

@@ -31,6 +31,8 @@ from stobuilder.pipeline.options import BuildOptions, load_zeta_file
 from stobuilder.core.errors import InputError
 from stobuilder.tune import default_variables, energy_gradient, parse_vary, tune
 from support import assert_one_line_error, child_env, run_cli, run_in_threads
+from stobuilder.scf import run as scf_run
+from stobuilder.scf import mole as scf_mole
 
 # Standard molecular valence ζ(2s) = ζ(2p) of the published STO-3G, bohr⁻¹
 # (W. J. Hehre, R. F. Stewart, J. A. Pople, J. Chem. Phys. 51, 2657 (1969), Table I).
@@ -204,13 +206,13 @@ def test_central_differences_obey_the_scaling_identity(tmp_path, name, vary):
     energy, gradient = energy_gradient([path], options, vary)
     assert set(gradient) == set(vary) and all(abs(g) > 1e-3 for g in gradient.values())
     frames = read_structures(path)
-    mol = checks.structure_mole(frames[0], basis_for(frames, options))
+    mol = scf_mole.structure_mole(frames[0], basis_for(frames, options))
 
     def tight(mf):
         mf.conv_tol_grad = 1e-9
         return mf
 
-    mf, _ = checks.solve(mol, "RHF", conv_tol=1e-12, configure=tight)
+    mf, _ = scf_run.solve_scf(mol, "RHF", conv_tol=1e-12, configure=tight)
     assert energy == pytest.approx(mf.e_tot, abs=1e-9)
     kinetic = float(np.einsum("ij,ji", mf.make_rdm1(), mol.intor("int1e_kin")))
     virial = 2 * kinetic + (mf.e_tot - kinetic) + float(np.sum(mol.atom_coords() * mf.nuc_grad_method().kernel()))
@@ -304,8 +306,8 @@ def test_bad_input_is_one_line_and_writes_nothing(tmp_path, capsys, extra, weigh
 
 
 def _solve_failing(monkeypatch, after):
-    """checks.solve, with every SCF from call number ``after`` on reported as not converged."""
-    real, calls = checks.solve, {"n": 0}
+    """scf_run.solve_scf, with every SCF from call number ``after`` on reported as not converged."""
+    real, calls = scf_run.solve_scf, {"n": 0}
 
     def solve(*args, **kwargs):
         calls["n"] += 1
@@ -314,7 +316,7 @@ def _solve_failing(monkeypatch, after):
             mf.converged = False
         return mf, iterations
 
-    monkeypatch.setattr(checks, "solve", solve)
+    monkeypatch.setattr(scf_run, "solve_scf", solve)
 
 
 def test_scf_not_converging_at_the_start_is_bad_input(tmp_path, capsys, monkeypatch):
@@ -705,13 +707,13 @@ def test_tune_hostile_names_weights_starts_and_targets_end_in_the_contract(name,
         if start is not None:
             argv.append(f"--zeta=H:1s={start!r}")
         scf_runs = {"n": 0}
-        real_solve = checks.solve
+        real_solve = scf_run.solve_scf
 
         def counting_solve(*args, **kwargs):
             scf_runs["n"] += 1
             return real_solve(*args, **kwargs)
 
-        with mock.patch.object(checks, "solve", counting_solve):
+        with mock.patch.object(scf_run, "solve_scf", counting_solve):
             code, message = run_in_threads(argv)
         event(f"tune {where} exit {code}")
         assert "Traceback" not in message

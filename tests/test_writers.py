@@ -8,7 +8,8 @@ from pyscf import gto
 from pyscf.gto.basis import parse_gaussian
 
 import stobuilder
-from stobuilder.checks.structure import make_mole, run_scf
+from stobuilder.scf.mole import make_mole
+from stobuilder.scf.run import run_scf
 
 WATER = [("O", (0.0, 0.0, 0.119262)), ("H", (0.0, 0.763239, -0.477047)), ("H", (0.0, -0.763239, -0.477047))]
 # Geometry: ASE G2 H2O (Curtiss et al., J. Chem. Phys. 106, 1063, 1997).

@@ -13,7 +13,8 @@ import sys
 
 from distributed import Client, LocalCluster
 
-from stobuilder.batch import discover, make_progress, run_batch
+from stobuilder.batch import discover, run_batch
+from stobuilder.jobs import make_progress
 from stobuilder.pipeline.options import BuildOptions
 
 

@@ -6,11 +6,11 @@ The flow::
         ──plan──▶ BenchTask per calculation: each molecule per variant, each free atom per
                   element and variant (never per molecule), and with a reference basis each
                   molecule and atom once more in that basis
-        ──batch.run_tasks (process pool or Dask; the bench manifest; resume)──▶ Calculation
+        ──jobs.run_tasks (process pool or Dask; the bench manifest; resume)──▶ Calculation
         ──assemble──▶ BenchRow per structure × variant, VariantSummary per variant
         ──render (bench_report)──▶ bench.tsv, bench.json, report.html and its PNG plots
 
-Every SCF goes through ``checks.solve`` with the method ``build --check`` picks
+Every SCF goes through ``scf.solve_scf`` with the method ``build --check`` picks
 (``methods.pick_method``: RHF for closed shells, ROHF for open ones). Free atoms are the
 fixed-occupation ground-state atoms of ``checks.check_free_atom`` (``elements.ground_state``,
 the high-spin determinant held by PySCF's SO3 symmetry): RHF for closed-shell atoms (Be here),
@@ -318,9 +318,12 @@ def _energy(mf) -> float | None:
 
 
 def _compute(task: BenchTask) -> tuple[str, float | None, bool, int]:
-    from stobuilder.checks.structure import check_free_atom, free_atom_setup, make_mole, solve, structure_mole
+    from stobuilder.checks.structure import check_free_atom
     from stobuilder.model.elements import ground_state
     from stobuilder.model.methods import pick_method
+    from stobuilder.scf.free_atom import free_atom_setup
+    from stobuilder.scf.mole import make_mole, structure_mole
+    from stobuilder.scf.run import solve_scf
 
     s = task.structure
     if task.kind == "atom":
@@ -332,14 +335,14 @@ def _compute(task: BenchTask) -> tuple[str, float | None, bool, int]:
         conf = ground_state(symbol)
         method = pick_method("auto", conf.unpaired, f"(free atom {symbol})")
         mol, configure = free_atom_setup(symbol, conf, task.reference, method)
-        mf, iterations = solve(mol, method, configure=configure)
+        mf, iterations = solve_scf(mol, method, configure=configure)
         return method, _energy(mf), bool(mf.converged), iterations
     method = pick_method("auto", s.spin, f"({s.formula})")
     if task.options is not None:
         mol = structure_mole(s, _basis(s, task.options))
     else:
         mol = make_mole(list(zip(s.symbols, s.positions)), task.reference, s.charge, s.spin)
-    mf, iterations = solve(mol, method)
+    mf, iterations = solve_scf(mol, method)
     return method, _energy(mf), bool(mf.converged), iterations
 
 
@@ -420,12 +423,13 @@ def plan(structures: Sequence[BenchStructure], variants: Sequence[Variant], refe
     names none of the structures' elements (its variant would repeat its rule's numbers; the rule
     of every door, ``pipeline.check_zeta_elements``), a molecule whose electrons do not fit its
     basis or whose SCF would not fit in memory, in a variant (``pipeline.check_electrons``) or in
-    the reference basis (``checks.check_mole_size``). A zeta file is a library: its ζ apply to the
+    the reference basis (``scf.check_mole_size``). A zeta file is a library: its ζ apply to the
     elements it names wherever they occur, the rest of it is unused."""
-    from stobuilder.checks.structure import check_mole_size, make_mole
     from stobuilder.model.elements import atomic_number
     from stobuilder.model.methods import pick_method
     from stobuilder.pipeline.path import basis_for, check_electrons, check_zeta_elements
+    from stobuilder.scf.mole import make_mole
+    from stobuilder.scf.size import check_mole_size
 
     if not structures:
         raise InputError("no structures: give structure files or --set NAME")
@@ -689,9 +693,9 @@ def bench_document(plan: BenchPlan, rows, summary, atoms, files: Mapping[str, st
 
 @lru_cache(maxsize=1)
 def _layouts():
-    """The bench manifest record (batch.layout_problem's form): task, fingerprint, status, the
+    """The bench manifest record (jobs.manifest.layout_problem's form): task, fingerprint, status, the
     Calculation's fields with their types and ranges, the time it finished."""
-    from stobuilder.batch import is_count, is_finite, is_seconds, is_sha256, is_text, layout_problem, one_of, optional
+    from stobuilder.jobs.manifest import is_count, is_finite, is_seconds, is_sha256, is_text, layout_problem, one_of, optional
 
     result = {
         "method": (is_text, "a text", True),
@@ -727,7 +731,7 @@ def _record_problem(record) -> str | None:
 
 
 def _record(task: BenchTask, calc: Calculation) -> dict:
-    from stobuilder.batch import utc_now
+    from stobuilder.jobs.manifest import utc_now
 
     return {"task": task.key, "fingerprint": task.fingerprint(), "status": "done" if calc.ok else "failed",
             "result": calc.to_json(), "finished_utc": utc_now()}
@@ -741,27 +745,29 @@ def run_bench(
     force: bool = False,
     progress=None,
 ) -> BenchResult:
-    """Run a bench planned by ``plan`` into ``out_dir`` through the batch engine
-    (``batch.run_tasks``): calculations the manifest ``MANIFEST_NAME`` records as done with the
+    """Run a bench planned by ``plan`` into ``out_dir`` through the job engine
+    (``jobs.run_tasks``): calculations the manifest ``MANIFEST_NAME`` records as done with the
     same fingerprint are taken from it, the rest computed (``executor``: any concurrent.futures
     Executor such as a Dask client's; else a local pool of ``workers`` processes), each recorded
     (appended, fsynced) as it ends. Then the outputs (``OUTPUT_NAMES``) are written all or none.
     ``force`` recomputes everything and starts a fresh manifest (the old one kept as a backup)."""
-    from stobuilder import batch
     from stobuilder.bench.report import render_outputs
     from stobuilder.core.files import check_targets, write_all
+    from stobuilder.jobs.executors import run_tasks
+    from stobuilder.jobs.manifest import Manifest, prepare_out_dir, read_manifest
+    from stobuilder.jobs.progress import NoProgress
 
     start = time.perf_counter()
-    batch.prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
+    prepare_out_dir(out_dir, force, MANIFEST_NAME, "bench")
     check_targets({os.path.join(out_dir, base): "" for base in OUTPUT_NAMES.values()}, force=True)  # before any SCF
     path = os.path.join(out_dir, MANIFEST_NAME)
-    manifest = batch.Manifest(path, fresh=force, what="bench")
+    manifest = Manifest(path, fresh=force, what="bench")
     notes = list(manifest.notes)
-    progress = progress or batch.NoProgress()
+    progress = progress or NoProgress()
     results: dict[str, Calculation] = {}
     computed = resumed = 0
     try:
-        previous = {} if force else batch.read_manifest(path, notes, key="task", problem=_record_problem)
+        previous = {} if force else read_manifest(path, notes, key="task", problem=_record_problem)
         todo = []
         for task in plan.tasks:
             record = previous.get(task.key)
@@ -780,7 +786,7 @@ def run_bench(
             computed += 1
             progress.update("done" if calc.ok else "failed")
 
-        batch.run_tasks(todo, run_calculation, finish, _failure, executor=executor, workers=workers)
+        run_tasks(todo, run_calculation, finish, _failure, executor=executor, workers=workers)
     finally:
         manifest.close()
         progress.close()

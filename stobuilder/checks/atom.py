@@ -17,7 +17,7 @@ from stobuilder.builder.construct import element_basis, sto_exponents
 from stobuilder.core.defaults import DEFAULTS
 from stobuilder.checks.structure import check_free_atom
 from stobuilder.core.limits import whole_number
-from stobuilder.exact.atoms import AtomResult, numerical_guard, pick_method, solve, supported
+from stobuilder.exact.atoms import AtomResult, numerical_guard, pick_method, solve_atom, supported
 from stobuilder.exact.atoms import optimize as optimize_stos  # atom_report's own optimize is a flag
 from stobuilder.model.basis import Basis
 from stobuilder.model.elements import resolve
@@ -42,7 +42,7 @@ def atom_energy(element: str, rule: str = DEFAULTS["rule"], charge: int = 0, con
     (stobuilder.exact).
     """
     conf, stos = _stos(element, rule, charge, configuration, zeta)
-    return solve(conf, stos, pick_method(conf, method))
+    return solve_atom(conf, stos, pick_method(conf, method))
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = DEFAULTS["rule"],
@@ -98,7 +98,7 @@ def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, 
         result = optimize_stos(conf, stos, m)
         used = dict(result.zeta)
     else:
-        result = solve(conf, stos, m)
+        result = solve_atom(conf, stos, m)
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]
     return {

@@ -1,6 +1,6 @@
 """Exact Slater-orbital atomic reference: atomic SCF over STOs and variational exponents.
 
-The entry points on a configuration and its STOs (``solve``, ``optimize``); the engine under them
+The entry points on a configuration and its STOs (``solve_atom``, ``optimize``); the engine under them
 is stobuilder.exact.solver. By element and screening rule (``atom_energy``, ``optimize_zeta``) and
 the ``atom`` command's document: stobuilder.checks.atom.
 
@@ -18,7 +18,7 @@ import numpy as np
 
 from stobuilder.model.elements import Configuration
 from stobuilder.core.errors import InputError
-from stobuilder.exact.solver import AtomResult, OrbitalEnergy, _solve, describe_state, optimize_exponents, pick_method
+from stobuilder.exact.solver import AtomResult, OrbitalEnergy, describe_state, optimize_exponents, pick_method, solve_sto_scf
 
 # ---------------------------------------------------------------- inputs
 def supported(conf: Configuration) -> Configuration:
@@ -52,10 +52,10 @@ def _numerically(conf, what: str, run):
     return result
 
 
-def solve(conf: Configuration, exps, method: str) -> AtomResult:
-    """The exact-STO SCF of ``conf`` on the STOs ``exps`` (``sto_scf._solve``), numerical failures
-    as InputError."""
-    return _numerically(conf, "SCF", lambda: _solve(conf, exps, method).result)
+def solve_atom(conf: Configuration, exps, method: str) -> AtomResult:
+    """The exact-STO SCF of the atom ``conf`` on the STOs ``exps`` (``solver.solve_sto_scf``),
+    numerical failures as InputError."""
+    return _numerically(conf, "SCF", lambda: solve_sto_scf(conf, exps, method).result)
 
 
 def optimize(conf: Configuration, stos, method: str) -> AtomResult:
@@ -68,4 +68,4 @@ def optimize(conf: Configuration, stos, method: str) -> AtomResult:
     return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, exps, method))
 
 
-__all__ = ["AtomResult", "OrbitalEnergy", "describe_state", "numerical_guard", "optimize", "pick_method", "solve", "supported"]
+__all__ = ["AtomResult", "OrbitalEnergy", "describe_state", "numerical_guard", "optimize", "pick_method", "solve_atom", "supported"]

@@ -296,8 +296,10 @@ class _Solved:
     dm: object
 
 
-def _solve(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, dm0=None, gradient=False,
-           optimized=False) -> _Solved:
+def solve_sto_scf(conf: Configuration, exps: tuple[ShellExponent, ...], method: str, dm0=None, gradient=False,
+                  optimized=False) -> _Solved:
+    """The atomic SCF of ``conf`` over the exact STOs ``exps``: its AtomResult and density (from
+    ``dm0`` when given), with the analytic ζ gradient when ``gradient``."""
     labels, basis = _shells(exps)
     ints = _integrals(basis, conf.z)
     plan = _plan(conf, [(s.n, s.l) for s in basis.shells])
@@ -361,7 +363,7 @@ def optimize_exponents(conf: Configuration, exps: tuple[ShellExponent, ...], met
     def evaluate(x):
         key = tuple(float(v) for v in x)
         if key not in cache:
-            solved = _solve(conf, build(x), m, dm0=state["dm"], gradient=True, optimized=True)
+            solved = solve_sto_scf(conf, build(x), m, dm0=state["dm"], gradient=True, optimized=True)
             state["dm"] = solved.dm
             g = np.array([solved.result.gradient[e.label] * math.exp(xi) for e, xi in zip(exps, x)])
             cache.clear()

@@ -17,7 +17,6 @@ failed, and writes nothing for it either).
 from __future__ import annotations
 
 import os
-import stat
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field, replace
 
@@ -27,16 +26,17 @@ from stobuilder.builder.construct import basis_of
 from stobuilder.builder.spec import ZetaTable
 from stobuilder.checks.structure import Check
 from stobuilder.core.errors import InputError
-from stobuilder.core.files import check_targets, create_bytes, replace_bytes, write_all
+from stobuilder.core.files import check_targets, write_all
 from stobuilder.core.limits import one_line
-from stobuilder.formats import format_for_path, get_format, merge_basis, render_checked
+from stobuilder.formats import format_for_path, get_format, render_checked
 from stobuilder.model.methods import pick_method
+from stobuilder.pipeline.merge import merge_file, merge_text, read_merge_target, union_basis
 from stobuilder.pipeline.naming import output_file, structure_name
 from stobuilder.core.errors import OptionError
 from stobuilder.pipeline.options import BuildOptions
 from stobuilder.model.structures import Structure, check_geometry, elements_of, read_structures
 
-__all__ = ["Prepared", "StructureReport", "basis_for", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "merge_file", "output_path",
+__all__ = ["Prepared", "StructureReport", "basis_for", "build_structures", "check_electrons", "check_zeta_elements", "claim_target", "output_path",
            "prepare", "run_checks"]
 
 
@@ -183,11 +183,12 @@ def _where(frame: Structure) -> str:
 
 def check_electrons(frame: Structure, basis: Basis, method: str, checks: bool = False) -> None:
     """Before any SCF: the method suits the structure, the basis has room for its electrons
-    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``checks.check_scf_size``).
+    (α ≤ functions, β ≤ functions), and the SCF fits in memory (``scf.check_scf_size``).
     Periodic structures are checked on free atoms instead; so, with ``checks`` (the path of
     ``run_checks``), is a structure of more than ``checks.MAX_BASIS_FUNCTIONS`` functions."""
-    from stobuilder.checks.structure import MAX_BASIS_FUNCTIONS, check_scf_size
+    from stobuilder.checks.structure import MAX_BASIS_FUNCTIONS
     from stobuilder.model.methods import free_atom_method
+    from stobuilder.scf.size import check_scf_size
 
     def functions_of(symbols) -> int:
         return sum(2 * s.l + 1 for symbol in symbols for s in basis[symbol].shells)
@@ -270,116 +271,6 @@ def check_zeta_elements(options: BuildOptions, frames) -> None:
         raise OptionError(where[0], f"{where[1]} it names none of the structures' elements (it names "
                                     f"{', '.join(sorted(library, key=atomic_number))}; the structures have "
                                     f"{', '.join(sorted(present, key=atomic_number))})")
-
-
-def union_basis(bases: Sequence[Basis]) -> Basis:
-    """One basis with the elements of all ``bases``; an element must have the same shells in each."""
-    elements = {}
-    for basis in bases:
-        for e in basis.elements:
-            if e.symbol in elements and elements[e.symbol].shells != e.shells:
-                raise InputError(f"the structures give {e.symbol} two different bases (an ion and a neutral atom?)")
-            elements.setdefault(e.symbol, e)
-    first = bases[0]
-    return Basis(
-        tuple(elements.values()), rule=first.rule, gaussians=first.gaussians, norm=first.norm, radial=first.radial
-    )
-
-
-def backup_path(path: str) -> str:
-    """The first of ``path.bak``, ``path.bak2``, ``path.bak3`` … that does not exist (a dangling
-    symbolic link counts as existing)."""
-    candidate, k = path + ".bak", 1
-    while os.path.lexists(candidate):
-        k += 1
-        candidate = f"{path}.bak{k}"
-    return candidate
-
-
-def _write_backup(path: str, data: bytes, mode: int) -> str:
-    """A new backup file beside ``path`` holding ``data`` (permission bits ``mode``), never
-    replacing an existing file, even one another process creates meanwhile."""
-    while True:
-        backup = backup_path(path)
-        if create_bytes(backup, data, mode):
-            return backup
-
-
-def read_merge_target(path: str) -> tuple[str, bytes, str, int]:
-    """The basis file that ``--merge-into path`` updates: (real path after symbolic links, its
-    bytes, its text with line ends as \\n, its permission bits). InputError for a missing file,
-    a folder, a FIFO or device (never opened: it could block), or bytes that are not UTF-8."""
-    real = os.path.realpath(path)
-    try:
-        info = os.stat(real)
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
-    if not stat.S_ISREG(info.st_mode):
-        raise InputError(f"{path}: not a regular file")
-    try:
-        with open(real, "rb") as handle:
-            data = handle.read()
-    except OSError as exc:
-        raise InputError(f"{path}: cannot read the basis file ({exc.strerror})") from None
-    try:
-        text = data.decode("utf-8")
-    except UnicodeDecodeError:
-        raise InputError(f"{path}: not a UTF-8 text file") from None
-    if text.startswith("\ufeff"):
-        text = text[1:]
-    return real, data, text.replace("\r\n", "\n").replace("\r", "\n"), stat.S_IMODE(info.st_mode)
-
-
-def merge_text(text: str, basis: Basis, code: str, sp_shells: bool = False, source: str = "text") -> str:
-    """``merge_basis`` plus the proof that nothing was lost: the merged text reads back to the
-    old text's other elements unchanged and to our elements as written alone."""
-    fmt = get_format(code)
-    try:
-        before = fmt.entries_of(text)
-        merged = merge_basis(text, basis, code, sp_shells)
-        after = fmt.entries_of(merged)
-    except InputError as exc:
-        raise InputError(f"{source}: {exc}") from None
-    expected = before | fmt.entries_of(fmt.write(basis, sp_shells=sp_shells))
-    if after != expected:
-        raise InputError(f"{source}: merging would change entries it should keep; nothing written")
-    return merged
-
-
-def merge_file(path: str, basis: Basis, code: str | None = None, sp_shells: bool = False) -> tuple[str, str]:
-    """Add or replace the elements of ``basis`` in the basis file ``path`` (format ``code``, or
-    told by the file name). Returns (path, backup path).
-
-    The old bytes are first copied, byte for byte and with the file's permission bits, to a new
-    backup beside ``path`` (``backup_path``: FILE.bak, FILE.bak2, …; an existing file is never
-    replaced); then the merged text replaces the file atomically, through a temporary file in the
-    file's own folder, with the file's permission bits and its line ends (CRLF stays CRLF). When
-    ``path`` is a symbolic link, the file it points at is updated and the link stays a link. If
-    the update fails, the backup is removed again and the file is as it was; errors are
-    InputError naming ``path``.
-    """
-    code = code or format_for_path(path)
-    real, data, text, mode = read_merge_target(path)
-    merged = merge_text(text, basis, code, sp_shells, source=path)
-    crlf = b"\r\n" in data and data.count(b"\n") == data.count(b"\r\n")
-    out = (merged.replace("\n", "\r\n") if crlf else merged).encode("utf-8")
-    if data.startswith(b"\xef\xbb\xbf"):
-        out = b"\xef\xbb\xbf" + out
-    try:
-        backup = _write_backup(path, data, mode)
-    except OSError as exc:
-        raise InputError(f"{path}: cannot write the backup ({exc.strerror}); nothing changed") from None
-    try:
-        replace_bytes(real, out, mode)
-    except BaseException as exc:
-        try:
-            os.unlink(backup)
-        except OSError:
-            pass
-        if isinstance(exc, OSError):
-            raise InputError(f"{path}: cannot replace the file ({exc.strerror}); nothing changed") from None
-        raise
-    return path, backup
 
 
 def build_structures(

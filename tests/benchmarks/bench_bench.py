@@ -8,7 +8,7 @@
    to exit) that runs the same 134 SCF calculations with PySCF only, on a spawn pool of 2
    processes: the same molecules and spins, the same basis sets (our bases as PySCF basis
    dictionaries, made beforehand and not timed), RHF/ROHF, the atoms' electrons fixed per SO3
-   irrep, a second-order retry where the first SCF does not converge (what checks.solve does).
+   irrep, a second-order retry where the first SCF does not converge (what scf.solve_scf does).
 Each runs twice, interleaved, and the faster run counts. Target: bench ≤ 1.5 × the bare loop.
 The energies of the two are compared (they are the same calculations) and the bench's summary
 table is printed.
@@ -69,7 +69,7 @@ if __name__ == "__main__":
 def bare_tasks() -> list:
     """The bench's calculations as plain PySCF inputs (made with stobuilder, not timed)."""
     from stobuilder.bench import run as bench
-    from stobuilder.checks.structure import irrep_occupations
+    from stobuilder.scf.free_atom import irrep_occupations
     from stobuilder.model.elements import ground_state
     from stobuilder.model.methods import pick_method
     from stobuilder.pipeline.path import basis_for

@@ -12,7 +12,7 @@ Measured here (2 cores shared with other jobs, load average 5–6; 12 BFGS steps
 ending at the same geometry): ratio 1.02 and 0.92 with --threads 1 (best of 3: 5.93 s vs 5.82 s;
 8.70 s vs 9.50 s), 1.07 with PySCF's default 2 threads (best of 2: 26.7 s vs 25.0 s; OpenMP
 threads waiting for a busy core make every small matrix product slow, on both sides alike).
-On the quiet machine, after SCF checkpoint files were switched off in checks.solve (--threads 1,
+On the quiet machine, after SCF checkpoint files were switched off in scf.solve_scf (--threads 1,
 best of 3): 5.96 s vs 6.20 s, ratio 0.96.
 """
 
