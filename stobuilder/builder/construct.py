@@ -30,7 +30,7 @@ from collections.abc import Iterable, Mapping
 from itertools import groupby
 
 from stobuilder.core.defaults import DEFAULTS
-from stobuilder.builder.spec import BasisSpec, ZetaTable, spec_notes
+from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing, spec_notes
 from stobuilder.core import arguments
 from stobuilder.core.errors import InputError
 from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
@@ -177,11 +177,7 @@ def element_basis(
 def make_spec(spec: BasisSpec | None, fields: dict, where: str) -> BasisSpec:
     """``spec``, or the BasisSpec of ``fields`` (its own keywords; the deprecated ``exponents`` is
     read as ``sharing``). TypeError for a spec that is none, or for both."""
-    if "exponents" in fields:
-        if "sharing" in fields:
-            raise TypeError(f"{where}(): give sharing, not both sharing and the deprecated exponents")
-        warnings.warn(f"{where}(): the keyword exponents is deprecated; use sharing", DeprecationWarning, stacklevel=3)
-        fields["sharing"] = fields.pop("exponents")
+    deprecated_sharing(fields, f"{where}()", stacklevel=3)
     if spec is None:
         return BasisSpec(**fields)
     if not isinstance(spec, BasisSpec):

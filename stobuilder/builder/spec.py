@@ -273,6 +273,18 @@ class BasisSpec:
         return {f.name: (self.zeta.as_dict() if f.name == "zeta" else getattr(self, f.name)) for f in fields(self)}
 
 
+def deprecated_sharing(values: dict, where: str, stacklevel: int = 3) -> None:
+    """Rename the deprecated keyword ``exponents`` (the sharing mode) in ``values`` to ``sharing``
+    with a DeprecationWarning; TypeError when both are given."""
+    import warnings
+
+    if "exponents" in values:
+        if "sharing" in values:
+            raise TypeError(f"{where}: give sharing, not both sharing and the deprecated exponents")
+        warnings.warn(f"{where}: the keyword exponents is deprecated; use sharing", DeprecationWarning, stacklevel=stacklevel + 1)
+        values["sharing"] = values.pop("exponents")
+
+
 def spec_notes(spec: BasisSpec) -> tuple[str, ...]:
     """Provenance lines for the non-default expansion choices (none for the defaults)."""
     notes = []

@@ -29,12 +29,6 @@ class OptionError(InputError):
         second = "" if self.other is None else names.get(self.other, self.other) + self.tail
         return f"{self.prefix}{names.get(self.option, self.option)}{self.rest}{second}"
 
-    def renamed(self, names: Mapping[str, str]) -> "OptionError":
-        """This error with its options called by ``names`` from now on: for a Python door whose
-        argument is not the BuildOptions field (the calculator's ``fit`` is ``norm``)."""
-        other = None if self.other is None else names.get(self.other, self.other)
-        return OptionError(names.get(self.option, self.option), self.rest, self.prefix, other, self.tail)
-
     def within(self, prefix: str) -> "OptionError":
         """This error with ``prefix`` (e.g. a structure's name and ": ") before its text."""
         return OptionError(self.option, self.rest, prefix + self.prefix, self.other, self.tail)

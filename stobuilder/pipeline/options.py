@@ -20,7 +20,7 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
 from stobuilder.core.defaults import DEFAULTS
-from stobuilder.builder.spec import BasisSpec, ZetaTable
+from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing
 from stobuilder.core.errors import InputError, OptionError
 from stobuilder.core.limits import MAX_CHARGE, whole_number
 
@@ -108,16 +108,6 @@ _BASIS_KEYS = ("rule", "gaussians", "norm", "sharing", "radial", "zeta")
 _OUTPUT_KEYS = {"codes": "codes", "sp_shells": "sp_shells"}
 _CHECK_KEYS = {"check": "run", "method": "method", "charge": "charge", "spin": "spin", "max_check_frames": "max_frames"}
 FLAT_KEYS = (*_BASIS_KEYS, "zeta_library", "zeta_file", *_OUTPUT_KEYS, *_CHECK_KEYS)
-
-
-def deprecated_sharing(values: dict, where: str, stacklevel: int = 3) -> None:
-    """Rename the deprecated keyword ``exponents`` (the sharing mode) in ``values`` to ``sharing``
-    with a DeprecationWarning; TypeError when both are given."""
-    if "exponents" in values:
-        if "sharing" in values:
-            raise TypeError(f"{where}: give sharing, not both sharing and the deprecated exponents")
-        warnings.warn(f"{where}: the keyword exponents is deprecated; use sharing", DeprecationWarning, stacklevel=stacklevel)
-        values["sharing"] = values.pop("exponents")
 
 
 @dataclass(frozen=True, init=False)
