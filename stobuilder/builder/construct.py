@@ -165,7 +165,7 @@ def element_basis(
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
     arguments.text(element, "element")
-    charge = arguments.whole_number(charge, "charge", allow_none=False)
+    charge = arguments.whole_number(charge, "charge")
     spec = make_spec(spec, spec_fields, "element_basis")
     conf = resolve(element, charge, configuration)
     if zeta is not None:
@@ -212,9 +212,9 @@ def build_basis(
     elements = _element_items(elements)
     spec = make_spec(spec, spec_fields, "build_basis")
     if isinstance(charge, Mapping):
-        charge = {k: arguments.whole_number(v, f"charge[{k!r}]", allow_none=False) for k, v in charge.items()}
+        charge = {k: arguments.whole_number(v, f"charge[{k!r}]") for k, v in charge.items()}
     else:
-        charge = arguments.whole_number(charge, "charge")
+        charge = arguments.whole_number(charge, "charge", allow_none=True)
     confs: dict[str, Configuration] = {}
     for item in elements:
         if isinstance(item, Configuration):
@@ -261,10 +261,10 @@ def _element_items(value, name: str = "elements") -> tuple:
     if isinstance(value, (str, Configuration)):
         return (value,)
     if isinstance(value, (bytes, Mapping)) or not isinstance(value, Iterable):
-        raise TypeError(f"{name} must be an element symbol or a list of them, got {arguments._kind(value)} {arguments._shown(value)}")
+        raise TypeError(f"{name} must be an element symbol or a list of them, got {arguments.kind(value)} {arguments.shown(value)}")
     items = tuple(value)
     for item in items:
         if not isinstance(item, (str, Configuration)):
             hint = " (give symbols such as 'Fe', not atomic numbers)" if isinstance(item, numbers.Integral) else ""
-            raise TypeError(f"{name}: {item!r} is not an element symbol{hint}; got {arguments._kind(item)}")
+            raise TypeError(f"{name}: {item!r} is not an element symbol{hint}; got {arguments.kind(item)}")
     return items
