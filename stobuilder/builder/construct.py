@@ -34,7 +34,6 @@ from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing, sp
 from stobuilder.core import arguments
 from stobuilder.core.errors import InputError
 from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
-from stobuilder.expansion import lookup
 from stobuilder.model.basis import Basis, ElementBasis, Shell
 from stobuilder.model.elements import Configuration, atomic_number, looks_like_configuration, normalise_symbol, resolve
 from stobuilder.model.shells import ShellExponent
@@ -107,6 +106,8 @@ def expand(stos: tuple[ShellExponent, ...], spec: BasisSpec) -> tuple[Shell, ...
     """Contracted Gaussian shells for the STOs under ``spec`` (its gaussians, norm, sharing and
     radial form; see the module docstring). Every Shell carries ``fit_error``: ε of its subshell
     in the fit it comes from (in ``spec.norm``)."""
+    from stobuilder.expansion import lookup  # here: ζ alone (zeta_values, zeff) needs no fits
+
     shells = []
     sharing = spec.sharing
     groups = [(s,) for s in sorted(stos, key=lambda s: (s.n, s.l))] if sharing == "separate" else shell_families(stos)
