@@ -374,14 +374,16 @@ def test_write_read_merge_check_each_parameter(h_basis, nwchem_text):
     _assert_cases(_text_cases(h_basis, nwchem_text))
 
 
-def test_a_bad_call_writes_nothing(water, tmp_path):
-    out = tmp_path / "out"
+def test_a_bad_call_writes_nothing(water, tmp_path, monkeypatch):
+    # every refused call above, run where its default out_dir ("basis") would land: nothing appears
+    monkeypatch.chdir(tmp_path)
+    before = sorted(p.name for p in tmp_path.iterdir())
     for call, _, _ in _structures_cases(water):
         with pytest.raises((TypeError, InputError)):
             call()
     with pytest.raises(InputError):
-        stobuilder.build_structures(water, out_dir=str(out), charge=0.5)
-    assert not out.exists()
+        stobuilder.build_structures(water, charge=0.5)  # write=True: refused before any file
+    assert sorted(p.name for p in tmp_path.iterdir()) == before == ["in"]
 
 
 # ---------------------------------------------------------------------------- one name, one thing
