@@ -257,7 +257,7 @@ class STOCalculator(Calculator):
         _check_names(own, BASIS_PARAMETERS + SCF_PARAMETERS, "STOCalculator")
         merged = {**dict(self.parameters or self.get_default_parameters()), **own}
         options = build_options(**{k: merged[k] for k in BASIS_PARAMETERS}, method=merged["method"])
-        from stobuilder.core.limits import whole_number
+        from stobuilder.core.arguments import whole_number
 
         if not isinstance(merged["conv_tol"], (int, float)) or isinstance(merged["conv_tol"], bool) \
                 or not 0 < float(merged["conv_tol"]) < 1:

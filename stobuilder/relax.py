@@ -105,7 +105,7 @@ def fmax_ok(fmax) -> bool:
 def _check_settings(fmax, steps, optimizer) -> tuple[float, int, str]:
     """The Python arguments checked; messages name them as Python names them (the command line
     checks its flags itself, in its own words)."""
-    from stobuilder.core.limits import whole_number
+    from stobuilder.core.arguments import whole_number
 
     if not fmax_ok(fmax):
         raise InputError(f"fmax={fmax!r}: must be a positive number (eV/Å)")

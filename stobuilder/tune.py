@@ -445,7 +445,7 @@ def tune(
         return _tune(structures, options, vary, weights, validate, max_iterations)
     from pyscf import lib
 
-    from stobuilder.core.limits import whole_number
+    from stobuilder.core.arguments import whole_number
 
     with lib.with_omp_threads(whole_number(threads, "threads", 1)):
         return _tune(structures, options, vary, weights, validate, max_iterations)
@@ -598,7 +598,7 @@ def _held(x, g, lo, hi) -> list[int]:
 def _tune(structures, options, vary, weights, validate, max_iterations) -> TuneResult:
     from scipy.optimize import minimize
 
-    from stobuilder.core.limits import whole_number
+    from stobuilder.core.arguments import whole_number
 
     t0 = time.perf_counter()
     max_iterations = whole_number(max_iterations, "max_iterations", 0)

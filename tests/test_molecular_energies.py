@@ -28,7 +28,7 @@ import stobuilder
 from stobuilder.checks.structure import check_free_atom
 from stobuilder.scf.mole import make_mole
 from stobuilder.scf.run import run_scf
-from stobuilder.checks.structure import pick_method
+from stobuilder.model.methods import pick_method
 from stobuilder.scf.free_atom import irrep_configurer, irrep_occupations
 from stobuilder.model.elements import atomic_number, element_symbol
 from stobuilder.core.errors import InputError

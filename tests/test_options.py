@@ -20,7 +20,6 @@ from support import zeta_file
 @pytest.mark.parametrize(
     "kwargs, words",
     [
-        ({"gaussians": True}, "gaussians must be a whole number"),
         ({"gaussians": 3.0}, "gaussians must be a whole number"),
         ({"charge": 0.5}, "charge must be a whole number"),
         ({"spin": -2}, "spin must be >= 0"),
@@ -45,6 +44,8 @@ def test_build_options_validate_once_with_one_line(kwargs, words):
     ({"codes": (3,)}, "codes must be format names"),
     ({"sp_shells": 1}, "sp_shells must be True or False"),
     ({"rule": 5}, "rule must be one of"),
+    ({"gaussians": True}, "gaussians must be a whole number"),
+    ({"charge": "1"}, "charge must be a whole number"),
 ])
 def test_a_wrong_type_is_a_type_error_naming_the_argument(kwargs, words):
     # wrong type → TypeError, wrong value → InputError (the one contract of the Python API)

@@ -34,7 +34,6 @@ from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing, sp
 from stobuilder.core import arguments
 from stobuilder.core.errors import InputError
 from stobuilder.core.limits import EXPONENT_MAX, EXPONENT_MIN, ZETA_MAX, ZETA_MIN, exponent_value, zeta_value
-from stobuilder.expansion import lookup
 from stobuilder.model.basis import Basis, ElementBasis, Shell
 from stobuilder.model.elements import Configuration, atomic_number, looks_like_configuration, normalise_symbol, resolve
 from stobuilder.model.shells import ShellExponent
@@ -107,6 +106,8 @@ def expand(stos: tuple[ShellExponent, ...], spec: BasisSpec) -> tuple[Shell, ...
     """Contracted Gaussian shells for the STOs under ``spec`` (its gaussians, norm, sharing and
     radial form; see the module docstring). Every Shell carries ``fit_error``: ε of its subshell
     in the fit it comes from (in ``spec.norm``)."""
+    from stobuilder.expansion import lookup  # here: ζ alone (zeta_values, zeff) needs no fits
+
     shells = []
     sharing = spec.sharing
     groups = [(s,) for s in sorted(stos, key=lambda s: (s.n, s.l))] if sharing == "separate" else shell_families(stos)
@@ -165,7 +166,7 @@ def element_basis(
     if isinstance(element, Configuration):
         configuration, element = element, element.symbol
     arguments.text(element, "element")
-    charge = arguments.whole_number(charge, "charge", allow_none=False)
+    charge = arguments.whole_number(charge, "charge")
     spec = make_spec(spec, spec_fields, "element_basis")
     conf = resolve(element, charge, configuration)
     if zeta is not None:
@@ -212,9 +213,9 @@ def build_basis(
     elements = _element_items(elements)
     spec = make_spec(spec, spec_fields, "build_basis")
     if isinstance(charge, Mapping):
-        charge = {k: arguments.whole_number(v, f"charge[{k!r}]", allow_none=False) for k, v in charge.items()}
+        charge = {k: arguments.whole_number(v, f"charge[{k!r}]") for k, v in charge.items()}
     else:
-        charge = arguments.whole_number(charge, "charge")
+        charge = arguments.whole_number(charge, "charge", allow_none=True)
     confs: dict[str, Configuration] = {}
     for item in elements:
         if isinstance(item, Configuration):
@@ -261,10 +262,10 @@ def _element_items(value, name: str = "elements") -> tuple:
     if isinstance(value, (str, Configuration)):
         return (value,)
     if isinstance(value, (bytes, Mapping)) or not isinstance(value, Iterable):
-        raise TypeError(f"{name} must be an element symbol or a list of them, got {arguments._kind(value)} {arguments._shown(value)}")
+        raise TypeError(f"{name} must be an element symbol or a list of them, got {arguments.kind(value)} {arguments.shown(value)}")
     items = tuple(value)
     for item in items:
         if not isinstance(item, (str, Configuration)):
             hint = " (give symbols such as 'Fe', not atomic numbers)" if isinstance(item, numbers.Integral) else ""
-            raise TypeError(f"{name}: {item!r} is not an element symbol{hint}; got {arguments._kind(item)}")
+            raise TypeError(f"{name}: {item!r} is not an element symbol{hint}; got {arguments.kind(item)}")
     return items

@@ -26,7 +26,8 @@ from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field, fields
 
 from stobuilder.core.errors import InputError, OptionError
-from stobuilder.core.limits import whole_number, zeta_value
+from stobuilder.core.arguments import whole_number
+from stobuilder.core.limits import zeta_value
 
 SHARING_MODES = ("family", "shared", "separate")
 RADIAL_FORMS = ("integer", "effective-n")

@@ -16,11 +16,12 @@ from collections.abc import Iterable
 from stobuilder.builder.construct import element_basis, sto_exponents
 from stobuilder.core.defaults import DEFAULTS
 from stobuilder.checks.structure import check_free_atom
-from stobuilder.core.limits import whole_number
-from stobuilder.exact.atoms import AtomResult, numerical_guard, pick_method, solve_atom, supported
+from stobuilder.core.arguments import whole_number
+from stobuilder.exact.atoms import AtomResult, numerical_guard, solve_atom, supported
+from stobuilder.model.methods import pick_method
 from stobuilder.exact.atoms import optimize as optimize_stos  # atom_report's own optimize is a flag
 from stobuilder.model.basis import Basis
-from stobuilder.model.elements import resolve
+from stobuilder.model.elements import Configuration, resolve
 
 
 def atom_energy(element: str, rule: str = DEFAULTS["rule"], charge: int = 0, configuration=None, zeta=None,
@@ -42,7 +43,7 @@ def atom_energy(element: str, rule: str = DEFAULTS["rule"], charge: int = 0, con
     (stobuilder.exact).
     """
     conf, stos = _stos(element, rule, charge, configuration, zeta)
-    return solve_atom(conf, stos, pick_method(conf, method))
+    return solve_atom(conf, stos, _method(conf, method))
 
 
 def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str = "auto", rule: str = DEFAULTS["rule"],
@@ -51,7 +52,12 @@ def optimize_zeta(element: str, charge: int = 0, configuration=None, method: str
     occupied ζ, starting from ``rule`` (with ``zeta`` overrides); see stobuilder.exact.atoms.optimize.
     Only occupied subshells enter (basis and result). Energies in hartree, ζ in bohr⁻¹."""
     conf, stos = _stos(element, rule, charge, configuration, zeta)
-    return optimize_stos(conf, stos, pick_method(conf, method))
+    return optimize_stos(conf, stos, _method(conf, method))
+
+
+def _method(conf: Configuration, method: str) -> str:
+    """The exact-STO engine's name ("rhf", "rohf", "uhf") of ``methods.pick_method``'s choice for ``conf``."""
+    return pick_method(method, conf.unpaired, f"({conf.symbol} {conf.label})").lower()
 
 
 def _stos(element, rule, charge, configuration, zeta):
@@ -84,7 +90,7 @@ def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, 
     not change an atom's energy, keep the rule's).
     """
     conf, stos = _stos(element, rule, charge, configuration, zeta)
-    m = pick_method(conf, method)
+    m = _method(conf, method)
     if isinstance(gaussians, numbers.Real):
         counts = [gaussians]
     elif isinstance(gaussians, Iterable) and not isinstance(gaussians, (str, bytes)):

@@ -219,7 +219,6 @@ def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) 
     the same atom with the Gaussian basis. ``gaussian`` holds Gaussian free-atom energies already
     computed. Elements without STO provenance (read from a file) are left out, and so are STOs of
     non-integer n* (``radial="effective-n"``), which the exact-STO integrals do not cover."""
-    from stobuilder.exact.atoms import pick_method as exact_method
     from stobuilder.exact.atoms import solve_atom, supported
 
     methods, _ = _atom_methods(basis, symbols, method)
@@ -231,7 +230,7 @@ def exact_sto_atoms(basis: Basis, symbols, method: str = "auto", gaussian=None) 
         if basis.radial == "effective-n" and any(s.n_eff != s.n for s in element.stos):
             continue
         conf = supported(element.configuration)  # the very STOs the basis expands, in its configuration
-        exact = solve_atom(conf, element.stos, exact_method(conf, methods[symbol].lower()))
+        exact = solve_atom(conf, element.stos, pick_method(methods[symbol], conf.unpaired, f"({conf.symbol} {conf.label})").lower())
         if gaussian is not None and symbol in gaussian:
             e_gauss = gaussian[symbol]
         else:

@@ -8,7 +8,6 @@ symbols or paths, one string is one symbol or one path.
 
 from __future__ import annotations
 
-import math
 import numbers
 import os
 from collections.abc import Iterable, Mapping
@@ -16,36 +15,41 @@ from collections.abc import Iterable, Mapping
 from stobuilder.core.errors import InputError
 
 
-def _kind(value) -> str:
+def kind(value) -> str:
+    """The type name of ``value``, for a TypeError's message."""
     return type(value).__name__
 
 
-def _shown(value) -> str:
+def shown(value) -> str:
+    """``repr(value)``, cut to 60 characters, for an error's message."""
     text = repr(value)
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def whole_number(value, name: str, allow_none: bool = True) -> int | None:
-    """``value`` as an int: an integer, or a float with no fractional part (1.0). TypeError for
-    a bool, a string or another type; InputError for a fractional or non-finite number."""
+def whole_number(value, name: str, minimum: int | None = None, maximum: int | None = None,
+                 allow_none: bool = False) -> int | None:
+    """``value`` as an int in [``minimum``, ``maximum``] (each bound optional); None only with
+    ``allow_none``. An int (or numpy integer) is taken; a bool, a string, None or another
+    non-number is a TypeError; a float, even a whole one such as 1.0, and an int out of range are
+    InputErrors ("must be a whole number", "must be >= ..."). Every message begins with ``name``."""
     if value is None and allow_none:
         return None
     if isinstance(value, bool) or not isinstance(value, numbers.Real):
-        raise TypeError(f"{name} must be a whole number, got {_kind(value)} {_shown(value)}")
-    if isinstance(value, numbers.Integral):
-        return int(value)
-    x = float(value)
-    if not math.isfinite(x):
-        raise InputError(f"{name} = {_shown(value)} is not a finite number")
-    if not x.is_integer():
-        raise InputError(f"{name} = {_shown(value)} is not a whole number")
-    return int(x)
+        raise TypeError(f"{name} must be a whole number, got {kind(value)} {shown(value)}")
+    if not isinstance(value, numbers.Integral):
+        raise InputError(f"{name} must be a whole number, got {shown(value)}")
+    v = int(value)
+    if minimum is not None and v < minimum:
+        raise InputError(f"{name} must be >= {minimum}, got {v}")
+    if maximum is not None and v > maximum:
+        raise InputError(f"{name} must be <= {maximum}, got {v}")
+    return v
 
 
 def text(value, name: str) -> str:
     """``value`` itself when it is a str; TypeError naming ``name`` otherwise."""
     if not isinstance(value, str):
-        raise TypeError(f"{name} must be a str, got {_kind(value)} {_shown(value)}")
+        raise TypeError(f"{name} must be a str, got {kind(value)} {shown(value)}")
     return value
 
 
@@ -53,7 +57,7 @@ def flag(value, name: str) -> bool:
     """``value`` when it is a bool (or numpy's); TypeError otherwise ("no" is not False)."""
     if isinstance(value, bool) or type(value).__name__ == "bool_":
         return bool(value)
-    raise TypeError(f"{name} must be True or False, got {_kind(value)} {_shown(value)}")
+    raise TypeError(f"{name} must be True or False, got {kind(value)} {shown(value)}")
 
 
 
@@ -62,7 +66,7 @@ def path(value, name: str = "path") -> str:
     if isinstance(value, os.PathLike):
         value = os.fspath(value)
     if not isinstance(value, str):
-        raise TypeError(f"{name} must be a path (str or os.PathLike), got {_kind(value)} {_shown(value)}")
+        raise TypeError(f"{name} must be a path (str or os.PathLike), got {kind(value)} {shown(value)}")
     return value
 
 
@@ -71,7 +75,7 @@ def paths(value, name: str = "paths") -> tuple[str, ...]:
     if isinstance(value, (str, os.PathLike)):
         return (path(value, name),)
     if isinstance(value, (bytes, Mapping)) or not isinstance(value, Iterable):
-        raise TypeError(f"{name} must be a path or a list of paths, got {_kind(value)} {_shown(value)}")
+        raise TypeError(f"{name} must be a path or a list of paths, got {kind(value)} {shown(value)}")
     return tuple(path(item, f"{name}: item {item!r}") for item in value)
 
 
@@ -82,7 +86,7 @@ def names(value, name: str) -> tuple[str, ...] | None:
     if isinstance(value, str):
         return (value,)
     if isinstance(value, (bytes, Mapping)) or not isinstance(value, Iterable):
-        raise TypeError(f"{name} must be a name or a list of names, got {_kind(value)} {_shown(value)}")
+        raise TypeError(f"{name} must be a name or a list of names, got {kind(value)} {shown(value)}")
     return tuple(text(item, f"{name}: item") for item in value)
 
 
@@ -90,5 +94,5 @@ def names(value, name: str) -> tuple[str, ...] | None:
 def mapping(value, name: str):
     """None or a mapping; TypeError otherwise."""
     if value is not None and not isinstance(value, Mapping):
-        raise TypeError(f"{name} must be a mapping (dict), got {_kind(value)} {_shown(value)}")
+        raise TypeError(f"{name} must be a mapping (dict), got {kind(value)} {shown(value)}")
     return value

@@ -4,8 +4,8 @@
 API, lies in [ZETA_MIN, ZETA_MAX]: the 1s of Rn has ζ ≈ 86 and a neutral atom's most diffuse
 valence STO under Slater's rules has ζ ≈ 0.5 (Cs 6s: 2.2/4.2), so the range leaves wide room on
 both sides while keeping every scaled Gaussian exponent a normal double (common practice, no
-source). A Gaussian exponent (bohr⁻²) we write lies
-in [EXPONENT_MIN, EXPONENT_MAX]. Charges and 2S are whole numbers of at most MAX_CHARGE in size.
+source). A Gaussian exponent (bohr⁻²) we write lies in [EXPONENT_MIN, EXPONENT_MAX]. Charges and
+2S are whole numbers (``arguments.whole_number``) of at most MAX_CHARGE in size.
 Geometry: no two atoms closer than MIN_DISTANCE_ANGSTROM (the shortest bond, H2, is 0.74 Å).
 JSON we print or write holds finite numbers only (``strict_json``). Text taken from an input (a
 file name, a structure's comment) goes into a comment or a field of our files only through
@@ -16,7 +16,7 @@ from __future__ import annotations
 
 import math
 import re
-from numbers import Integral, Real
+from numbers import Real
 
 from stobuilder.core.errors import InputError
 
@@ -54,19 +54,6 @@ def exponent_value(value: float, where: str) -> float:
             f"{where}: Gaussian exponent {v!r} bohr^-2 is outside {EXPONENT_MIN:g}–{EXPONENT_MAX:g} "
             "(too small or too large a ζ)"
         )
-    return v
-
-
-def whole_number(value, name: str, minimum: int | None = None, maximum: int | None = None) -> int:
-    """``value`` as an int; InputError naming ``name`` for a non-integer (bool, float, text, None)
-    or a value out of [minimum, maximum]."""
-    if isinstance(value, bool) or not isinstance(value, Integral):
-        raise InputError(f"{name} must be a whole number, got {value!r}")
-    v = int(value)
-    if minimum is not None and v < minimum:
-        raise InputError(f"{name} must be >= {minimum}, got {v}")
-    if maximum is not None and v > maximum:
-        raise InputError(f"{name} must be <= {maximum}, got {v}")
     return v
 
 

@@ -18,7 +18,7 @@ import numpy as np
 
 from stobuilder.model.elements import Configuration
 from stobuilder.core.errors import InputError
-from stobuilder.exact.solver import AtomResult, OrbitalEnergy, describe_state, optimize_exponents, pick_method, solve_sto_scf
+from stobuilder.exact.solver import AtomResult, OrbitalEnergy, describe_state, optimize_exponents, solve_sto_scf
 
 # ---------------------------------------------------------------- inputs
 def supported(conf: Configuration) -> Configuration:
@@ -68,4 +68,4 @@ def optimize(conf: Configuration, stos, method: str) -> AtomResult:
     return _numerically(conf, "ζ optimisation", lambda: optimize_exponents(conf, exps, method))
 
 
-__all__ = ["AtomResult", "OrbitalEnergy", "describe_state", "numerical_guard", "optimize", "pick_method", "solve_atom", "supported"]
+__all__ = ["AtomResult", "OrbitalEnergy", "describe_state", "numerical_guard", "optimize", "solve_atom", "supported"]

@@ -35,7 +35,6 @@ import scipy.optimize
 
 from stobuilder.exact import sto
 from stobuilder.model.elements import L_LETTERS, M_FILL_ORDER, Configuration, capacity
-from stobuilder.model.methods import pick_method as choose_method
 from stobuilder.model.shells import ShellExponent
 
 TERM_LETTERS = "SPDFGHIK"
@@ -141,11 +140,6 @@ def describe_state(conf: Configuration, method: str) -> str:
         f"{conf.symbol} {conf.label} (S = {unpaired / 2:g}, {kind} determinant in real orbitals; "
         "not a pure LS term)"
     )
-
-
-def pick_method(conf: Configuration, method: str) -> str:
-    """"rhf", "rohf" or "uhf" for ``conf``: the choice of stobuilder.model.methods.pick_method."""
-    return choose_method(method, conf.unpaired, f"({conf.symbol} {conf.label})").lower()
 
 
 # ---------------------------------------------------------------- integrals

@@ -33,10 +33,12 @@ from stobuilder.core.defaults import DEFAULTS
 import math
 from dataclasses import dataclass, field
 from functools import lru_cache
+from numbers import Real
 from typing import Iterable, Mapping
 
 import numpy as np
 
+from stobuilder.core import arguments
 from stobuilder.model.elements import parse_subshell_label, subshell_label
 from stobuilder.core.errors import InputError
 from stobuilder.expansion.analytic import Problem, Target, gaussian_overlap
@@ -123,15 +125,23 @@ class Fit:
 
 
 def normalise_subshells(subshells: str | Iterable[str]) -> tuple[str, ...]:
-    """Validate labels and return them sorted by (n, l), without duplicates allowed."""
-    labels = [subshells] if isinstance(subshells, str) else list(subshells)
+    """Validate labels and return them sorted by (n, l), without duplicates allowed. One string
+    is one label; TypeError for another type or an item that is no string, InputError for a
+    label that is not one or a list that is empty or repeats one."""
+    if isinstance(subshells, str):
+        labels = [subshells]
+    elif isinstance(subshells, (bytes, Mapping)) or not isinstance(subshells, Iterable):
+        raise TypeError(f"subshells must be a label such as '1s' or a list of labels, got {arguments.kind(subshells)}")
+    else:
+        labels = [arguments.text(label, "subshells: item") for label in subshells]
     if not labels:
         raise InputError("subshells: give at least one subshell label such as 1s")
     nls = []
     for label in labels:
-        if not isinstance(label, str):
-            raise InputError(f"subshells: {label!r} is not a subshell label such as 1s, 2p or 3d")
-        n, l = parse_subshell_label(label)
+        try:
+            n, l = parse_subshell_label(label)
+        except InputError as err:
+            raise InputError(f"subshells: {err}") from None
         if n > MAX_N or l > MAX_L:
             raise InputError(f"subshell {label!r}: fits cover n ≤ {MAX_N} and l ≤ {MAX_L}")
         nls.append((n, l))
@@ -140,27 +150,32 @@ def normalise_subshells(subshells: str | Iterable[str]) -> tuple[str, ...]:
     return tuple(subshell_label(n, l) for n, l in sorted(nls))
 
 
-def _check_inputs(gaussians: int, norm: str) -> None:
-    if isinstance(gaussians, bool) or not isinstance(gaussians, (int, np.integer)):
-        raise InputError(f"gaussians must be an integer 1–{MAX_GAUSSIANS}, got {gaussians!r}")
-    if not 1 <= gaussians <= MAX_GAUSSIANS:
-        raise InputError(f"gaussians = {gaussians}: supported are 1–{MAX_GAUSSIANS} primitives")
-    if norm not in NORMS:
+def check_inputs(gaussians: int, norm: str) -> int:
+    """``gaussians`` as an int in 1 … MAX_GAUSSIANS and ``norm`` one of NORMS (``fit_sto``'s and
+    ``library.lookup``'s check): TypeError for a wrong type, InputError for a wrong value."""
+    gaussians = arguments.whole_number(gaussians, "gaussians", 1, MAX_GAUSSIANS)
+    if arguments.text(norm, "norm") not in NORMS:
         raise InputError(f"norm {norm!r} is not supported; choose one of {', '.join(NORMS)}")
+    return gaussians
 
 
-def _positive_map(name: str, values, labels: tuple[str, ...], low: float, high: float) -> dict[str, float]:
-    """Validate an optional {label: float} option; values equal to the default are kept (explicit)."""
+def positive_map(name: str, values, labels: tuple[str, ...], low: float, high: float) -> dict[str, float]:
+    """Validate an optional {label: number} option (``n_eff``, ``zeta_ratio``) of the subshells
+    ``labels``: None is none; TypeError for a value that is no mapping or a number that is none,
+    InputError for a label not fitted or a number not finite or outside [low, high]. Values
+    equal to the default are kept (explicit)."""
     if values is None:
         return {}
     if not isinstance(values, Mapping):
-        raise InputError(f"{name} must be a mapping label → number, got {values!r}")
+        raise TypeError(f"{name} must be a mapping label → number, got {arguments.kind(values)} {arguments.shown(values)}")
     out = {}
     for label, value in values.items():
         if label not in labels:
             raise InputError(f"{name}: {label!r} is not one of the fitted subshells {', '.join(labels)}")
-        if isinstance(value, bool) or not isinstance(value, (int, float, np.floating)) or not math.isfinite(value):
-            raise InputError(f"{name} for {label} must be a number, got {value!r}")
+        if isinstance(value, bool) or not isinstance(value, Real):
+            raise TypeError(f"{name} for {label} must be a number, got {arguments.kind(value)} {arguments.shown(value)}")
+        if not math.isfinite(value):
+            raise InputError(f"{name} for {label} must be a finite number, got {value!r}")
         if not low <= float(value) <= high:
             raise InputError(f"{name} for {label} = {value}: must lie in [{low}, {high}]")
         out[label] = float(value)
@@ -363,11 +378,11 @@ def fit_sto(
 
     Deterministic: the same input gives bit-identical output on the same software stack.
     """
-    _check_inputs(gaussians, norm)
+    gaussians = check_inputs(gaussians, norm)
     labels = normalise_subshells(subshells)
-    n_map = _positive_map("n_eff", n_eff, labels, 1.0, 8.0)
+    n_map = positive_map("n_eff", n_eff, labels, 1.0, 8.0)
     n_map = {k: v for k, v in n_map.items() if v != parse_subshell_label(k)[0]}  # integer n*: the plain STO
-    r_map = _positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0)
+    r_map = positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0)
     if r_map.get(labels[0], 1.0) != 1.0:
         raise InputError(f"zeta_ratio of the first subshell {labels[0]} must be 1 (the others are relative to it)")
     r_map = {k: v for k, v in r_map.items() if v != 1.0}

@@ -27,7 +27,7 @@ from typing import Iterable, Mapping
 
 from stobuilder.core.files import CACHE_ENV, cache_folder
 from stobuilder.core.version import __version__
-from stobuilder.expansion.fit import ALGORITHM, MIN_RATIO, NORMS, Fit, _check_inputs, _positive_map, fit_sto, normalise_subshells
+from stobuilder.expansion.fit import ALGORITHM, MIN_RATIO, NORMS, Fit, check_inputs, positive_map, fit_sto, normalise_subshells
 
 LIBRARY_MAX_GAUSSIANS = 12
 REGENERATE_COMMAND = "python -m stobuilder.maintainer.fits"
@@ -263,12 +263,12 @@ def lookup(
     costs microseconds; fits it lacks are computed once, stored in the user cache (see
     ``cache_dir``) and memoised in this process.
     """
-    _check_inputs(gaussians, norm)
+    gaussians = check_inputs(gaussians, norm)
     labels = normalise_subshells(subshells)
     from stobuilder.model.elements import parse_subshell_label
 
-    n_map = {k: v for k, v in _positive_map("n_eff", n_eff, labels, 1.0, 8.0).items() if v != parse_subshell_label(k)[0]}
-    r_map = {k: v for k, v in _positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0).items() if v != 1.0}
+    n_map = {k: v for k, v in positive_map("n_eff", n_eff, labels, 1.0, 8.0).items() if v != parse_subshell_label(k)[0]}
+    r_map = {k: v for k, v in positive_map("zeta_ratio", zeta_ratio, labels, 0.2, 5.0).items() if v != 1.0}
     if not n_map and not r_map:
         fit = _from_library(labels, int(gaussians), norm)
         if fit is not None:

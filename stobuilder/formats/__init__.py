@@ -9,10 +9,13 @@ from __future__ import annotations
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import import_module
-from typing import Callable
+from typing import TYPE_CHECKING, Callable
 
-from stobuilder.model.basis import Basis
+from stobuilder.core import arguments
 from stobuilder.core.errors import InputError
+
+if TYPE_CHECKING:  # the format modules import the model; this face does not, so it stays light
+    from stobuilder.model.basis import Basis
 
 _MODULES = ("nwchem", "gaussian", "pyscf_format", "psi4", "cp2k", "qcschema", "dalton", "openmolcas")
 
@@ -61,16 +64,33 @@ def formats() -> dict[str, Format]:
     return {f.name: f for f in _registry()}
 
 
-def get_format(name: str) -> Format:
+def get_format(name: str, argument: str = "code") -> Format:
+    """The format called ``name``; TypeError for a name that is no string, InputError for an
+    unknown one (both messages name ``argument``, the caller's parameter)."""
     table = formats()
+    arguments.text(name, argument)
     if name not in table:
-        raise InputError(f"unknown basis format {name!r}; choose one of {', '.join(table)}")
+        raise InputError(f"{argument}: unknown basis format {name!r}; choose one of {', '.join(table)}")
     return table[name]
 
 
+def check_basis(value, name: str = "basis") -> Basis:
+    """``value`` when it is a stobuilder Basis; TypeError naming ``name`` otherwise."""
+    from stobuilder.model.basis import Basis
+
+    if not isinstance(value, Basis):
+        raise TypeError(f"{name} must be a stobuilder Basis (from build_basis or read_basis), "
+                        f"got {arguments.kind(value)} {arguments.shown(value)}")
+    return value
+
+
 def write_basis(basis: Basis, code: str, sp_shells: bool = False) -> str:
-    """The text of ``basis`` in the format of ``code`` (see ``formats()``)."""
-    return get_format(code).write(basis, sp_shells=sp_shells)
+    """The text of ``basis`` in the format of ``code`` (see ``formats()``). TypeError for a
+    basis that is no Basis, a code that is no string or an sp_shells that is no bool; InputError
+    for an unknown code."""
+    check_basis(basis)
+    fmt = get_format(code)
+    return fmt.write(basis, sp_shells=arguments.flag(sp_shells, "sp_shells"))
 
 
 # The text formats write 16 significant digits: a number reads back within 5e-16 of itself,
@@ -122,7 +142,9 @@ def read_basis(text: str, code: str) -> Basis:
     """The basis in ``text``, a file in the format of ``code``: a Basis with rule "file" and the
     shells as written (contraction coefficients of normalised primitives, exponents in bohr⁻²).
     Strict: a truncated text, an unknown element, a non-numeric field or a missing terminator
-    raises InputError with a one-line message naming the line."""
+    raises InputError with a one-line message naming the line. TypeError for a text or a code
+    that is no string."""
+    arguments.text(text, "text")
     fmt = get_format(code)
     if fmt.read is None:
         raise InputError(f"format {code!r} cannot be read")
@@ -131,7 +153,12 @@ def read_basis(text: str, code: str) -> Basis:
 
 def merge_basis(text: str, basis: Basis, code: str, sp_shells: bool = False) -> str:
     """``text`` (a file in the format of ``code``) with the elements of ``basis`` added, or put in
-    place of the text's own; the text's other elements and lines stay as they were."""
+    place of the text's own; the text's other elements and lines stay as they were. TypeError
+    for a text or code that is no string, a basis that is no Basis or an sp_shells that is no
+    bool."""
+    arguments.text(text, "text")
+    check_basis(basis)
+    arguments.flag(sp_shells, "sp_shells")
     fmt = get_format(code)
     if fmt.merge is None:
         raise InputError(f"format {code!r} cannot be merged into")
@@ -139,7 +166,7 @@ def merge_basis(text: str, basis: Basis, code: str, sp_shells: bool = False) -> 
 
 
 __all__ = [
-    "Format", "formats", "get_format", "merge_basis", "read_basis", "readback_problem", "render_checked", "write_basis",
+    "Format", "check_basis", "format_for_path", "formats", "get_format", "merge_basis", "read_basis", "readback_problem", "render_checked", "write_basis",
 ]
 
 

@@ -186,7 +186,7 @@ def ground_state(element: str, charge: int = 0) -> Configuration:
     electrons; TypeError for an element that is not a str or a charge that is not a number.
     """
     symbol = normalise_symbol(arguments.text(element, "element"))
-    charge = arguments.whole_number(charge, "charge", allow_none=False)
+    charge = arguments.whole_number(charge, "charge")
     z = atomic_numbers[symbol]
     if z > MAX_Z:
         raise InputError(f"element {symbol} (Z = {z}) is beyond Rn; configurations cover H–Rn")
@@ -270,7 +270,7 @@ def looks_like_configuration(text: str) -> bool:
 
 def resolve(element: str, charge: int = 0, configuration: str | Configuration | None = None) -> Configuration:
     """The configuration meant by an element symbol, a configuration string, or both."""
-    charge = arguments.whole_number(charge, "charge", allow_none=False)
+    charge = arguments.whole_number(charge, "charge")
     if isinstance(configuration, Configuration):
         return configuration
     if configuration is not None:

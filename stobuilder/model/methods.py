@@ -15,10 +15,13 @@ METHODS = ("auto", "rhf", "rohf", "uhf")
 
 
 def check_method(method) -> str:
-    """The method name in lower case; InputError for an unknown one."""
-    m = str(method).lower()
+    """The method name in lower case; TypeError for one that is no string, InputError for an
+    unknown one (both messages name ``method``)."""
+    if not isinstance(method, str):
+        raise TypeError(f"method must be a str ({', '.join(METHODS)}), got {type(method).__name__} {method!r}")
+    m = method.lower()
     if m not in METHODS:
-        raise InputError(f"unknown SCF method {method!r}; choose one of {', '.join(METHODS)}")
+        raise InputError(f"method {method!r}: unknown SCF method; choose one of {', '.join(METHODS)}")
     return m
 
 

@@ -194,8 +194,8 @@ def read_structures(
     from stobuilder.core import arguments
 
     where = arguments.path(path, "path")
-    charge = arguments.whole_number(charge, "charge")
-    spin = arguments.whole_number(spin, "spin")
+    charge = arguments.whole_number(charge, "charge", allow_none=True)
+    spin = arguments.whole_number(spin, "spin", allow_none=True)
     if not os.path.exists(where):
         raise InputError(f"{where}: no such file")
     if os.path.isdir(where):

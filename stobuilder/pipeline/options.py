@@ -22,7 +22,8 @@ from dataclasses import dataclass, field
 from stobuilder.core.defaults import DEFAULTS
 from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing
 from stobuilder.core.errors import InputError, OptionError
-from stobuilder.core.limits import MAX_CHARGE, whole_number
+from stobuilder.core.arguments import whole_number
+from stobuilder.core.limits import MAX_CHARGE
 
 MAX_CHECK_FRAMES = 3
 
@@ -37,7 +38,7 @@ CLI_FLAGS = {
 
 
 def _whole(value, option: str, minimum: int | None = None, maximum: int | None = None) -> int:
-    """``limits.whole_number`` with its error as an OptionError of ``option``."""
+    """``arguments.whole_number`` with its InputError as an OptionError of ``option``."""
     try:
         return whole_number(value, option, minimum, maximum)
     except InputError as err:
@@ -67,7 +68,10 @@ class OutputOptions:
         for code in codes:
             if not isinstance(code, str):
                 raise TypeError(f"codes must be format names, got {type(code).__name__} {code!r}")
-            expanded.extend(formats() if code == "all" else [get_format(code).name])
+            try:
+                expanded.extend(formats() if code == "all" else [get_format(code, "codes").name])
+            except InputError as err:
+                raise OptionError.of("codes", err) from None
         object.__setattr__(self, "codes", tuple(dict.fromkeys(expanded)) or ("nwchem",))
         if not isinstance(self.sp_shells, bool):
             raise TypeError(f"sp_shells must be True or False, got {self.sp_shells!r}")
@@ -95,7 +99,10 @@ class CheckOptions:
         set_ = object.__setattr__
         if not isinstance(self.run, bool):
             raise TypeError(f"check must be True or False, got {self.run!r}")
-        set_(self, "method", check_method(self.method))
+        try:
+            set_(self, "method", check_method(self.method))
+        except InputError as err:
+            raise OptionError.of("method", err) from None
         if self.charge is not None:
             set_(self, "charge", _whole(self.charge, "charge", -MAX_CHARGE, MAX_CHARGE))
         if self.spin is not None:

@@ -310,7 +310,7 @@ def build_structures(
     elif option_values:
         raise TypeError(f"give either options or option keywords, not both ({', '.join(option_values)})")
     if not paths:
-        raise InputError("no structure files given")
+        raise InputError("paths: no structure files given")
     if merge_into is not None:
         if split_elements:
             raise OptionError("merge_into", " and ", other="split_elements", tail=" exclude each other")

@@ -52,7 +52,8 @@ def _cache_file(conf: Configuration):
 @lru_cache(maxsize=None)
 def _optimise(conf: Configuration) -> tuple[tuple[str, float], ...]:
     from stobuilder.core.files import atomic_write
-    from stobuilder.exact.solver import optimize_exponents, pick_method
+    from stobuilder.exact.solver import optimize_exponents
+    from stobuilder.model.methods import pick_method
     from stobuilder.screening.slater import shell_exponents as slater_exponents
 
     path = _cache_file(conf)
@@ -75,7 +76,7 @@ def _optimise(conf: Configuration) -> tuple[tuple[str, float], ...]:
             log.info(f"{conf.symbol}: {line}, {now - start:.0f} s")
 
     initial = tuple(e for e in slater_exponents(conf) if conf.occupation(e.n, e.l))
-    zeta = tuple(optimize_exponents(conf, initial, pick_method(conf, "auto"), progress=progress).zeta.items())
+    zeta = tuple(optimize_exponents(conf, initial, pick_method("auto", conf.unpaired).lower(), progress=progress).zeta.items())
     log.info(f"{conf.symbol}: ζ optimised in {time.monotonic() - start:.0f} s")
     try:
         path.parent.mkdir(parents=True, exist_ok=True)
