@@ -15,6 +15,7 @@ import sys
 
 from stobuilder.cli import atom, batch, bench, build, fit, formats, relax, tune, zeta
 from stobuilder.cli.common import EXIT_BAD_INPUT, Parser, StderrHandler, guarded, say_deprecations
+from stobuilder.cli.options import CLI_FLAGS
 from stobuilder.core.version import __version__
 
 COMMANDS = {
@@ -49,7 +50,7 @@ def main(argv=None) -> int:
         say_deprecations(args)
         return COMMANDS[args.command].run(args)
 
-    return guarded(run)
+    return guarded(run, CLI_FLAGS)
 
 
 __all__ = ["COMMANDS", "EXIT_BAD_INPUT", "main", "parser"]

@@ -196,21 +196,21 @@ def quiet_broken_pipe() -> int:
     return EXIT_BROKEN_PIPE
 
 
-def flag_text(exc: InputError) -> str:
+def flag_text(exc: InputError, flags) -> str:
     """The message of ``exc`` in the command line's words, on one line: an error that names
     Python arguments (``OptionError``, ``files.OverwriteError``: anything with ``render``) names
-    their flags instead (``options.CLI_FLAGS``); a message that a path with a line end would
-    break gets the line end escaped (``limits.one_line``)."""
-    from stobuilder.cli.options import CLI_FLAGS
+    their flags instead (``flags``: ``options.CLI_FLAGS``); a message that a path with a line end
+    would break gets the line end escaped (``limits.one_line``)."""
     from stobuilder.core.limits import one_line
 
-    text = exc.render({**CLI_FLAGS, "force": "--force"}) if hasattr(exc, "render") else str(exc)
+    text = exc.render({**flags, "force": "--force"}) if hasattr(exc, "render") else str(exc)
     return one_line(text) if len(text.splitlines()) > 1 else text
 
 
-def guarded(run) -> int:
+def guarded(run, flags) -> int:
     """``run()``'s exit status, with every expected failure as one line on stderr: bad input
-    (InputError, OSError) exit 2, a closed stdout 141, an interrupt 130."""
+    (InputError, OSError) exit 2, its message naming the flags of ``flags``; a closed stdout
+    141; an interrupt 130."""
     try:
         status = run()
         sys.stdout.flush()  # a closed pipe shows here, inside the handlers, not at exit
@@ -218,7 +218,7 @@ def guarded(run) -> int:
     except BrokenPipeError:
         return quiet_broken_pipe()
     except InputError as exc:
-        print(f"stobuilder: error: {flag_text(exc)}", file=sys.stderr)
+        print(f"stobuilder: error: {flag_text(exc, flags)}", file=sys.stderr)
         return EXIT_BAD_INPUT
     except OSError as exc:
         where = f"{exc.filename}: " if exc.filename else ""

@@ -37,11 +37,11 @@ def fit_zeta(items, labels) -> float:
     from stobuilder.model.elements import normalise_symbol
 
     values: dict[str, float] = {}
-    grammar = []
+    grammar, old = [], []
     for text in items or ():
         number = _plain_number(text)
         if number is not None:
-            deprecation(f"--zeta {text}", f"--zeta {labels[0]}={text}")
+            old.append(text)
             values[labels[0]] = zeta_value(number, "--zeta")
         else:
             grammar.append(text)
@@ -63,6 +63,8 @@ def fit_zeta(items, labels) -> float:
     if len(distinct) > 1:
         given = ", ".join(f"{k}={v:g}" for k, v in values.items())
         raise InputError(f"--zeta: the subshells of one fit share one ζ scale; {given} differ: give one value")
+    for text in old:  # said once the values are good: a bad one is a one-line error
+        deprecation(f"--zeta {text}", f"--zeta {labels[0]}={text}")
     return distinct[0] if distinct else 1.0
 
 
