@@ -1,4 +1,4 @@
-"""``python -m stobuilder``: the command line."""
+"""``python -m stobuilder``: the command line (``stobuilder.cli``)."""
 
 import sys
 

@@ -43,6 +43,18 @@ def test_atom_text_names_the_element_and_configuration_once(capsys):
     assert out.count("[He] 2s2 2p2") == 1
 
 
+def test_atom_text_lists_each_expansion_with_its_norm(capsys):
+    # the table's rows are those of the JSON, each named by N and the fitting norm
+    code, out, err = run_cli(["atom", "He", "--zeta", "He:1s=1.6875", "--gaussians", "3", "6", "--norm", "h1"], capsys)
+    assert code == 0, err
+    _, doc, _ = run_cli(["atom", "He", "--zeta", "1s=1.6875", "--gaussians", "3", "--gaussians", "6", "--norm", "h1",
+                         "--json"], capsys)
+    rows = [line for line in out.splitlines() if line.startswith("  STO-")]
+    energies = [row["energy_hartree"] for row in json.loads(doc)["gaussian"]]
+    assert [r.split(":")[0] for r in rows] == ["  STO-3G (h1 fit)", "  STO-6G (h1 fit)"]
+    assert [f"E = {e:.10f} hartree" in r for r, e in zip(rows, energies)] == [True, True]
+
+
 @pytest.mark.parametrize(
     "argv,named",
     [

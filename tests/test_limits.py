@@ -94,7 +94,7 @@ def test_the_python_api_goes_through_the_same_checks():
 
 
 # "--steps 1e9 says 'not a whole number' (it is one, just out of range)" once held for every
-# whole-number flag; they share relax's parser (cli._whole_in): a whole number in exponent
+# whole-number flag; they share relax's parser (cli.common.whole_in): a whole number in exponent
 # notation is one, out of range or not; a decimal point or a fraction is not.
 WHOLE_FLAGS = [(["build", "W"], "--charge"), (["build", "W"], "--spin"), (["build", "W"], "--gaussians"),
                (["batch", "W", "--out", "O"], "--workers"), (["bench", "W", "--out", "O"], "--workers"),

@@ -19,22 +19,12 @@ import warnings
 from collections.abc import Iterable, Mapping
 from dataclasses import dataclass, field
 
-from stobuilder.core.defaults import DEFAULTS
 from stobuilder.builder.spec import BasisSpec, ZetaTable, deprecated_sharing
 from stobuilder.core.errors import InputError, OptionError
 from stobuilder.core.arguments import whole_number
 from stobuilder.core.limits import MAX_CHARGE
 
 MAX_CHECK_FRAMES = 3
-
-
-# The flag of each option on the command line (``add_arguments``, build's own), for ``OptionError.render``.
-CLI_FLAGS = {
-    "rule": "--rule", "gaussians": "--gaussians", "norm": "--fit", "sharing": "--shared-exponents/--separate-fits",
-    "radial": "--radial", "zeta": "--zeta", "zeta_library": "--zeta-file", "zeta_file": "--zeta-file",
-    "sp_shells": "--sp-shells", "codes": "--code", "check": "--check", "method": "--method", "charge": "--charge",
-    "spin": "--spin", "merge_into": "--merge-into", "split_elements": "--split-elements", "out_dir": "--out",
-}
 
 
 def _whole(value, option: str, minimum: int | None = None, maximum: int | None = None) -> int:
@@ -245,66 +235,4 @@ def parse_zeta_overrides(items, per_element: bool = False) -> dict:
     return ZetaTable.parse(items, element="H").of_element("H")
 
 
-# ---------------------------------------------------------------------------- the command line
-
-
-def add_arguments(parser, whole_number_type) -> None:
-    """The build options as one argparse group (``build`` and ``batch`` share it)."""
-    from stobuilder.builder.spec import RADIAL_FORMS
-    from stobuilder.expansion.fit import NORMS
-    from stobuilder.formats import formats
-    from stobuilder.model.methods import METHODS
-    from stobuilder.screening import rules
-
-    g = parser.add_argument_group("build options")
-    g.add_argument("--rule", default=DEFAULTS["rule"], help=f"screening rule: {', '.join(rules())} (default {DEFAULTS['rule']})")
-    g.add_argument("--gaussians", type=whole_number_type, default=3, metavar="N", help="Gaussians per STO, 1–12 (default 3)")
-    g.add_argument(
-        "--code", action="append", metavar="CODE",
-        help=f"output format, repeatable: {', '.join(formats())}, or all (default nwchem)",
-    )
-    g.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis before writing")
-    g.add_argument("--method", choices=METHODS, default="auto", help="SCF method for --check (default: RHF/ROHF)")
-    g.add_argument("--charge", type=whole_number_type, help="total charge (overrides the files)")
-    g.add_argument("--spin", type=whole_number_type, help="2S, the number of unpaired electrons (overrides the files)")
-    g.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
-    g.add_argument(
-        "--zeta", action="append", metavar="ELEMENT:LABEL=VALUE",
-        help="your own ζ for one subshell, e.g. Fe:3d=2.1 (repeatable; on top of --zeta-file)",
-    )
-    g.add_argument("--zeta-file", metavar="FILE.toml", help="your own ζ: a TOML table per element, e.g. [Fe] 3d = 2.1")
-    g.add_argument("--fit", choices=NORMS, default="l2", help="fitting norm: l2 least squares, h1 Sobolev (default l2)")
-    mode = g.add_mutually_exclusive_group()
-    mode.add_argument(
-        "--shared-exponents", action="store_true",
-        help="one exponent set per n, fitted jointly at the rule's zeta ratios (allows sp shells)",
-    )
-    mode.add_argument("--separate-fits", action="store_true", help="fit every subshell on its own")
-    g.add_argument(
-        "--radial", choices=RADIAL_FORMS, default="integer",
-        help="STO radial form: integer n, or the rule's effective n* (default integer)",
-    )
-
-
-def from_args(args) -> BuildOptions:
-    """The BuildOptions of parsed ``add_arguments`` options (the zeta file read now, as the
-    options' library: ``--zeta`` on top)."""
-    return BuildOptions(
-        rule=args.rule,
-        gaussians=args.gaussians,
-        norm=args.fit,
-        sharing="shared" if args.shared_exponents else "separate" if args.separate_fits else "family",
-        radial=args.radial,
-        zeta=ZetaTable.parse(args.zeta or []),
-        zeta_file=args.zeta_file or None,
-        sp_shells=args.sp_shells,
-        codes=tuple(args.code or ("nwchem",)),
-        check=args.check,
-        method=args.method,
-        charge=args.charge,
-        spin=args.spin,
-    )
-
-
-__all__ = ["BuildOptions", "CLI_FLAGS", "CheckOptions", "MAX_CHECK_FRAMES", "OutputOptions", "add_arguments", "from_args",
-           "load_zeta_file", "parse_zeta_overrides"]
+__all__ = ["BuildOptions", "CheckOptions", "MAX_CHECK_FRAMES", "OutputOptions", "load_zeta_file", "parse_zeta_overrides"]
