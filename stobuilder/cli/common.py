@@ -52,7 +52,7 @@ def whole_in(low: int | None = None, high: int | None = None, what: str = ""):
     return parse
 
 
-whole_number = whole_in()
+whole_arg = whole_in()  # the argparse type of a whole-number flag with no range of its own
 
 
 def deprecation(old: str, new: str) -> None:

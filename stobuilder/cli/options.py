@@ -25,7 +25,7 @@ from __future__ import annotations
 import contextlib
 
 from stobuilder.core.errors import InputError
-from stobuilder.cli.common import Choice, DeprecatedAlias, whole_number
+from stobuilder.cli.common import Choice, DeprecatedAlias, whole_arg
 
 # The flag of each Python option name, for ``OptionError.render`` (every command's messages).
 CLI_FLAGS = {
@@ -47,12 +47,12 @@ def add_gaussians(parser, several: bool = False, default=None) -> None:
     from stobuilder.expansion.fit import MAX_GAUSSIANS
 
     if several:
-        parser.add_argument("--gaussians", type=whole_number, action="extend", nargs="+", default=default,
+        parser.add_argument("--gaussians", type=whole_arg, action="extend", nargs="+", default=default,
                             metavar=GAUSSIANS_METAVAR,
                             help=f"Gaussians per STO, 1–{MAX_GAUSSIANS}; repeatable, several at once allowed")
     else:
         default = DEFAULTS["gaussians"] if default is None else default
-        parser.add_argument("--gaussians", type=whole_number, default=default, metavar=GAUSSIANS_METAVAR,
+        parser.add_argument("--gaussians", type=whole_arg, default=default, metavar=GAUSSIANS_METAVAR,
                             help=f"Gaussians per STO, 1–{MAX_GAUSSIANS} (default {default})")
 
 
@@ -126,15 +126,15 @@ def add_scf(parser, check: bool = True) -> None:
     if check:
         g.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis before writing")
     g.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
-    g.add_argument("--charge", type=whole_number, metavar="Q", help="total charge (overrides the files)")
-    g.add_argument("--spin", type=whole_number, metavar="2S", help="2S, the number of unpaired electrons (overrides the files)")
+    g.add_argument("--charge", type=whole_arg, metavar="Q", help="total charge (overrides the files)")
+    g.add_argument("--spin", type=whole_arg, metavar="2S", help="2S, the number of unpaired electrons (overrides the files)")
 
 
 def add_parallel(parser, progress_help: str) -> None:
     """Where the tasks run (batch, bench): --workers or --scheduler, and --progress."""
     from stobuilder.jobs.progress import PROGRESS_MODES
 
-    parser.add_argument("--workers", type=whole_number, metavar="N", help="local worker processes (default: the usable cores)")
+    parser.add_argument("--workers", type=whole_arg, metavar="N", help="local worker processes (default: the usable cores)")
     parser.add_argument("--scheduler", metavar="ADDRESS",
                         help="run on a Dask cluster, e.g. tcp://host:8786 (needs stobuilder[cluster])")
     parser.add_argument("--progress", choices=PROGRESS_MODES, default="auto", help=progress_help)

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from stobuilder.cli.common import add_json, fmt_energy, print_json, refuse, whole_number
+from stobuilder.cli.common import add_json, fmt_energy, print_json, refuse, whole_arg
 from stobuilder.cli.options import add_basis, add_scf, build_options
 
 HELP = "ζ that minimise the SCF energies of a training set of structures"
@@ -21,7 +21,7 @@ def add_arguments(p) -> None:
     p.add_argument("--validate", nargs="+", default=[], metavar="STRUCTURE", help="held-out structures to report")
     p.add_argument("--out", default="tuned-zeta.toml", metavar="FILE.toml", help="the zeta file (default tuned-zeta.toml)")
     p.add_argument("--force", action="store_true", help="overwrite an existing --out file")
-    p.add_argument("--threads", type=whole_number, metavar="N", help="PySCF OpenMP threads (default PySCF's)")
+    p.add_argument("--threads", type=whole_arg, metavar="N", help="PySCF OpenMP threads (default PySCF's)")
     add_json(p)
 
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from stobuilder.cli.common import add_json, add_rule, print_json, whole_number
+from stobuilder.cli.common import add_json, add_rule, print_json, whole_arg
 
 HELP = "Zeff, n* and zeta of every subshell"
 
@@ -10,7 +10,7 @@ HELP = "Zeff, n* and zeta of every subshell"
 def add_arguments(p) -> None:
     p.add_argument("elements", nargs="+", metavar="ELEMENT-OR-CONFIG", help='e.g. Fe, or "[Ar] 3d7 4s1"')
     add_rule(p)
-    p.add_argument("--charge", type=whole_number, default=0, help="ion charge (default 0)")
+    p.add_argument("--charge", type=whole_arg, default=0, help="ion charge (default 0)")
     add_json(p)
 
 

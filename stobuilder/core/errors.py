@@ -12,7 +12,8 @@ class InputError(ValueError):
 class OptionError(InputError):
     """A bad value of one build option (or of two that exclude each other). Its text names each
     option as the door that took it calls it: the Python argument (``charge``) by default, and
-    the command line's flag (``--charge``) where ``cli.main`` prints it (``render(CLI_FLAGS)``).
+    the command line's flag (``--charge``) where ``stobuilder.cli.main`` prints it
+    (``render(stobuilder.cli.options.CLI_FLAGS)``).
 
     option   the BuildOptions field (or the Python argument) the value was given for
     rest     the message after the name, e.g. " must be a whole number, got 0.5"

@@ -5,6 +5,7 @@ measured in the same run (wall time of a fresh interpreter, the minimum of sever
     from stobuilder.builder.construct import zeta_values; zeta_values("C")
                                             vs  python -c "import numpy"
     python -m stobuilder zeta C             vs  python -c "import numpy"   (target ≤ 2, issue 24)
+    python -m stobuilder formats, fit 1s, build --help   vs  python -c "import numpy"
     python -m stobuilder build <example> --out <tmp>   (no --check)
                                             vs  python -c "import ase.io"  (target ≤ 1.1, issue 24)
 
@@ -81,6 +82,12 @@ def main(argv: list[str] | None = None) -> int:
          wall(python("from stobuilder.builder.construct import zeta_values; zeta_values('C')"), r), numpy, "numpy", None),
         ("python -m stobuilder zeta C",
          wall(lambda folder: [sys.executable, "-m", "stobuilder", "zeta", "C"], r), numpy, "numpy", 2.0),
+        ("python -m stobuilder formats",
+         wall(lambda folder: [sys.executable, "-m", "stobuilder", "formats"], r), numpy, "numpy", None),
+        ("python -m stobuilder fit 1s (a stored fit)",
+         wall(lambda folder: [sys.executable, "-m", "stobuilder", "fit", "1s"], r), numpy, "numpy", None),
+        ("python -m stobuilder build --help",
+         wall(lambda folder: [sys.executable, "-m", "stobuilder", "build", "--help"], r), numpy, "numpy", None),
         (f"python -m stobuilder build {EXAMPLE.name} --out DIR",
          wall(lambda folder: [sys.executable, "-m", "stobuilder", "build", str(EXAMPLE), "--out", os.path.join(folder, "b")], r),
          ase_io, "ase.io", 1.1),
