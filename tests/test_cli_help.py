@@ -158,3 +158,14 @@ def test_gaussians_has_one_shape_in_the_comparing_commands():
     assert _parsed(["atom", "C", "--gaussians", "3", "6", "--gaussians", "12"])["gaussians"] == [3, 6, 12]
     assert _parsed(["bench", "--gaussians", "3", "--gaussians", "6"])["gaussians"] == [3, 6]
     assert _parsed(["build", "x.xyz", "--gaussians", "6"])["gaussians"] == 6
+
+
+def test_a_structure_after_several_gaussians_is_named_with_the_reason(capsys, tmp_path, water):
+    # --gaussians takes every value after it (README synopsis: [--gaussians N...]...), so a
+    # structure written after it is read as a count: the one-line error says so and how to write
+    # it (common practice, no source); written first, the same command line parses
+    code, _, err = run_cli(["bench", "--gaussians", "3", str(water), "--out", str(tmp_path / "b")], capsys)
+    assert_one_line_error(code, err)
+    assert str(water) in err and "not a whole number" in err and "structures before it" in err
+    assert not (tmp_path / "b").exists()
+    assert _parsed(["bench", str(water), "--gaussians", "3"])["gaussians"] == [3]

@@ -22,6 +22,7 @@ which imports PySCF, scipy.optimize or ASE's calculators.
 
 from __future__ import annotations
 
+import argparse
 import contextlib
 
 from stobuilder.core.errors import InputError
@@ -40,6 +41,18 @@ ZETA_METAVAR = "ELEMENT:LABEL=VALUE"
 ZETA_ONE_ELEMENT_METAVAR = "[ELEMENT:]LABEL=VALUE"
 
 
+def _one_of_several(text: str) -> int:
+    """One value of a ``--gaussians`` that takes several: as ``whole_arg``, and a value that is no
+    number says why argparse read it as one (``bench --gaussians 3 CH4.xyz``)."""
+    try:
+        return whole_arg(text)
+    except argparse.ArgumentTypeError as exc:
+        if "not a whole number" not in str(exc):
+            raise
+        raise argparse.ArgumentTypeError(
+            f"{exc}; --gaussians takes every value that follows it, so give the structures before it") from None
+
+
 def add_gaussians(parser, several: bool = False, default=None) -> None:
     """``--gaussians N``: one value, or with ``several`` (the commands that compare expansions)
     repeatable, each occurrence taking one or more (``--gaussians 3 6 --gaussians 12``)."""
@@ -47,7 +60,7 @@ def add_gaussians(parser, several: bool = False, default=None) -> None:
     from stobuilder.expansion.fit import MAX_GAUSSIANS
 
     if several:
-        parser.add_argument("--gaussians", type=whole_arg, action="extend", nargs="+", default=default,
+        parser.add_argument("--gaussians", type=_one_of_several, action="extend", nargs="+", default=default,
                             metavar=GAUSSIANS_METAVAR,
                             help=f"Gaussians per STO, 1–{MAX_GAUSSIANS}; repeatable, several at once allowed")
     else:
