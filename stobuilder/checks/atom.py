@@ -1,9 +1,9 @@
 """The ``atom`` command's document: one atom with exact STOs, and the Gaussian bases ``build`` writes.
 
 The exact-STO energy comes from stobuilder.exact.atoms; each N-Gaussian row is the very basis
-``build`` writes for that element (``build.element_basis``: the family fits, each subshell scaled
+``build`` writes for that element (``builder.construct.element_basis``: the family fits, each subshell scaled
 by its own ζ²) in the same determinant, computed by the free-atom SCF of the checks
-(``checks.check_free_atom``). A free-atom structure through ``build --check`` and ``atom
+(``checks.structure.check_free_atom``). A free-atom structure through ``build --check`` and ``atom
 --gaussians N`` therefore give the same energy.
 """
 
