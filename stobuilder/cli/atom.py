@@ -3,14 +3,12 @@
 from __future__ import annotations
 
 from stobuilder.cli.common import add_json, add_rule, print_json, whole_arg
-from stobuilder.cli.options import add_gaussians, add_norm, add_zeta
+from stobuilder.cli.options import add_gaussians, add_method, add_norm, add_zeta
 
 HELP = "one atom with exact STOs: energy, ζ, virial ratio, Gaussian-expansion error"
 
 
 def add_arguments(p) -> None:
-    from stobuilder.model.methods import METHODS
-
     p.add_argument("element", metavar="ELEMENT", help='element symbol, or a configuration such as "[Ar] 3d7 4s1"')
     add_rule(p)
     p.add_argument("--configuration", metavar="CONFIG", help='explicit configuration, e.g. "1s2 2s1 2p3"')
@@ -19,7 +17,7 @@ def add_arguments(p) -> None:
     p.add_argument("--optimize", action="store_true", help="optimise every ζ variationally (from the rule's values)")
     add_gaussians(p, several=True, default=[])
     add_norm(p)
-    p.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
+    add_method(p)
     add_json(p)
 
 

@@ -76,7 +76,7 @@ def add_norm(parser, several: bool = False) -> None:
 
     default = None if several else DEFAULTS["norm"]
     text = "l2 least squares, h1 Sobolev" if set(NORMS) == {"l2", "h1"} else ", ".join(NORMS)
-    more = "repeatable (default l2)" if several else f"default {DEFAULTS['norm']}"
+    more = f"repeatable (default {DEFAULTS['norm']})" if several else f"default {DEFAULTS['norm']}"
     parser.add_argument("--norm", choices=NORMS, default=default, action=Choice, append=several,
                         help=f"fitting norm of the Gaussian expansions: {text} ({more})")
     parser.add_argument("--fit", dest="norm", choices=NORMS, action=DeprecatedAlias, new="--norm", append=several)
@@ -130,15 +130,20 @@ def add_output(parser) -> None:
     g.add_argument("--sp-shells", action="store_true", help="write s and p shells that share exponents as sp shells")
 
 
+def add_method(parser) -> None:
+    """``--method``: the SCF method (the commands that run SCFs)."""
+    from stobuilder.model.methods import METHODS
+
+    parser.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
+
+
 def add_scf(parser, check: bool = True) -> None:
     """The SCF options (``CheckOptions``): --method, --charge, --spin, and --check where the
     command runs SCF checks only when asked (build, batch)."""
-    from stobuilder.model.methods import METHODS
-
     g = parser.add_argument_group("SCF options")
     if check:
         g.add_argument("--check", action="store_true", help="run PySCF SCF checks with the basis before writing")
-    g.add_argument("--method", choices=METHODS, default="auto", help="SCF method (default: RHF/ROHF)")
+    add_method(g)
     g.add_argument("--charge", type=whole_arg, metavar="Q", help="total charge (overrides the files)")
     g.add_argument("--spin", type=whole_arg, metavar="2S", help="2S, the number of unpaired electrons (overrides the files)")
 
@@ -208,5 +213,5 @@ def build_options(args):
     )
 
 
-__all__ = ["CLI_FLAGS", "add_basis", "add_gaussians", "add_norm", "add_output", "add_scf", "add_parallel", "add_zeta", "build_options",
+__all__ = ["CLI_FLAGS", "add_basis", "add_gaussians", "add_method", "add_norm", "add_output", "add_scf", "add_parallel", "add_zeta", "build_options",
            "executor", "workers"]
