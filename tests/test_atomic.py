@@ -129,7 +129,10 @@ def test_report_gaussian_error_shrinks():
     # and (one fit per subshell, slow, fitted on demand) 8 1.9e-3, 10 7.4e-4, 12 9.9e-5.
     rep = atom_report("C", gaussians=[1, 2, 3, 4, 5, 6])
     assert set(rep) == {"element", "configuration", "state", "method", "zeta", "energy_exact_hartree", "converged",
-                        "virial_ratio", "gaussian", "orbital_energies"}
+                        "virial_ratio", "gaussian", "orbital_energies", "stos_per_subshell", "stos", "expansions",
+                        "hartree_fock_limit", "notes"}
+    # C's single-ζ determinant is a pure 3P term: its distance to the HF limit (Froese Fischer 1977)
+    assert rep["hartree_fock_limit"]["above_hartree"] == pytest.approx(rep["energy_exact_hartree"] + 37.6886190, abs=1e-12)
     diffs = [g["energy_hartree"] - rep["energy_exact_hartree"] for g in rep["gaussian"]]
     assert all(d > 0 for d in diffs)  # the Gaussian imitation is variationally worse
     assert all(b < a for a, b in zip(diffs, diffs[1:]))

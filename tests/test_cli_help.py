@@ -23,7 +23,7 @@ ACCEPTED = {
     "batch": HELP | BASIS | OUTPUT | SCF | {"--check", "--out", "--workers", "--scheduler", "--force", "--progress", "--json"},
     "relax": HELP | BASIS | OUTPUT | SCF | {"--fmax", "--steps", "--optimizer", "--out", "--force", "--json"},
     "tune": HELP | BASIS | SCF | {"--vary", "--weights", "--validate", "--out", "--force", "--threads", "--json"},
-    "atom": HELP | {"--rule", "--configuration", "--charge", "--zeta", "--optimize", "--gaussians", "--norm", "--method",
+    "atom": HELP | {"--rule", "--configuration", "--charge", "--zeta", "--optimize", "--stos", "--sto-n", "--gaussians", "--norm", "--method",
                     "--json"},
     "bench": HELP | {"--set", "--list-sets", "--rule", "--gaussians", "--norm", "--zeta-file", "--reference", "--out",
                      "--workers", "--scheduler", "--force", "--progress", "--json"},

@@ -84,3 +84,27 @@ def test_collapsing_functions_are_held_apart_and_reported():
     tight = optimize_stos(conf, start, "rhf", min_ratio=3.0)
     assert any("minimum ζ ratio 3" in note for note in tight.notes)
     assert tight.energy > r.energy
+
+
+def test_atom_command_with_two_stos_per_subshell(tmp_path):
+    # the command a user runs, strict JSON: Be double-ζ at the Clementi–Roetti value (from memory),
+    # the distance to the HF limit (Froese Fischer 1977, from memory) and the expansions printed
+    import json
+    import subprocess
+    import sys
+
+    out = subprocess.run([sys.executable, "-m", "stobuilder", "atom", "Be", "--stos", "2", "--json"],
+                         capture_output=True, text=True, check=True, cwd=tmp_path)
+    doc = json.loads(out.stdout, parse_constant=lambda c: (_ for _ in ()).throw(ValueError(c)))
+    assert doc["stos_per_subshell"] == 2 and len(doc["stos"]) == 4
+    assert doc["energy_exact_hartree"] == pytest.approx(CLEMENTI_ROETTI_DZ["Be"], abs=1e-5)
+    limit = doc["hartree_fock_limit"]
+    assert limit["energy_hartree"] == HF_LIMIT["Be"]
+    assert limit["above_hartree"] == pytest.approx(doc["energy_exact_hartree"] - HF_LIMIT["Be"], abs=1e-12)
+    assert 0 < limit["above_hartree"] < 1e-3
+    assert set(doc["expansions"]) == {"1s", "2s"} and all(len(c) == 4 for c in doc["expansions"].values())
+    # a rule that gives one ζ per subshell cannot make two: one line, status 2, no traceback
+    bad = subprocess.run([sys.executable, "-m", "stobuilder", "atom", "Be", "--stos", "2", "--rule", "clementi"],
+                         capture_output=True, text=True, cwd=tmp_path)
+    assert bad.returncode == 2 and "Traceback" not in bad.stderr and len(bad.stderr.strip().splitlines()) == 1
+    assert not list(tmp_path.iterdir())  # nothing written

@@ -21,6 +21,7 @@ from stobuilder.exact.atoms import AtomResult, numerical_guard, solve_atom, supp
 from stobuilder.model.methods import pick_method
 from stobuilder.exact.atoms import optimize as optimize_stos  # atom_report's own optimize is a flag
 from stobuilder.model.basis import Basis
+from stobuilder.core.errors import InputError
 from stobuilder.model.elements import Configuration, resolve
 
 
@@ -79,16 +80,34 @@ def gaussian_row(conf, zeta, method: str, gaussians: int, norm: str = DEFAULTS["
 
 
 def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, charge: int = 0, zeta=None,
-                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = DEFAULTS["norm"]) -> dict:
+                optimize: bool = False, gaussians=(), method: str = "auto", norm: str = DEFAULTS["norm"],
+                stos: int = 1, sto_n: str = "same") -> dict:
     """The exact-STO atom and the N-Gaussian bases of ``build`` for it, as a JSON-ready dict.
 
     Keys: element, configuration, state, method, zeta {label: bohr⁻¹}, energy_exact_hartree,
     virial_ratio, gaussian [{gaussians, norm, energy_hartree, converged}],
-    orbital_energies [{label, spin, energy_hartree, occupation}]. With ``optimize`` the ζ of the
-    occupied subshells are optimised first (from ``rule`` and ``zeta``) and only those subshells
-    form the exact-STO basis; the Gaussian bases take the optimised ζ (empty subshells, which do
-    not change an atom's energy, keep the rule's).
+    orbital_energies [{label, spin, energy_hartree, occupation}], stos_per_subshell,
+    stos [{subshell, n, zeta}], expansions {orbital: [coefficients over the STOs of its l]},
+    hartree_fock_limit {energy_hartree, above_hartree, source} or None, notes [text]. With
+    ``optimize`` the ζ of the occupied subshells are optimised first (from ``rule`` and ``zeta``)
+    and only those subshells form the exact-STO basis; the Gaussian bases take the optimised ζ
+    (empty subshells, which do not change an atom's energy, keep the rule's). With ``stos`` = K > 1
+    every occupied subshell is carried by K STOs (n by ``sto_n``, stobuilder.exact.manyzeta.N_RULES),
+    all ζ optimised from the single-ζ optimum; the rule and ``zeta`` do not apply then.
     """
+    from stobuilder.exact.manyzeta import check_count
+
+    k = check_count(stos)
+    if k > 1:
+        if zeta:
+            raise InputError(f"{element}: --zeta sets one ζ per subshell; with {k} STOs per subshell all ζ are optimised")
+        if rule != DEFAULTS["rule"]:
+            raise InputError(f"{element}: --rule {rule} gives one ζ per subshell; with {k} STOs per subshell all ζ "
+                             "are optimised from the single-ζ optimum (leave out --rule)")
+        if gaussians:
+            raise InputError(f"{element}: --gaussians expands one STO per subshell; with {k} STOs per subshell only "
+                             "the exact-STO atom is computed")
+        return _document(_several(element, charge, configuration, method, k, sto_n), [], k)
     conf, stos = _stos(element, rule, charge, configuration, zeta)
     m = _method(conf, method)
     if isinstance(gaussians, numbers.Real):
@@ -107,6 +126,46 @@ def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, 
         result = solve_atom(conf, stos, m)
         used = dict(zeta or {})
     rows = [gaussian_row(conf, used or None, m, n, norm, rule) for n in counts]
+    return _document(result, rows, 1)
+
+
+def _several(element, charge, configuration, method, k, sto_n) -> AtomResult:
+    """The optimum with ``k`` STOs per occupied subshell, progress lines on the module's logger
+    (at most one per PROGRESS_SECONDS)."""
+    import logging
+    import time
+
+    from stobuilder.exact.manyzeta import optimize_stos, starting_stos
+    from stobuilder.screening.optimized import occupied_zeta
+
+    conf = supported(resolve(element, charge, configuration))
+    m = _method(conf, method)
+    start = starting_stos(conf, occupied_zeta(conf), k, sto_n)
+    log = logging.getLogger(__name__)
+    t0 = last = time.monotonic()
+
+    def progress(line):
+        nonlocal last
+        now = time.monotonic()
+        if now - last >= PROGRESS_SECONDS:
+            last = now
+            log.info(f"{conf.symbol}, {k} STOs per subshell: {line}, {now - t0:.0f} s")
+
+    return numerical_guard(conf, f"optimisation of {k} STOs per subshell", lambda: optimize_stos(conf, start, m, progress))
+
+
+PROGRESS_SECONDS = 2.0
+
+
+def _document(result: AtomResult, rows: list, k: int) -> dict:
+    from stobuilder.exact.limits import SOURCE, limit_of
+    from stobuilder.model.elements import ground_state
+
+    try:
+        ground = ground_state(result.element).label
+    except Exception:  # an element without a stored ground state has no limit here
+        ground = None
+    limit = limit_of(result.element, result.configuration, result.state, ground)
     return {
         "element": result.element,
         "configuration": result.configuration,
@@ -121,6 +180,12 @@ def atom_report(element: str, rule: str = DEFAULTS["rule"], configuration=None, 
             {"label": o.label, "spin": o.spin, "energy_hartree": o.energy, "occupation": o.occupation}
             for o in result.orbital_energies
         ],
+        "stos_per_subshell": k,
+        "stos": [{"subshell": f.subshell, "n": f.n, "zeta": f.zeta} for f in result.stos],
+        "expansions": {name: list(c) for name, c in result.expansions},
+        "hartree_fock_limit": None if limit is None else {
+            "energy_hartree": limit, "above_hartree": result.energy - limit, "source": SOURCE},
+        "notes": list(result.notes),
     }
 
 
